@@ -1,0 +1,86 @@
+"""The ``ramiform`` command line: analyze images, serve the web app, build reference sets.
+
+Each subcommand parses its options here and hands over to a plain function in the
+numeric core or the web layer; nothing else lives in this module.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from collections.abc import Sequence
+
+
+def _add_analyze(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("analyze", help="measure specimen images and rank them against the reference set")
+    p.add_argument("images", nargs="+", metavar="IMAGE", help="image files (PNG, JPEG, TIFF, BMP)")
+    p.add_argument("--pixel-size", type=float, default=None, metavar="MM",
+                   help="pixel size in millimetres (overrides TIFF resolution tags)")
+    p.add_argument("--json", action="store_true", help="print one JSON object per image (JSON Lines)")
+    p.add_argument("--workers", type=int, default=None, help="worker processes (default: one per core)")
+    p.add_argument("--scheduler", default=None, metavar="ADDRESS", help="run on an existing Dask cluster")
+    p.add_argument("--library", default=None, metavar="DIR", help="reference set (default: the bundled one)")
+    p.add_argument("--mode", choices=["auto", "threshold", "ridge"], default="auto", help="segmentation mode")
+    p.add_argument("--polarity", choices=["auto", "dark", "bright"], default="auto",
+                   help="whether the specimen is darker or brighter than its background")
+    p.add_argument("--threshold", type=float, default=None, help="fixed threshold on the flattened image (0-1)")
+    p.add_argument("--page", type=int, default=None, help="TIFF page to read (default: the first)")
+    p.set_defaults(func=_run_analyze)
+
+
+def _run_analyze(args: argparse.Namespace) -> int:
+    from service.batch import run_analyze_command
+
+    return run_analyze_command(args)
+
+
+def _add_serve(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("serve", help="run the web service")
+    p.add_argument("--host", default="127.0.0.1")
+    p.add_argument("--port", type=int, default=8000)
+    p.set_defaults(func=_run_serve)
+
+
+def _run_serve(args: argparse.Namespace) -> int:
+    from service.web.server import serve
+
+    serve(host=args.host, port=args.port)
+    return 0
+
+
+def _add_library(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("library", help="reference sets of simulated clusters")
+    lsub = p.add_subparsers(dest="library_command", required=True)
+    b = lsub.add_parser("build", help="grow a reference set on Dask")
+    b.add_argument("--out", default=None, metavar="DIR", help="output folder (default: reference_sets/<preset>)")
+    b.add_argument("--scheduler", default=None, metavar="ADDRESS", help="address of an existing Dask scheduler")
+    b.add_argument("--workers", type=int, default=None, help="LocalCluster workers (default: one per core)")
+    b.add_argument("--preset", default="default", help="which ensemble to grow (default, tiny, ...)")
+    b.set_defaults(func=_run_library_build)
+
+
+def _run_library_build(args: argparse.Namespace) -> int:
+    from service.library.build import run_build_command
+
+    return run_build_command(args)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="ramiform", description=__doc__.splitlines()[0])
+    from service import __version__
+
+    parser.add_argument("--version", action="version", version=f"ramiform {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True)
+    _add_analyze(sub)
+    _add_serve(sub)
+    _add_library(sub)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    args = build_parser().parse_args(argv)
+    return int(args.func(args) or 0)
+
+
+if __name__ == "__main__":
+    sys.exit(main())
