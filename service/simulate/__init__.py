@@ -7,32 +7,33 @@ order of arrival 1..n, so growth can be replayed. Same seed, same array, bit for
 
 from __future__ import annotations
 
+import importlib
 from collections.abc import Callable
 
 import numpy as np
 
-from service.simulate.ballistic import ballistic
-from service.simulate.dbm import dbm
-from service.simulate.dla import dla
-from service.simulate.eden import eden
+#: Regime name -> module holding a function of the same name. The library builder and the
+#: matcher iterate over this; a new regime is one module plus one line here. Modules are
+#: imported on first use so that loading one simulator does not compile the others' kernels.
+REGIMES: tuple[str, ...] = ("dla", "eden", "ballistic", "dbm")
 
-#: Regime name -> simulator. The library builder and the matcher iterate over this; a new
-#: regime is one module plus one line here.
-SIMULATORS: dict[str, Callable[..., np.ndarray]] = {
-    "dla": dla,
-    "eden": eden,
-    "ballistic": ballistic,
-    "dbm": dbm,
-}
+
+def simulator(regime: str) -> Callable[..., np.ndarray]:
+    """The growth function of ``regime``."""
+    if regime not in REGIMES:
+        raise ValueError(f"unknown regime {regime!r}; known: {list(REGIMES)}")
+    return getattr(importlib.import_module(f"service.simulate.{regime}"), regime)
 
 
 def grow(regime: str, n_particles: int, *, seed: int, **parameters) -> np.ndarray:
     """Grow one cluster of ``regime`` with its ``parameters`` (e.g. ``eta=1.0`` for DBM)."""
-    try:
-        simulator = SIMULATORS[regime]
-    except KeyError:
-        raise ValueError(f"unknown regime {regime!r}; known: {sorted(SIMULATORS)}") from None
-    return simulator(n_particles, seed=seed, **parameters)
+    return simulator(regime)(n_particles, seed=seed, **parameters)
 
 
-__all__ = ["SIMULATORS", "ballistic", "dbm", "dla", "eden", "grow"]
+def __getattr__(name: str):
+    if name in REGIMES:
+        return simulator(name)
+    raise AttributeError(f"module 'service.simulate' has no attribute {name!r}")
+
+
+__all__ = ["REGIMES", "grow", "simulator", *REGIMES]
