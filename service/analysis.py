@@ -1,0 +1,133 @@
+"""The one pipeline: image bytes -> segmentation -> measurements -> ranking against references.
+
+The CLI (``ramiform analyze``), the REST API and the web pages all call :func:`analyze`, so a
+number in a report is the same number the command line prints for the same file.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from service import __version__
+from service.features import Features, measure
+from service.imaging import LoadedImage, Segmentation, load_image, segment
+
+
+@dataclass(frozen=True)
+class Analysis:
+    """Everything known about one specimen image after analysis.
+
+    ``to_dict()`` is the analysis JSON (the contract of ``ramiform analyze --json`` and of
+    ``POST /api/specimens``); the arrays (mask, overlay, skeleton) stay on the object for
+    rendering overlays and are not serialised.
+    """
+
+    source: dict[str, Any]
+    image: LoadedImage
+    segmentation: Segmentation
+    features: Features
+    calibration: dict[str, Any]
+    matching: dict[str, Any] | None = None
+    warnings: tuple[str, ...] = field(default_factory=tuple)
+
+    def to_dict(self) -> dict[str, Any]:
+        out: dict[str, Any] = {
+            "ramiform_version": __version__,
+            "source": dict(self.source),
+            "image": {
+                "width_px": int(self.image.gray.shape[1]),
+                "height_px": int(self.image.gray.shape[0]),
+                "format": self.image.format,
+                "bit_depth": int(self.image.bit_depth),
+                "n_pages": int(self.image.n_pages),
+                "page": int(self.image.page),
+            },
+            "calibration": dict(self.calibration),
+            "segmentation": dict(self.segmentation.settings),
+            "features": self.features.to_dict(),
+        }
+        if self.matching is not None:
+            out.update(self.matching)
+        out["warnings"] = list(self.warnings)
+        return out
+
+
+def _calibration(image: LoadedImage, pixel_size_mm: float | None) -> dict[str, Any]:
+    if pixel_size_mm is not None:
+        if not pixel_size_mm > 0:
+            raise ValueError(f"pixel size must be a positive number of millimetres, got {pixel_size_mm!r}")
+        return {"pixel_size_mm": float(pixel_size_mm), "source": "user", "calibrated": True}
+    if image.pixel_size_mm is not None:
+        return {"pixel_size_mm": float(image.pixel_size_mm), "source": "tiff-resolution-tags", "calibrated": True}
+    return {"pixel_size_mm": None, "source": "none", "calibrated": False}
+
+
+def analyze(
+    source: bytes | str | Path,
+    *,
+    filename: str | None = None,
+    pixel_size_mm: float | None = None,
+    mode: str = "auto",
+    polarity: str = "auto",
+    threshold: float | None = None,
+    roi: tuple[float, float, float] | None = None,
+    page: int | None = None,
+    reference_set=None,
+    match: bool = True,
+) -> Analysis:
+    """Segment, measure and (optionally) rank one specimen image.
+
+    Parameters
+    ----------
+    source : bytes or path
+        The encoded image (PNG, JPEG, TIFF, BMP); the format is decided from the content.
+    filename : str, optional
+        The client's name for the file; kept as data only.
+    pixel_size_mm : float, optional
+        Calibration given by the user; overrides TIFF resolution tags.
+    mode, polarity, threshold, roi :
+        Segmentation overrides, see :func:`service.imaging.segment`.
+    page : int, optional
+        TIFF page to read (default: the first).
+    reference_set : ReferenceSet, optional
+        References to rank against (default: the bundled set).
+    match : bool
+        Rank against the references (the library build measures clusters without ranking).
+
+    Returns
+    -------
+    Analysis
+    """
+    data = Path(source).read_bytes() if isinstance(source, (str, Path)) else bytes(source)
+    if filename is None and isinstance(source, (str, Path)):
+        filename = Path(source).name
+    image = load_image(data, page=page)
+    calibration = _calibration(image, pixel_size_mm)
+    seg = segment(image, mode=mode, polarity=polarity, threshold=threshold, roi=roi)
+    features = measure(seg.mask, pixel_size_mm=calibration["pixel_size_mm"], center_rc=seg.center_rc)
+    warnings = list(seg.warnings) + [w for w in features.warnings if w not in seg.warnings]
+    if not calibration["calibrated"]:
+        warnings.append("not calibrated: lengths are in pixels only (give a pixel size in mm to get mm)")
+    matching = None
+    if match:
+        from service.match import match_features
+
+        matching = match_features(features, reference_set=reference_set)
+        warnings.extend(matching.pop("warnings", []))
+    source_info = {
+        "filename": filename,
+        "sha256": hashlib.sha256(data).hexdigest(),
+        "size_bytes": len(data),
+    }
+    return Analysis(
+        source=source_info,
+        image=image,
+        segmentation=seg,
+        features=features,
+        calibration=calibration,
+        matching=matching,
+        warnings=tuple(warnings),
+    )
