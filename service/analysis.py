@@ -7,6 +7,7 @@ number in a report is the same number the command line prints for the same file.
 from __future__ import annotations
 
 import hashlib
+import math
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -52,7 +53,18 @@ class Analysis:
         if self.matching is not None:
             out.update(self.matching)
         out["warnings"] = list(self.warnings)
-        return out
+        return json_safe(out)
+
+
+def json_safe(value: Any) -> Any:
+    """Plain JSON values: non-finite floats become None (JSON has no NaN), tuples become lists."""
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, dict):
+        return {str(k): json_safe(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [json_safe(v) for v in value]
+    return value
 
 
 def _calibration(image: LoadedImage, pixel_size_mm: float | None) -> dict[str, Any]:
