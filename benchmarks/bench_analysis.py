@@ -1,0 +1,89 @@
+"""Whole-image analysis against the bare primitives it is built from, side by side in one run.
+
+Goal (issue 3): analysing a 2048 x 2048 photo costs at most 2.5x the primitives alone (Otsu
+threshold, connected-component labelling, skeletonize, Euclidean distance transform) on the
+same image; peak memory for a 4096 x 4096 photo stays under 1.5 GB.
+
+The photo is a rendering of a grown DLA cluster made by the project (demo data).
+Run: ``.venv/bin/python benchmarks/bench_analysis.py``.
+"""
+
+from __future__ import annotations
+
+import io
+import subprocess
+import sys
+import time
+
+import numpy as np
+
+
+def _photo_bytes(size_px: int, seed: int = 7) -> bytes:
+    from PIL import Image
+
+    from service.imaging import render_photo
+    from service.simulate import dla
+
+    cluster = dla(20_000, seed=seed) > 0
+    rendered = render_photo(cluster, seed=seed, size_px=size_px)
+    image = rendered[0] if isinstance(rendered, tuple) else getattr(rendered, "image", rendered)
+    buffer = io.BytesIO()
+    Image.fromarray(image).save(buffer, format="PNG")
+    return buffer.getvalue()
+
+
+def _primitives(gray: np.ndarray) -> None:
+    from scipy import ndimage
+    from skimage.filters import threshold_otsu
+    from skimage.morphology import skeletonize
+
+    mask = gray < threshold_otsu(gray)
+    ndimage.label(mask)
+    skeletonize(mask)
+    ndimage.distance_transform_edt(mask)
+
+
+def _best_of(fn, repeats: int = 3) -> float:
+    times = []
+    for _ in range(repeats):
+        start = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - start)
+    return min(times)
+
+
+def speed(size_px: int = 2048) -> None:
+    from service.analysis import analyze
+    from service.imaging import load_image
+
+    data = _photo_bytes(size_px)
+    gray = load_image(data).gray
+    analyze(data, match=False)  # compile numba kernels before timing
+    t_primitives = _best_of(lambda: _primitives(gray))
+    t_analysis = _best_of(lambda: analyze(data, match=False))
+    t_matched = _best_of(lambda: analyze(data), repeats=1)
+    print(f"{size_px}x{size_px} photo: primitives {t_primitives:.2f} s, analysis without ranking "
+          f"{t_analysis:.2f} s, ratio {t_analysis / t_primitives:.2f} (goal <= 2.5); "
+          f"with ranking {t_matched:.2f} s")
+
+
+def memory(size_px: int = 4096) -> None:
+    """Peak resident memory of one analysis in a fresh process (so earlier work does not count)."""
+    code = (
+        "import resource, sys; sys.path.insert(0, '.');"
+        "from benchmarks.bench_analysis import _photo_bytes;"
+        f"data = _photo_bytes({size_px});"
+        "base = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss;"
+        "from service.analysis import analyze; analyze(data, match=False);"
+        "peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss;"
+        "print(base, peak)"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    base_kb, peak_kb = map(int, out.stdout.split()[-2:])
+    print(f"{size_px}x{size_px} photo: peak resident memory {peak_kb / 1024:.0f} MB "
+          f"(before analysis {base_kb / 1024:.0f} MB; goal < 1536 MB)")
+
+
+if __name__ == "__main__":
+    speed()
+    memory()
