@@ -1,0 +1,130 @@
+"""Diffusion-limited aggregation: structure, determinism, and the published fractal dimension."""
+
+from __future__ import annotations
+
+import importlib.util
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from service.simulate.dla import dla
+from tests.simulate.growth_helpers import (
+    arrival_sites,
+    gyration_dimension,
+    grown,
+    is_connected_in_order,
+    mass_radius_dimension,
+)
+
+
+SEEDS = (0, 1, 2, 3)
+N_DIMENSION = 5000
+
+
+def _mean_dimensions(neighborhood: str, sticking: float = 1.0) -> tuple[float, float]:
+    clusters = [grown("dla", N_DIMENSION, s, neighborhood=neighborhood, sticking=sticking) for s in SEEDS]
+    return (
+        float(np.mean([gyration_dimension(c) for c in clusters])),
+        float(np.mean([mass_radius_dimension(c) for c in clusters])),
+    )
+
+
+@pytest.mark.parametrize("neighborhood", ["von_neumann", "moore"])
+def test_fractal_dimension_matches_dla_class(neighborhood):
+    d_gyration, d_mass = _mean_dimensions(neighborhood)
+    # D ~ 1.70 for 2-D DLA (Witten & Sander, Phys. Rev. Lett. 47, 1400, 1981); 1.715 off-lattice
+    # for large clusters (Tolman & Meakin, Phys. Rev. A 40, 428, 1989); small on-lattice
+    # clusters come out a little lower (from memory). Radius of gyration of the first N
+    # arrivals, N in [n/50, n], mean of 4 seeds of 5,000 sites:
+    assert 1.60 <= d_gyration <= 1.80
+    # Same sources; mass within r of the seed, r in [3, R/2], mean of 4 seeds:
+    assert 1.55 <= d_mass <= 1.80
+
+
+def test_low_sticking_grows_denser_clusters():
+    d_gyration_1, d_mass_1 = _mean_dimensions("von_neumann", 1.0)
+    d_gyration_01, d_mass_01 = _mean_dimensions("von_neumann", 0.1)
+    # Lowering the sticking probability lets walkers probe deeper into fjords, so the
+    # aggregate is denser at a given size and its effective D higher (common practice, e.g.
+    # Meakin's reduced-sticking DLA; from memory).
+    assert d_gyration_01 > d_gyration_1 + 0.02
+    assert d_mass_01 > d_mass_1 + 0.05
+
+
+def _load_plain_dla():
+    path = Path(__file__).resolve().parents[2] / "benchmarks" / "bench_dla.py"
+    spec = importlib.util.spec_from_file_location("bench_dla", path)
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module.plain_dla
+
+
+def _radius_of_gyration(lattice: np.ndarray) -> float:
+    sites = arrival_sites(lattice).astype(float)
+    return float(np.sqrt(((sites - sites.mean(axis=0)) ** 2).sum(axis=1).mean()))
+
+
+def test_safe_jumps_reproduce_the_plain_walk():
+    # The long jumps replace unit-step walks with their exit law, so cluster statistics must
+    # match the plain Witten-Sander algorithm (launch just outside, unit steps to contact).
+    plain_dla = _load_plain_dla()
+    seeds = range(100, 116)
+    rg_plain = np.array([_radius_of_gyration(plain_dla(1000, seed=s)) for s in seeds])
+    rg_fast = np.array([_radius_of_gyration(grown("dla", 1000, s)) for s in seeds])
+    standard_error = np.hypot(rg_plain.std(ddof=1), rg_fast.std(ddof=1)) / np.sqrt(len(seeds))
+    assert abs(rg_plain.mean() - rg_fast.mean()) < 4 * standard_error
+
+
+@pytest.mark.parametrize(
+    ("neighborhood", "sticking"), [("von_neumann", 1.0), ("moore", 1.0), ("von_neumann", 0.3), ("moore", 0.1)]
+)
+def test_structure_of_the_returned_lattice(neighborhood, sticking):
+    n = 1500
+    lattice = grown("dla", n, 7, neighborhood=neighborhood, sticking=sticking)
+    assert lattice.dtype == np.int32 and lattice.ndim == 2
+    # Arrival order is a permutation of 1..n (the contract in DEVELOPERS.md).
+    assert np.count_nonzero(lattice) == n
+    assert np.array_equal(np.sort(lattice[lattice > 0]), np.arange(1, n + 1))
+    assert lattice[lattice.shape[0] // 2, lattice.shape[1] // 2] == 1
+    # Aggregation by contact: each site touches an earlier one in the contact neighbourhood.
+    assert is_connected_in_order(lattice, moore=neighborhood == "moore")
+    # Moore contact really uses diagonals: some site touches earlier sites only diagonally.
+    if neighborhood == "moore":
+        assert not is_connected_in_order(lattice, moore=False)
+    # Cropped two empty sites beyond the cluster on every side.
+    assert not lattice[:2].any() and not lattice[-2:].any()
+    assert lattice[2].any() or lattice[-3].any()
+
+
+def test_same_seed_same_cluster_other_seed_other_cluster():
+    first = dla(3000, seed=11, neighborhood="moore", sticking=0.5)
+    again = dla(3000, seed=11, neighborhood="moore", sticking=0.5)
+    other = dla(3000, seed=12, neighborhood="moore", sticking=0.5)
+    assert np.array_equal(first, again)
+    assert first.shape != other.shape or not np.array_equal(first, other)
+
+
+def test_single_site_is_the_seed():
+    assert np.array_equal(dla(1, seed=0), np.pad(np.ones((1, 1), np.int32), 2))
+
+
+@pytest.mark.parametrize(
+    "kwargs",
+    [
+        {"n_particles": 0},
+        {"n_particles": -5},
+        {"n_particles": 10.5},
+        {"n_particles": True},
+        {"seed": -1},
+        {"seed": 1.5},
+        {"neighborhood": "hexagonal"},
+        {"sticking": 0.0},
+        {"sticking": 1.5},
+        {"sticking": float("nan")},
+    ],
+)
+def test_bad_input_raises_value_error(kwargs):
+    arguments = {"n_particles": 10, "seed": 0} | kwargs
+    with pytest.raises(ValueError):
+        dla(arguments.pop("n_particles"), **arguments)
