@@ -1,0 +1,16 @@
+"""Persistence: specimen records in SQL (SQLite or PostgreSQL), files in the data folder."""
+
+from service.store.export import specimen_row, specimens_csv
+from service.store.files import write_durably, write_folder_durably
+from service.store.store import SpecimenRecord, Store, make_engine, new_specimen_id
+
+__all__ = [
+    "SpecimenRecord",
+    "Store",
+    "make_engine",
+    "new_specimen_id",
+    "specimen_row",
+    "specimens_csv",
+    "write_durably",
+    "write_folder_durably",
+]

@@ -1,0 +1,70 @@
+"""CSV export of stored specimens: one row per specimen, one column per scalar measurement."""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+from collections.abc import Iterable, Iterator
+from typing import Any
+
+from service.store.store import SpecimenRecord
+
+_FIXED = ("id", "label", "filename", "created_at", "sha256")
+
+
+def _flatten(prefix: str, value: Any) -> Iterator[tuple[str, Any]]:
+    if isinstance(value, dict):
+        for key, inner in value.items():
+            yield from _flatten(f"{prefix}.{key}" if prefix else str(key), inner)
+    elif isinstance(value, (list, tuple)):
+        # A confidence interval becomes two columns; other arrays (box counts, curves) are
+        # not spreadsheet material and stay in the JSON.
+        if prefix.endswith("ci95") and len(value) == 2:
+            yield f"{prefix}_low", value[0]
+            yield f"{prefix}_high", value[1]
+    elif value is None or isinstance(value, (str, int, float, bool)):
+        yield prefix, value
+
+
+def specimen_row(record: SpecimenRecord) -> dict[str, Any]:
+    """The flat CSV row of one specimen: identity, calibration, features, best match."""
+    analysis = record.analysis
+    row: dict[str, Any] = {
+        "id": record.id,
+        "label": record.label,
+        "filename": record.filename,
+        "created_at": record.created_at.isoformat(),
+        "sha256": record.sha256,
+    }
+    for section in ("image", "calibration", "features"):
+        row.update(_flatten(section, analysis.get(section, {})))
+    matches = analysis.get("matches") or []
+    if matches:
+        best = matches[0]
+        row["best_match.regime"] = best.get("regime")
+        row["best_match.parameters"] = json.dumps(best.get("parameters", {}), sort_keys=True)
+        row["best_match.probability"] = best.get("probability")
+    if "in_library" in analysis:
+        row["in_library"] = analysis["in_library"]
+    row["warnings"] = " | ".join(analysis.get("warnings", []))
+    return row
+
+
+def _cell(value: Any) -> Any:
+    # A text cell starting with = + - @ would run as a formula in a spreadsheet.
+    if isinstance(value, str) and value[:1] in ("=", "+", "-", "@", "\t", "\r"):
+        return "'" + value
+    return value
+
+
+def specimens_csv(records: Iterable[SpecimenRecord]) -> str:
+    """CSV text of the specimens; columns are the union of all rows' keys, in first-seen order."""
+    rows = [specimen_row(record) for record in records]
+    columns = list(dict.fromkeys([*_FIXED, *(key for row in rows for key in row)]))
+    out = io.StringIO()
+    writer = csv.DictWriter(out, fieldnames=columns, lineterminator="\r\n")
+    writer.writeheader()
+    for row in rows:
+        writer.writerow({key: _cell(value) for key, value in row.items()})
+    return out.getvalue()

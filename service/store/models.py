@@ -1,0 +1,35 @@
+"""Database tables of the specimen store (SQLAlchemy, the same schema on SQLite and PostgreSQL)."""
+
+from __future__ import annotations
+
+from datetime import datetime
+from typing import Any
+
+from sqlalchemy import JSON, DateTime, Index, String
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
+
+
+class Base(DeclarativeBase):
+    pass
+
+
+class SpecimenRow(Base):
+    """One analysed specimen: its analysis JSON and the names of its stored files.
+
+    The files themselves live in the data folder under ``specimens/<id>/``; a row is only
+    committed after they are durably written, so every row's files exist.
+    """
+
+    __tablename__ = "specimens"
+
+    id: Mapped[str] = mapped_column(String(64), primary_key=True)
+    #: The lab that uploaded it when access control is on; ``None`` on an open service.
+    owner: Mapped[str | None] = mapped_column(String(128), index=True)
+    label: Mapped[str | None] = mapped_column(String(256), index=True)
+    filename: Mapped[str | None] = mapped_column(String(512))
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+    sha256: Mapped[str] = mapped_column(String(64))
+    analysis: Mapped[dict[str, Any]] = mapped_column(JSON)
+    files: Mapped[list[str]] = mapped_column(JSON)
+
+    __table_args__ = (Index("ix_specimens_owner_created", "owner", "created_at"),)

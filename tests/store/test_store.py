@@ -1,0 +1,124 @@
+"""Round trip through the store: create, read, list, delete, export; and durable file writes."""
+
+from __future__ import annotations
+
+import csv
+import io
+import os
+from pathlib import Path
+
+import pytest
+
+from service.store import new_specimen_id, specimens_csv, write_durably, write_folder_durably
+
+
+def _analysis(i: int) -> dict:
+    # The shape of the analysis JSON the store relies on (DEVELOPERS.md); values are data only.
+    return {
+        "source": {"filename": f"dish-{i}.png", "sha256": f"{i:064x}", "size_bytes": 100 + i},
+        "image": {"width_px": 300, "height_px": 200, "format": "PNG"},
+        "calibration": {"pixel_size_mm": 0.05 * (i + 1), "source": "user", "calibrated": True},
+        "features": {
+            "box_dimension": {"value": 1.6 + i / 100, "ci95": [1.5, 1.7], "sizes_px": [2, 4, 8]},
+            "skeleton": {"tips": 10 + i, "junctions": 4 + i, "branches": 20 + i},
+        },
+        "matches": [{"regime": "dla", "parameters": {"sticking": 1.0}, "probability": 0.8, "distance": 1.2}],
+        "in_library": True,
+        "warnings": ["=formula-looking warning"] if i == 0 else [],
+    }
+
+
+def test_round_trip(store):
+    files = {"overlay.png": os.urandom(2000), "mask.png": b"\x89PNG mask"}
+    created = [
+        store.add(_analysis(i), files, label="cell A" if i % 2 == 0 else "cell B", filename=f"dish-{i}.png")
+        for i in range(5)
+    ]
+
+    # read: exactly what was written, files on disk byte for byte
+    got = store.get(created[2].id)
+    assert got == created[2]
+    assert got.analysis == _analysis(2)
+    assert store.file_path(got, "overlay.png").read_bytes() == files["overlay.png"]
+    assert store.file_path(got, "not-stored.png") is None
+    assert store.get("no-such-id") is None
+
+    # list: newest first, paginated, filtered by label
+    page, total = store.list(limit=2, offset=1)
+    assert total == 5
+    assert [r.id for r in page] == [created[3].id, created[2].id]
+    cell_a, total_a = store.list(label="cell A")
+    assert total_a == 3 and [r.id for r in cell_a] == [created[4].id, created[2].id, created[0].id]
+    assert store.get_many([created[1].id, "missing", created[0].id]) == [created[1], created[0]]
+
+    # export: one CSV row per specimen, parseable, numbers and the CI as columns
+    rows = list(csv.DictReader(io.StringIO(specimens_csv(store.list(limit=None)[0]))))
+    assert [r["id"] for r in rows] == [r.id for r in reversed(created)]
+    first = rows[-1]
+    assert float(first["features.box_dimension.value"]) == pytest.approx(1.6)
+    assert float(first["features.box_dimension.ci95_low"]) == 1.5
+    assert first["features.skeleton.tips"] == "10"
+    assert first["best_match.regime"] == "dla"
+    assert "features.box_dimension.sizes_px" not in first
+    # a text cell must not be read as a spreadsheet formula (OWASP "CSV injection")
+    assert first["warnings"] == "'=formula-looking warning"
+
+    # delete: record and files gone, others untouched
+    folder = store.folder(created[2].id)
+    assert store.delete(created[2].id) is True
+    assert store.get(created[2].id) is None and not folder.exists()
+    assert store.delete(created[2].id) is False
+    assert store.list()[1] == 4
+
+
+def test_owner_scoping(store):
+    mine = store.add(_analysis(1), {"a.png": b"x"}, owner="lab-a")
+    store.add(_analysis(2), {"a.png": b"y"}, owner="lab-b")
+    assert store.get(mine.id, owner="lab-b") is None
+    assert store.get(mine.id, owner="lab-a") == mine
+    assert [r.id for r in store.list(owner="lab-a")[0]] == [mine.id]
+    assert store.delete(mine.id, owner="lab-b") is False
+    assert store.get(mine.id) is not None
+
+
+def test_schema_creation_is_idempotent(store):
+    store.add(_analysis(0), {"a.png": b"x"})
+    store.create_schema()  # a second instance starting on the same database
+    assert store.list()[1] == 1
+
+
+def test_failed_commit_leaves_no_files(store):
+    first = store.add(_analysis(0), {"a.png": b"x"})
+    with pytest.raises(FileExistsError):
+        store.add(_analysis(1), {"b.png": b"y"}, specimen_id=first.id)  # an id already in use
+    assert [p.name for p in store.folder(first.id).iterdir()] == ["a.png"]
+    broken = {**_analysis(1), "not_json": object()}  # the commit fails after the files were written
+    with pytest.raises(Exception):
+        store.add(broken, {"b.png": b"y"}, specimen_id="failing-commit")
+    assert not store.folder("failing-commit").exists()
+    assert store.list()[1] == 1
+
+
+def test_specimen_ids_carry_128_bits():
+    ids = {new_specimen_id() for _ in range(1000)}
+    assert len(ids) == 1000
+    for specimen_id in ids:
+        # base64url: 6 bits per character (RFC 4648, section 5)
+        assert len(specimen_id) * 6 >= 128
+        assert set(specimen_id) <= set("ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxyz0123456789-_")
+
+
+def test_durable_writes_leave_whole_files_only(tmp_path: Path):
+    target = tmp_path / "deep" / "file.bin"
+    payload = os.urandom(1 << 20)
+    write_durably(target, payload)
+    write_durably(target, payload[::-1])  # replaced atomically
+    assert target.read_bytes() == payload[::-1]
+    write_folder_durably(tmp_path / "specimen", {"one.png": b"1", "two.svg": b"<svg/>"})
+    assert sorted(p.name for p in (tmp_path / "specimen").iterdir()) == ["one.png", "two.svg"]
+    assert not list(tmp_path.rglob("*.tmp"))
+    with pytest.raises(FileExistsError):
+        write_folder_durably(tmp_path / "specimen", {"three.png": b"3"})
+    for bad in ("../escape.png", ".hidden", "a/b.png", ""):
+        with pytest.raises(ValueError, match="plain names"):
+            write_folder_durably(tmp_path / "other", {bad: b"x"})
