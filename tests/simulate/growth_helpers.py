@@ -71,3 +71,12 @@ def is_connected_in_order(lattice: np.ndarray, moore: bool) -> bool:
         earliest = np.minimum(earliest, np.roll(order, (dr, dc), axis=(0, 1)))
     occupied = (order != big) & (order > 1)
     return bool(np.all(earliest[occupied] < order[occupied]))
+
+
+def disc_fill_fraction(lattice: np.ndarray, radius_fraction: float) -> float:
+    """Occupied fraction of the lattice sites within ``radius_fraction`` x cluster radius of the seed."""
+    sites = arrival_sites(lattice)
+    radius = radius_fraction * np.hypot(sites[:, 0], sites[:, 1]).max()
+    rows, cols = np.indices(lattice.shape)
+    inside = np.hypot(rows - lattice.shape[0] // 2, cols - lattice.shape[1] // 2) <= radius
+    return float(np.mean(lattice[inside] > 0))

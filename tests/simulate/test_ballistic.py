@@ -1,0 +1,63 @@
+"""Ballistic particle-cluster aggregation: structure, determinism, compact but porous."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from service.simulate.ballistic import ballistic
+from tests.simulate.growth_helpers import (
+    disc_fill_fraction,
+    grown,
+    gyration_dimension,
+    is_connected_in_order,
+    mass_radius_dimension,
+)
+
+SEEDS = (0, 1, 2, 3)
+
+
+def test_cluster_is_nearly_compact_but_porous():
+    clusters = [grown("ballistic", 10000, s) for s in SEEDS]
+    # Ballistic particle-cluster aggregation is compact asymptotically, D -> 2 in 2-D, with a
+    # porous structure at moderate sizes (from memory; see CHECK_VALUES.md). Mean of 4 seeds
+    # of 10,000 sites, gyration of the first N arrivals (N in [n/50, n]) and mass within r
+    # of the seed (r in [3, R/2]):
+    d_gyration = np.mean([gyration_dimension(c) for c in clusters])
+    d_mass = np.mean([mass_radius_dimension(c) for c in clusters])
+    assert 1.80 <= d_gyration <= 2.0
+    assert 1.80 <= d_mass <= 2.0
+    # Clearly denser than DLA of the same size (D about 1.7, Witten & Sander 1981):
+    dla_clusters = [grown("dla", 10000, s) for s in SEEDS]
+    assert d_mass > np.mean([mass_radius_dimension(c) for c in dla_clusters]) + 0.1
+    # Porous: the disc of half the radius about the seed is far from filled (same source).
+    fill = np.mean([disc_fill_fraction(c, 0.5) for c in clusters])
+    assert 0.2 < fill < 0.8
+
+
+def test_structure_of_the_returned_lattice():
+    n = 4000
+    lattice = grown("ballistic", n, 5)
+    assert lattice.dtype == np.int32 and lattice.ndim == 2
+    # Arrival order is a permutation of 1..n (the contract in DEVELOPERS.md).
+    assert np.array_equal(np.sort(lattice[lattice > 0]), np.arange(1, n + 1))
+    assert np.count_nonzero(lattice) == n
+    assert lattice[lattice.shape[0] // 2, lattice.shape[1] // 2] == 1
+    # Particles stop at first von Neumann contact, so each touches an earlier site.
+    assert is_connected_in_order(lattice, moore=False)
+
+
+def test_same_seed_same_cluster_other_seed_other_cluster():
+    assert np.array_equal(ballistic(2000, seed=3), ballistic(2000, seed=3))
+    first, other = ballistic(2000, seed=3), ballistic(2000, seed=4)
+    assert first.shape != other.shape or not np.array_equal(first, other)
+
+
+def test_single_site_is_the_seed():
+    assert np.array_equal(ballistic(1, seed=0), np.pad(np.ones((1, 1), np.int32), 2))
+
+
+@pytest.mark.parametrize("n_particles, seed", [(0, 0), (-1, 0), (2.5, 0), (10, -3), (10, None)])
+def test_bad_input_raises_value_error(n_particles, seed):
+    with pytest.raises(ValueError):
+        ballistic(n_particles, seed=seed)
