@@ -19,11 +19,11 @@ from tests.simulate.growth_helpers import (
 
 
 SEEDS = (0, 1, 2, 3)
-N_DIMENSION = 5000
+N_DIMENSION = 20000
 
 
-def _mean_dimensions(neighborhood: str, sticking: float = 1.0) -> tuple[float, float]:
-    clusters = [grown("dla", N_DIMENSION, s, neighborhood=neighborhood, sticking=sticking) for s in SEEDS]
+def _mean_dimensions(neighborhood: str, sticking: float = 1.0, n: int = N_DIMENSION) -> tuple[float, float]:
+    clusters = [grown("dla", n, s, neighborhood=neighborhood, sticking=sticking) for s in SEEDS]
     return (
         float(np.mean([gyration_dimension(c) for c in clusters])),
         float(np.mean([mass_radius_dimension(c) for c in clusters])),
@@ -36,17 +36,18 @@ def test_fractal_dimension_matches_dla_class(neighborhood):
     # D ~ 1.70 for 2-D DLA (Witten & Sander, Phys. Rev. Lett. 47, 1400, 1981); 1.715 off-lattice
     # for large clusters (Tolman & Meakin, Phys. Rev. A 40, 428, 1989); small on-lattice
     # clusters come out a little lower (from memory). Radius of gyration of the first N
-    # arrivals, N in [n/50, n], mean of 4 seeds of 5,000 sites:
-    assert 1.60 <= d_gyration <= 1.80
+    # arrivals, N in [n/50, n], mean of 4 seeds of 20,000 sites:
+    assert 1.62 <= d_gyration <= 1.80
     # Same sources; mass within r of the seed, r in [3, R/2], mean of 4 seeds:
-    assert 1.55 <= d_mass <= 1.80
+    assert 1.58 <= d_mass <= 1.78
 
 
 def test_low_sticking_grows_denser_clusters():
-    d_gyration_1, d_mass_1 = _mean_dimensions("von_neumann", 1.0)
-    d_gyration_01, d_mass_01 = _mean_dimensions("von_neumann", 0.1)
+    d_gyration_1, d_mass_1 = _mean_dimensions("von_neumann", 1.0, n=5000)
+    d_gyration_01, d_mass_01 = _mean_dimensions("von_neumann", 0.1, n=5000)
     # Lowering the sticking probability lets walkers probe deeper into fjords, so the
-    # aggregate is denser at a given size and its effective D higher (common practice, e.g.
+    # aggregate is denser at a given size and its effective D higher; asymptotically it
+    # returns to the DLA class, so the check is made at 5,000 sites (common practice, e.g.
     # Meakin's reduced-sticking DLA; from memory).
     assert d_gyration_01 > d_gyration_1 + 0.02
     assert d_mass_01 > d_mass_1 + 0.05

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from scipy import ndimage
 
 from service.simulate.eden import eden
 from tests.simulate.growth_helpers import (
@@ -25,6 +26,34 @@ def test_cluster_is_compact():
     # Compact means hole-free inside: perimeter sites deep in the cluster are filled long
     # before the front moves on (Eden 1961). Disc of half the cluster radius about the seed:
     assert min(disc_fill_fraction(c, 0.5) for c in clusters) >= 0.995
+
+
+def _growth_exponent(lattice: np.ndarray, counts: np.ndarray) -> float:
+    """Slope of log W against log R for the outer boundary of the first N sites, N in counts.
+
+    W is the standard deviation and R the mean of the boundary sites' distances to the seed.
+    For radial growth R grows linearly in time, so W ~ R^beta.
+    """
+    centre = np.array(lattice.shape) // 2
+    mean_radius, width = [], []
+    for n in counts:
+        body = ndimage.binary_fill_holes((lattice > 0) & (lattice <= n))
+        rows, cols = np.nonzero(body & ~ndimage.binary_erosion(body))
+        radius = np.hypot(rows - centre[0], cols - centre[1])
+        mean_radius.append(radius.mean())
+        width.append(radius.std())
+    return float(np.polyfit(np.log(mean_radius), np.log(width), 1)[0])
+
+
+def test_interface_roughens_with_the_kpz_growth_exponent():
+    n = 30000
+    counts = np.geomspace(n / 30, n, 10).astype(int)
+    betas = [_growth_exponent(grown("eden", n, s), counts) for s in range(8)]
+    # The Eden front is in the KPZ class: width ~ t^beta with beta = 1/3 in 2-D (Kardar,
+    # Parisi & Zhang, Phys. Rev. Lett. 56, 889, 1986; from memory). Mean of 8 seeds over a
+    # 30-fold range of sizes; single clusters scatter by about 0.1, so the band is wide, but
+    # it excludes a smooth front (0) and uncorrelated deposition (1/2).
+    assert 0.22 <= np.mean(betas) <= 0.45
 
 
 def test_structure_of_the_returned_lattice():
