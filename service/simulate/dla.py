@@ -210,8 +210,8 @@ def dla(
     Elsewhere it jumps to a uniformly random point of the largest circle that keeps every
     lattice point within it away from contact; the radius is the larger of the distance
     beyond the cluster radius and a lower bound read from a map of Chebyshev distances
-    between 4 x 4 blocks (tracked up to 12 blocks). Unit steps are taken only within a few
-    sites of the cluster. The lattice doubles and re-centres as the cluster grows.
+    between 4 x 4 blocks (tracked up to 12 blocks). Unit steps are taken only within about
+    two blocks of the cluster. The lattice doubles and re-centres as the cluster grows.
 
     References
     ----------
