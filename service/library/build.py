@@ -1,0 +1,328 @@
+"""Grow reference sets on Dask: presets, deterministic seeds, one task per cluster.
+
+A preset is data: a tuple of :class:`~service.library.storage.EnsembleSpec` (regime,
+simulator parameters, cluster size, number of realisations). :func:`build_library` grows
+every realisation of every ensemble as one Dask task, on a fresh ``LocalCluster`` or an
+existing scheduler, and the client writes the files of :mod:`service.library.storage` in a
+fixed order once everything is in, so the result does not depend on which worker finished
+first.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import platform
+import shutil
+import sys
+import time
+from collections.abc import Callable, Iterator, Sequence
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from service import __version__
+from service.errors import LibraryError, RamiformError
+from service.library.storage import (
+    CACHE_DIR,
+    CLUSTER_DIR,
+    FORMAT,
+    MANIFEST,
+    SCHEMA_VERSION,
+    THUMBNAIL_DIR,
+    THUMBNAIL_PX,
+    Ensemble,
+    EnsembleSpec,
+    encode_ensemble,
+    lattice_from_sites,
+    sha256_file,
+    sites_from_lattice,
+    thumbnail_png,
+    write_bytes,
+    write_json,
+    write_npz,
+)
+
+#: Simulator parameters of every ensemble, per regime. A new regime or parameter value is
+#: one more entry here (and a rebuild); the matcher reads the grid back from the manifest.
+PARAMETER_GRID: dict[str, tuple[dict[str, Any], ...]] = {
+    "dla": tuple(
+        {"neighborhood": neighborhood, "sticking": sticking}
+        for neighborhood in ("von_neumann", "moore")
+        for sticking in (1.0, 0.3, 0.1)
+    ),
+    "eden": ({},),
+    "ballistic": ({},),
+    "dbm": tuple({"eta": eta} for eta in (0.5, 1.0, 1.5, 2.0, 3.0, 4.0)),
+}
+
+
+def _preset(sizes: dict[str, tuple[int, ...]], n_realisations: int) -> tuple[EnsembleSpec, ...]:
+    return tuple(
+        EnsembleSpec(regime, parameters, n, n_realisations)
+        for regime, grid in PARAMETER_GRID.items()
+        for parameters in grid
+        for n in sizes[regime]
+    )
+
+
+#: Named presets. ``default`` is the bundled set; ``tiny`` grows every regime and parameter
+#: at a very small size, for tests of the build itself.
+PRESETS: dict[str, tuple[EnsembleSpec, ...]] = {
+    "default": _preset(
+        {"dla": (1000, 3000, 10000), "eden": (1000, 3000, 10000),
+         "ballistic": (1000, 3000, 10000), "dbm": (1000, 3000)},
+        n_realisations=12,
+    ),
+    "tiny": _preset({regime: (200,) for regime in PARAMETER_GRID}, n_realisations=2),
+}
+
+#: How seeds follow from an ensemble and a realisation index (recorded in the manifest).
+SEED_RULE = (
+    "seed = first 4 bytes (big-endian) of SHA-256 of the compact sorted-key JSON of "
+    '{"preset", "regime", "parameters", "n_particles", "realisation"}'
+)
+
+#: Rough cost of one cluster, ``coefficient * n ** exponent`` (arbitrary units), used to
+#: start the longest tasks first and to weight the progress bar's time estimate.
+_COST_MODEL: dict[str, tuple[float, float]] = {
+    "dla": (1.0, 1.1),
+    "eden": (0.1, 1.0),
+    "ballistic": (0.5, 1.1),
+    "dbm": (0.01, 2.0),
+}
+
+
+def realisation_seed(preset: str, spec: EnsembleSpec, index: int) -> int:
+    """The seed of realisation ``index`` of ``spec`` in ``preset`` (see ``SEED_RULE``)."""
+    key = {
+        "preset": preset,
+        "regime": spec.regime,
+        "parameters": dict(spec.parameters),
+        "n_particles": spec.n_particles,
+        "realisation": index,
+    }
+    digest = hashlib.sha256(json.dumps(key, sort_keys=True, separators=(",", ":")).encode()).digest()
+    return int.from_bytes(digest[:4], "big")
+
+
+def estimated_cost(regime: str, n_particles: int) -> float:
+    coefficient, exponent = _COST_MODEL.get(regime, (1.0, 1.5))
+    return coefficient * float(n_particles) ** exponent
+
+
+# --------------------------------------------------------------------------- Dask
+
+
+@contextmanager
+def dask_client(scheduler: str | None = None, workers: int | None = None) -> Iterator[Any]:
+    """A ``distributed.Client`` on ``scheduler``, or on a LocalCluster closed on exit.
+
+    The LocalCluster has ``workers`` single-threaded worker processes (default: one per
+    usable core); its status server takes a free port, so builds never clash over one.
+    """
+    from distributed import Client, LocalCluster
+
+    if scheduler is not None:
+        with Client(scheduler) as client:
+            yield client
+        return
+    if workers is not None and workers < 1:
+        raise ValueError(f"workers must be at least 1, got {workers}")
+    n_workers = workers or len(os.sched_getaffinity(0))
+    with LocalCluster(
+        n_workers=n_workers, threads_per_worker=1, processes=True, dashboard_address=":0"
+    ) as cluster, Client(cluster) as client:
+        yield client
+
+
+def run_tasks(
+    fn: Callable[..., Any],
+    tasks: Sequence[tuple[Any, ...]],
+    *,
+    costs: Sequence[float],
+    scheduler: str | None = None,
+    workers: int | None = None,
+    progress: bool = True,
+    label: str = "tasks",
+) -> list[Any]:
+    """``[fn(*task) for task in tasks]``, computed on Dask, returned in the order of ``tasks``.
+
+    Tasks start in decreasing order of ``costs`` (longest first keeps every worker busy to
+    the end); the progress bar counts done/total and estimates the time left from the
+    costs already done.
+    """
+    from distributed import as_completed
+    from tqdm import tqdm
+
+    if not tasks:
+        return []
+    results: list[Any] = [None] * len(tasks)
+    start_order = sorted(range(len(tasks)), key=lambda i: -costs[i])
+    with dask_client(scheduler, workers) as client:
+        futures = {}
+        for rank, i in enumerate(start_order):
+            futures[client.submit(fn, *tasks[i], pure=False, priority=len(tasks) - rank)] = i
+        with tqdm(
+            total=float(sum(costs)),
+            disable=not progress,
+            bar_format="{desc} |{bar}| {percentage:3.0f}% [{elapsed} elapsed, {remaining} left]",
+            desc=f"{label}: 0/{len(tasks)}",
+            file=sys.stderr,
+        ) as bar:
+            for done, future in enumerate(as_completed(futures), start=1):
+                i = futures[future]
+                try:
+                    results[i] = future.result()
+                except Exception as exc:
+                    for other in futures:
+                        other.cancel()
+                    raise LibraryError(f"{label}: task {tasks[i]!r:.200} failed: {exc}") from exc
+                future.release()
+                bar.set_description_str(f"{label}: {done}/{len(tasks)}", refresh=False)
+                bar.update(costs[i])
+    return results
+
+
+def grow_sites(regime: str, parameters: dict[str, Any], n_particles: int, seed: int) -> np.ndarray:
+    """One cluster as seed offsets in order of arrival (the task each worker runs)."""
+    from service.simulate import grow
+
+    return sites_from_lattice(grow(regime, n_particles, seed=seed, **parameters))
+
+
+# --------------------------------------------------------------------------- build
+
+
+def build_library(
+    preset: str,
+    out_dir: str | Path,
+    *,
+    scheduler: str | None = None,
+    workers: int | None = None,
+    progress: bool = True,
+) -> Path:
+    """Grow every ensemble of ``preset`` on Dask and write a reference set to ``out_dir``.
+
+    Parameters
+    ----------
+    preset : str
+        A key of ``PRESETS`` (``"default"``, ``"tiny"``).
+    out_dir : path
+        Destination folder; an existing reference set there is replaced (only once the new
+        one is complete). A non-empty folder that is not a reference set is refused.
+    scheduler : str, optional
+        Address of an existing Dask scheduler; by default a LocalCluster is started.
+    workers : int, optional
+        Worker processes of the LocalCluster (default: one per core).
+    progress : bool
+        Show a progress bar on stderr.
+
+    Returns
+    -------
+    Path
+        The folder written.
+
+    Notes
+    -----
+    Same preset, same software: byte-identical cluster and thumbnail files, and a manifest
+    that differs only in its ``build`` entry (wall time and machinery used).
+    """
+    if preset not in PRESETS:
+        raise ValueError(f"unknown preset {preset!r}; known presets: {sorted(PRESETS)}")
+    out_dir = Path(out_dir)
+    if out_dir.exists() and any(out_dir.iterdir()) and not (out_dir / MANIFEST).is_file():
+        raise LibraryError(f"{out_dir} is not empty and holds no reference set; refusing to overwrite it")
+    specs = PRESETS[preset]
+    ensembles = [
+        Ensemble(
+            **vars(spec),
+            seeds=tuple(realisation_seed(preset, spec, i) for i in range(spec.n_realisations)),
+            clusters=f"{CLUSTER_DIR}/{spec.id}.npz",
+            thumbnail=f"{THUMBNAIL_DIR}/{spec.id}.png",
+        )
+        for spec in specs
+    ]
+    tasks = [(e.regime, dict(e.parameters), e.n_particles, seed) for e in ensembles for seed in e.seeds]
+    started = time.perf_counter()
+    sites = run_tasks(
+        grow_sites,
+        tasks,
+        costs=[estimated_cost(regime, n) for regime, _, n, _ in tasks],
+        scheduler=scheduler,
+        workers=workers,
+        progress=progress,
+        label=f"growing {preset}",
+    )
+    wall_s = time.perf_counter() - started
+
+    staging = out_dir.with_name(out_dir.name + ".partial")
+    shutil.rmtree(staging, ignore_errors=True)
+    files: dict[str, str] = {}
+    position = 0
+    for ensemble in ensembles:
+        members = sites[position : position + ensemble.n_realisations]
+        position += ensemble.n_realisations
+        write_npz(staging / ensemble.clusters, encode_ensemble(members))
+        write_bytes(staging / ensemble.thumbnail, thumbnail_png(lattice_from_sites(members[0]), THUMBNAIL_PX))
+        for relative in (ensemble.clusters, ensemble.thumbnail):
+            files[relative] = sha256_file(staging / relative)
+    write_json(staging / MANIFEST, _manifest(preset, ensembles, files, wall_s, scheduler, workers))
+    _replace_folder(staging, out_dir)
+    return out_dir
+
+
+def _manifest(preset, ensembles, files, wall_s, scheduler, workers) -> dict[str, Any]:
+    import numba
+
+    return {
+        "format": FORMAT,
+        "schema_version": SCHEMA_VERSION,
+        "preset": preset,
+        "software": {
+            "ramiform": __version__,
+            "python": platform.python_version(),
+            "numpy": np.__version__,
+            "numba": numba.__version__,
+        },
+        "seed_rule": SEED_RULE,
+        "thumbnail_px": THUMBNAIL_PX,
+        "ensembles": [e.to_dict() for e in ensembles],
+        "files": files,
+        "build": {
+            "wall_s": round(wall_s, 1),
+            "scheduler": scheduler or "LocalCluster",
+            "workers": workers or (None if scheduler else len(os.sched_getaffinity(0))),
+        },
+    }
+
+
+def _replace_folder(new: Path, target: Path) -> None:
+    """Move the complete ``new`` folder to ``target``, removing what was there.
+
+    A feature cache of the old set moves along: each cache file records which clusters it
+    was computed from, so a stale one is recognised and ignored on reading.
+    """
+    old = target.with_name(target.name + ".old")
+    shutil.rmtree(old, ignore_errors=True)
+    if (target / CACHE_DIR).is_dir():
+        shutil.move(target / CACHE_DIR, new / CACHE_DIR)
+    if target.exists():
+        os.replace(target, old)
+    os.replace(new, target)
+    shutil.rmtree(old, ignore_errors=True)
+
+
+def run_build_command(args) -> int:
+    """Entry point of ``ramiform library build``; prints where the set went."""
+    out = Path(args.out) if args.out else Path(__file__).resolve().parents[2] / "reference_sets" / args.preset
+    try:
+        path = build_library(args.preset, out, scheduler=args.scheduler, workers=args.workers)
+    except (RamiformError, ValueError) as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 1
+    print(f"reference set {args.preset!r} written to {path}")
+    return 0

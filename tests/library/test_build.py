@@ -1,0 +1,105 @@
+"""Build the tiny preset on Dask, twice, and load it back.
+
+Every regime and parameter of the default grid is grown at a very small size through the same
+code path as the bundled set: once on a LocalCluster the build starts itself, once on an
+existing scheduler. The two must agree bit for bit.
+"""
+
+import io
+import json
+
+import numpy as np
+import pytest
+
+from service.library import PRESETS, build_library, load_reference_set
+from service.library.build import PARAMETER_GRID, grow_sites, realisation_seed
+from service.simulate import REGIMES
+
+pytestmark = pytest.mark.xdist_group("library-dask")
+
+
+@pytest.fixture(scope="module")
+def dask_cluster():
+    from distributed import LocalCluster
+
+    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0") as cluster:
+        yield cluster
+
+
+@pytest.fixture(scope="module")
+def tiny_sets(tmp_path_factory, dask_cluster):
+    root = tmp_path_factory.mktemp("sets")
+    own = build_library("tiny", root / "own", workers=2, progress=False)
+    shared = build_library("tiny", root / "shared", scheduler=dask_cluster.scheduler_address, progress=False)
+    return own, shared
+
+
+def test_tiny_set_holds_the_preset(tiny_sets):
+    refs = load_reference_set(tiny_sets[0])
+    specs = PRESETS["tiny"]
+    assert [(e.regime, dict(e.parameters), e.n_particles, e.n_realisations) for e in refs.ensembles] == [
+        (s.regime, dict(s.parameters), s.n_particles, s.n_realisations) for s in specs
+    ]
+    assert {e.regime for e in refs.ensembles} == set(REGIMES) == set(PARAMETER_GRID)
+    for ensemble, spec in zip(refs.ensembles, specs):
+        assert list(ensemble.seeds) == [realisation_seed("tiny", spec, i) for i in range(spec.n_realisations)]
+        lattices = refs.arrival_orders(ensemble)
+        assert len(lattices) == spec.n_realisations
+        for lattice in lattices:
+            h, w = lattice.shape
+            assert lattice[h // 2, w // 2] == 1
+            assert np.array_equal(np.sort(lattice[lattice > 0]), np.arange(1, spec.n_particles + 1))
+        assert refs.mask(ensemble, 0).sum() == spec.n_particles
+    assert len({s for e in refs.ensembles for s in e.seeds}) == sum(s.n_realisations for s in specs)
+    refs.verify()
+
+
+def test_recorded_seeds_regrow_the_stored_clusters(tiny_sets):
+    refs = load_reference_set(tiny_sets[0])
+    for ensemble in refs.ensembles[:: max(1, len(refs.ensembles) // 5)]:
+        stored = refs.sites(ensemble)[-1]
+        regrown = grow_sites(ensemble.regime, dict(ensemble.parameters), ensemble.n_particles, ensemble.seeds[-1])
+        assert np.array_equal(stored, regrown), ensemble.id
+
+
+def test_rebuild_on_another_cluster_is_byte_identical(tiny_sets):
+    own, shared = (json.loads((p / "manifest.json").read_text()) for p in tiny_sets)
+    assert own["files"] == shared["files"]
+    for path in own["files"]:
+        assert (tiny_sets[0] / path).read_bytes() == (tiny_sets[1] / path).read_bytes()
+    own.pop("build"), shared.pop("build")
+    assert own == shared
+
+
+def test_thumbnails_are_pngs_of_the_first_realisation(tiny_sets):
+    from PIL import Image
+
+    refs = load_reference_set(tiny_sets[0])
+    ensemble = refs.ensembles[0]
+    image = Image.open(io.BytesIO(refs.thumbnail_bytes(ensemble)))
+    assert image.format == "PNG" and image.size == (96, 96)
+    assert refs.thumbnail_path(ensemble).is_file()
+
+
+def _size_and_first_order(lattice, ensemble):
+    return int((lattice > 0).sum()), int(lattice[lattice.shape[0] // 2, lattice.shape[1] // 2]), ensemble.id
+
+
+def test_map_clusters_returns_results_in_manifest_order(tiny_sets, dask_cluster):
+    refs = load_reference_set(tiny_sets[0])
+    results = refs.map_clusters(_size_and_first_order, scheduler=dask_cluster.scheduler_address, progress=False)
+    assert list(results) == [e.id for e in refs.ensembles]
+    for ensemble in refs.ensembles:
+        assert results[ensemble.id] == [(ensemble.n_particles, 1, ensemble.id)] * ensemble.n_realisations
+
+
+def test_rebuild_replaces_the_set_and_keeps_its_cache(tiny_sets, dask_cluster, tmp_path):
+    import shutil
+
+    target = tmp_path / "set"
+    shutil.copytree(tiny_sets[0], target)
+    load_reference_set(target).write_cache("sizes", {"n": np.arange(3)})
+    (target / "clusters" / "stale.npz").write_bytes(b"old")
+    build_library("tiny", target, scheduler=dask_cluster.scheduler_address, progress=False)
+    assert not (target / "clusters" / "stale.npz").exists()
+    assert np.array_equal(load_reference_set(target).read_cache("sizes")["n"], np.arange(3))
