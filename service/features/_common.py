@@ -1,0 +1,83 @@
+"""Input checks and the local branch width shared by every measurement."""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import ndimage
+from skimage.morphology import skeletonize
+
+from service.errors import SpecimenError
+
+
+def as_specimen_mask(mask: np.ndarray) -> np.ndarray:
+    """Return ``mask`` as a 2-D bool array, raising if it cannot be measured.
+
+    Raises
+    ------
+    ValueError
+        If ``mask`` is not a 2-D array (a programmer error).
+    SpecimenError
+        If the mask holds no occupied pixel.
+    """
+    mask = np.asarray(mask)
+    if mask.ndim != 2:
+        raise ValueError(f"mask must be a 2-D array, got {mask.ndim} dimension(s) of shape {mask.shape}")
+    if mask.dtype != bool:
+        mask = mask != 0
+    if not mask.any():
+        raise SpecimenError("the mask is empty: no occupied pixel to measure")
+    return mask
+
+
+def check_pixel_size(pixel_size_mm: float | None) -> float | None:
+    """Return a positive finite pixel size in mm, or None; raise ValueError otherwise."""
+    if pixel_size_mm is None:
+        return None
+    value = float(pixel_size_mm)
+    if not np.isfinite(value) or value <= 0:
+        raise ValueError(f"pixel_size_mm must be a positive finite number, got {pixel_size_mm!r}")
+    return value
+
+
+def crop_to_specimen(mask: np.ndarray, pad_px: int = 1) -> tuple[np.ndarray, tuple[int, int]]:
+    """Crop ``mask`` to the bounding box of its occupied pixels, padded with background.
+
+    Returns the crop and the (row, col) of its origin in ``mask`` coordinates (the
+    origin may be negative when padding reaches past the frame).
+    """
+    rows = np.flatnonzero(mask.any(axis=1))
+    cols = np.flatnonzero(mask.any(axis=0))
+    r0, r1, c0, c1 = rows[0], rows[-1] + 1, cols[0], cols[-1] + 1
+    crop = np.zeros((r1 - r0 + 2 * pad_px, c1 - c0 + 2 * pad_px), dtype=bool)
+    crop[pad_px:-pad_px or None, pad_px:-pad_px or None] = mask[r0:r1, c0:c1]
+    return crop, (int(r0) - pad_px, int(c0) - pad_px)
+
+
+def local_width_px(edt: np.ndarray) -> np.ndarray:
+    """Stroke width at each pixel from its Euclidean distance to the background.
+
+    A stroke ``w`` pixels wide has ``(w + 1) / 2`` from its centre pixel to the nearest
+    background pixel centre, so the width is ``2 * edt - 1`` (a one-pixel line gives 1).
+    """
+    return 2.0 * edt - 1.0
+
+
+def median_branch_width_px(
+    mask: np.ndarray, *, edt: np.ndarray | None = None, skeleton_mask: np.ndarray | None = None
+) -> float:
+    """Median stroke width of the specimen, read on its skeleton.
+
+    Parameters
+    ----------
+    mask : (H, W) bool ndarray
+    edt, skeleton_mask : ndarray, optional
+        The distance transform and skeleton of ``mask`` when the caller already has them.
+    """
+    if edt is None:
+        edt = ndimage.distance_transform_edt(mask)
+    if skeleton_mask is None:
+        skeleton_mask = skeletonize(mask)
+    on_skeleton = edt[skeleton_mask]
+    if on_skeleton.size == 0:
+        on_skeleton = edt[mask]
+    return float(max(1.0, np.median(local_width_px(on_skeleton))))

@@ -1,0 +1,103 @@
+"""Box-counting, mass-radius and sandbox dimensions against exact values.
+
+Exact similarity dimensions log N / log(1/r): CHECK_VALUES.md "Exact (mathematics)";
+a filled region has dimension 2 and a smooth curve 1.
+"""
+
+import numpy as np
+import pytest
+
+from service.errors import SpecimenError
+from service.features import box_counting, mass_radius, sandbox
+from tests.features import shapes
+
+EXACT_FRACTALS = {
+    # name: (drawing, exact similarity dimension)
+    "sierpinski_carpet": (lambda: shapes.sierpinski_carpet(6), shapes.SIERPINSKI_CARPET_DIMENSION),  # log 8 / log 3
+    "sierpinski_triangle": (lambda: shapes.sierpinski_triangle(10), shapes.SIERPINSKI_TRIANGLE_DIMENSION),  # log 3 / log 2
+    "vicsek": (lambda: shapes.vicsek(6), shapes.VICSEK_DIMENSION),  # log 5 / log 3
+    "koch_curve": (lambda: shapes.koch_curve(6, 1460), shapes.KOCH_DIMENSION),  # log 4 / log 3
+}
+
+
+@pytest.mark.parametrize("name", sorted(EXACT_FRACTALS))
+def test_box_dimension_of_exact_fractals(name):
+    draw, exact = EXACT_FRACTALS[name]
+    mask = draw()
+    assert 700 <= max(mask.shape) <= 1500
+    fit = box_counting(mask)
+    # Similarity dimension, exact (CHECK_VALUES.md); tolerance 0.04 from issue 3.
+    assert abs(fit.value - exact) < 0.04, (name, fit.value, exact)
+    assert fit.ci95[0] < fit.value < fit.ci95[1]
+    assert fit.fit_range_px[1] / fit.fit_range_px[0] >= 10  # a decade of box sizes
+    assert fit.warnings == ()
+
+
+def test_box_sizes_are_finer_than_octaves():
+    fit = box_counting(shapes.sierpinski_carpet(5))
+    ratios = fit.sizes_px[1:] / fit.sizes_px[:-1]
+    assert np.median(ratios) < 1.5
+    # The log-log line reproduces the counts it was fitted to.
+    in_fit = (fit.sizes_px >= fit.fit_range_px[0]) & (fit.sizes_px <= fit.fit_range_px[1])
+    predicted = np.exp(fit.intercept) * fit.sizes_px[in_fit] ** -fit.value
+    assert np.allclose(predicted, fit.counts[in_fit], rtol=0.25)
+
+
+def test_filled_disk_is_two_dimensional():
+    fit = box_counting(shapes.filled_disk(801))
+    # A filled region has dimension 2 (exact); issue 3 asks for at least 1.95.
+    assert fit.value >= 1.95
+    assert any("branch width" in w for w in fit.warnings)
+
+
+@pytest.mark.parametrize("angle_deg", [0.0, 30.0, 45.0])
+def test_straight_line_is_one_dimensional(angle_deg):
+    fit = box_counting(shapes.straight_line(1000, angle_deg))
+    # A smooth curve has dimension 1 (exact).
+    assert abs(fit.value - 1.0) < 0.04
+
+
+def test_grid_offsets_never_increase_counts():
+    mask = shapes.vicsek(5)
+    one = box_counting(mask, n_offsets=1, fit_range_px=(4, 40))
+    many = box_counting(mask, n_offsets=4, fit_range_px=(4, 40))
+    assert np.all(many.counts <= one.counts)
+
+
+def test_narrow_scaling_range_warns():
+    fit = box_counting(shapes.sierpinski_carpet(3))  # 27 px: far less than a decade
+    assert any("decade" in w for w in fit.warnings)
+
+
+def test_mass_radius_of_disk_and_line():
+    # Exact: M(r) = pi r^2 inside a disk, 2 r along a line through the centre.
+    disk = shapes.filled_disk(801)
+    assert abs(mass_radius(disk).value - 2.0) < 0.03
+    line = shapes.straight_line(1000, 30.0)
+    assert abs(mass_radius(line).value - 1.0) < 0.03
+
+
+def test_mass_radius_about_a_given_centre():
+    carpet = shapes.sierpinski_carpet(6)
+    # About the centre of the carpet's central hole (243 px square, exact geometry)
+    # there is no mass within 121 px.
+    centred = mass_radius(carpet, center_rc=(364, 364))
+    assert centred.counts[centred.sizes_px < 121].max() == 0
+    with pytest.raises(ValueError):
+        mass_radius(carpet, center_rc=(np.nan, 3))
+
+
+def test_sandbox_of_disk_and_line_and_seed():
+    # Exact: the mass in a square of side s is s^2 inside a disk and ~s along a line.
+    assert abs(sandbox(shapes.filled_disk(801), seed=1).value - 2.0) < 0.03
+    assert abs(sandbox(shapes.straight_line(1000, 30.0), seed=1).value - 1.0) < 0.03
+    carpet = shapes.sierpinski_carpet(5)
+    assert np.array_equal(sandbox(carpet, seed=7).counts, sandbox(carpet, seed=7).counts)
+
+
+@pytest.mark.parametrize("function", [box_counting, mass_radius, sandbox])
+def test_bad_masks(function):
+    with pytest.raises(SpecimenError):
+        function(np.zeros((20, 20), dtype=bool))
+    with pytest.raises(ValueError):
+        function(np.ones((4, 4, 4), dtype=bool))
