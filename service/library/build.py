@@ -13,7 +13,6 @@ from __future__ import annotations
 import hashlib
 import json
 import os
-import platform
 import shutil
 import sys
 import time
@@ -24,26 +23,16 @@ from typing import Any
 
 import numpy as np
 
-from service import __version__
 from service.errors import LibraryError, RamiformError
 from service.library.storage import (
     CACHE_DIR,
     CLUSTER_DIR,
-    FORMAT,
     MANIFEST,
-    SCHEMA_VERSION,
     THUMBNAIL_DIR,
-    THUMBNAIL_PX,
     Ensemble,
     EnsembleSpec,
-    encode_ensemble,
-    lattice_from_sites,
-    sha256_file,
     sites_from_lattice,
-    thumbnail_png,
-    write_bytes,
-    write_json,
-    write_npz,
+    write_reference_set,
 )
 
 #: Simulator parameters of every ensemble, per regime. A new regime or parameter value is
@@ -261,43 +250,16 @@ def build_library(
 
     staging = out_dir.with_name(out_dir.name + ".partial")
     shutil.rmtree(staging, ignore_errors=True)
-    files: dict[str, str] = {}
-    position = 0
-    for ensemble in ensembles:
-        members = sites[position : position + ensemble.n_realisations]
-        position += ensemble.n_realisations
-        write_npz(staging / ensemble.clusters, encode_ensemble(members))
-        write_bytes(staging / ensemble.thumbnail, thumbnail_png(lattice_from_sites(members[0]), THUMBNAIL_PX))
-        for relative in (ensemble.clusters, ensemble.thumbnail):
-            files[relative] = sha256_file(staging / relative)
-    write_json(staging / MANIFEST, _manifest(preset, ensembles, files, wall_s, scheduler, workers))
+    build = {
+        "wall_s": round(wall_s, 1),
+        "scheduler": scheduler or "LocalCluster",
+        "workers": workers or (None if scheduler else len(os.sched_getaffinity(0))),
+    }
+    write_reference_set(
+        staging, preset=preset, ensembles=ensembles, sites=sites, seed_rule=SEED_RULE, build=build
+    )
     _replace_folder(staging, out_dir)
     return out_dir
-
-
-def _manifest(preset, ensembles, files, wall_s, scheduler, workers) -> dict[str, Any]:
-    import numba
-
-    return {
-        "format": FORMAT,
-        "schema_version": SCHEMA_VERSION,
-        "preset": preset,
-        "software": {
-            "ramiform": __version__,
-            "python": platform.python_version(),
-            "numpy": np.__version__,
-            "numba": numba.__version__,
-        },
-        "seed_rule": SEED_RULE,
-        "thumbnail_px": THUMBNAIL_PX,
-        "ensembles": [e.to_dict() for e in ensembles],
-        "files": files,
-        "build": {
-            "wall_s": round(wall_s, 1),
-            "scheduler": scheduler or "LocalCluster",
-            "workers": workers or (None if scheduler else len(os.sched_getaffinity(0))),
-        },
-    }
 
 
 def _replace_folder(new: Path, target: Path) -> None:

@@ -292,3 +292,58 @@ def read_manifest(folder: Path) -> dict[str, Any]:
         if not isinstance(manifest.get(key), kind):
             raise LibraryError(f"{path} is damaged: {key!r} is missing or not a {kind.__name__}")
     return manifest
+
+
+def write_reference_set(
+    folder: Path,
+    *,
+    preset: str,
+    ensembles: list[Ensemble],
+    sites: list[np.ndarray],
+    seed_rule: str,
+    build: dict[str, Any],
+) -> None:
+    """Write a complete reference set into the new folder ``folder``.
+
+    ``sites`` holds every realisation's :func:`sites_from_lattice` output, ensemble after
+    ensemble in the order of ``ensembles``; ``seed_rule`` says in words how the seeds were
+    derived; ``build`` becomes the manifest's ``build`` entry.
+    The manifest is written last, so a folder with a manifest is a complete set.
+    """
+    import platform
+
+    import numba
+
+    from service import __version__
+
+    folder = Path(folder)
+    if folder.exists() and any(folder.iterdir()):
+        raise LibraryError(f"{folder} is not empty; a reference set is written into a new folder")
+    if len(sites) != sum(e.n_realisations for e in ensembles):
+        raise LibraryError(f"{len(sites)} clusters for {sum(e.n_realisations for e in ensembles)} realisations")
+    files: dict[str, str] = {}
+    position = 0
+    for ensemble in ensembles:
+        members = sites[position : position + ensemble.n_realisations]
+        position += ensemble.n_realisations
+        write_npz(folder / ensemble.clusters, encode_ensemble(members))
+        write_bytes(folder / ensemble.thumbnail, thumbnail_png(lattice_from_sites(members[0])))
+        for relative in (ensemble.clusters, ensemble.thumbnail):
+            files[relative] = sha256_file(folder / relative)
+    manifest = {
+        "format": FORMAT,
+        "schema_version": SCHEMA_VERSION,
+        "preset": preset,
+        "software": {
+            "ramiform": __version__,
+            "python": platform.python_version(),
+            "numpy": np.__version__,
+            "numba": numba.__version__,
+        },
+        "seed_rule": seed_rule,
+        "thumbnail_px": THUMBNAIL_PX,
+        "ensembles": [e.to_dict() for e in ensembles],
+        "files": files,
+        "build": build,
+    }
+    write_json(folder / MANIFEST, manifest)
