@@ -1,0 +1,72 @@
+"""The upload size limit (``RAMIFORM_MAX_UPLOAD_MB``), enforced while the body streams.
+
+A pure ASGI middleware: a request whose ``Content-Length`` is over the limit is answered 413
+before a byte of its body is read; one without it (chunked) is counted as it arrives and
+refused the moment the running count passes the limit. Either way the answer is the usual
+``{"detail": "..."}`` and the rest of the body is never read into memory.
+"""
+
+from __future__ import annotations
+
+from starlette.exceptions import HTTPException
+from starlette.responses import JSONResponse
+from starlette.types import ASGIApp, Message, Receive, Scope, Send
+
+
+def _declared_length(scope: Scope) -> int | None:
+    for name, value in scope.get("headers", ()):
+        if name == b"content-length":
+            try:
+                return int(value)
+            except ValueError:
+                return None
+    return None
+
+
+class UploadLimitMiddleware:
+    """Refuse request bodies larger than ``max_bytes`` with 413, without reading them whole."""
+
+    def __init__(self, app: ASGIApp, max_bytes: int) -> None:
+        if max_bytes < 1:
+            raise ValueError(f"max_bytes must be positive, got {max_bytes}")
+        self.app = app
+        self.max_bytes = max_bytes
+        self.reason = (f"the upload is larger than this service's limit of {max_bytes / 2**20:g} MiB "
+                       "(RAMIFORM_MAX_UPLOAD_MB)")
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        declared = _declared_length(scope)
+        if declared is not None and declared > self.max_bytes:
+            await JSONResponse({"detail": self.reason}, status_code=413)(scope, receive, send)
+            return
+
+        received = 0
+        started = False
+
+        async def counting_receive() -> Message:
+            nonlocal received
+            if received > self.max_bytes:  # an app that swallowed the first refusal gets no more
+                raise HTTPException(413, self.reason)
+            message = await receive()
+            if message["type"] == "http.request":
+                received += len(message.get("body", b""))
+                if received > self.max_bytes:
+                    # Raised inside the app's body parsing; the app's HTTP error handler answers it.
+                    raise HTTPException(413, self.reason)
+            return message
+
+        async def watching_send(message: Message) -> None:
+            nonlocal started
+            if message["type"] == "http.response.start":
+                started = True
+            await send(message)
+
+        try:
+            await self.app(scope, counting_receive, watching_send)
+        except HTTPException as exc:  # raised where no handler of the app caught it
+            if exc.status_code != 413 or started:
+                raise
+            await JSONResponse({"detail": self.reason}, status_code=413)(scope, receive, send)
