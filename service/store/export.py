@@ -10,13 +10,14 @@ from typing import Any
 
 from service.store.store import SpecimenRecord
 
-_FIXED = ("id", "label", "filename", "created_at", "sha256")
+_FIXED = ("id", "label", "kind", "filename", "created_at", "sha256")
 
 
-def _flatten(prefix: str, value: Any) -> Iterator[tuple[str, Any]]:
+def flatten(prefix: str, value: Any) -> Iterator[tuple[str, Any]]:
+    """``(dotted.key, scalar)`` pairs of a nested dict; a ``ci95`` pair becomes two keys."""
     if isinstance(value, dict):
         for key, inner in value.items():
-            yield from _flatten(f"{prefix}.{key}" if prefix else str(key), inner)
+            yield from flatten(f"{prefix}.{key}" if prefix else str(key), inner)
     elif isinstance(value, (list, tuple)):
         # A confidence interval becomes two columns; other arrays (box counts, curves) are
         # not spreadsheet material and stay in the JSON.
@@ -33,12 +34,13 @@ def specimen_row(record: SpecimenRecord) -> dict[str, Any]:
     row: dict[str, Any] = {
         "id": record.id,
         "label": record.label,
+        "kind": record.kind,
         "filename": record.filename,
         "created_at": record.created_at.isoformat(),
         "sha256": record.sha256,
     }
     for section in ("image", "calibration", "features"):
-        row.update(_flatten(section, analysis.get(section, {})))
+        row.update(flatten(section, analysis.get(section, {})))
     matches = analysis.get("matches") or []
     if matches:
         best = matches[0]

@@ -26,6 +26,8 @@ class SpecimenRow(Base):
     #: The lab that uploaded it when access control is on; ``None`` on an open service.
     owner: Mapped[str | None] = mapped_column(String(128), index=True)
     label: Mapped[str | None] = mapped_column(String(256), index=True)
+    #: What the specimen is (electrodeposit, vessel, coral, root, other), if the uploader said.
+    kind: Mapped[str | None] = mapped_column(String(32))
     filename: Mapped[str | None] = mapped_column(String(512))
     created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
     sha256: Mapped[str] = mapped_column(String(64))

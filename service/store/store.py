@@ -38,6 +38,7 @@ class SpecimenRecord:
     id: str
     owner: str | None
     label: str | None
+    kind: str | None
     filename: str | None
     created_at: datetime
     sha256: str
@@ -48,6 +49,7 @@ class SpecimenRecord:
         return {
             "id": self.id,
             "label": self.label,
+            "kind": self.kind,
             "filename": self.filename,
             "created_at": self.created_at.isoformat(),
             "sha256": self.sha256,
@@ -61,6 +63,7 @@ def _record(row: SpecimenRow) -> SpecimenRecord:
         id=row.id,
         owner=row.owner,
         label=row.label,
+        kind=row.kind,
         filename=row.filename,
         created_at=created,
         sha256=row.sha256,
@@ -132,6 +135,7 @@ class Store:
         files: Mapping[str, bytes],
         *,
         label: str | None = None,
+        kind: str | None = None,
         filename: str | None = None,
         owner: str | None = None,
         specimen_id: str | None = None,
@@ -147,6 +151,7 @@ class Store:
             id=specimen_id,
             owner=owner,
             label=label,
+            kind=kind,
             filename=filename,
             created_at=datetime.now(timezone.utc),
             sha256=str(analysis.get("source", {}).get("sha256", "")),

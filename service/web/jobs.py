@@ -1,0 +1,170 @@
+"""Work done in the analysis processes: one upload in, its JSON and its rendered files out.
+
+The functions here run in a worker process (or a thread when the pool is off) and return
+only plain data - the analysis dict and the bytes of PNG and SVG files - so nothing heavy
+or process-bound crosses back to the web process.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import concurrent.futures
+import concurrent.futures.process  # BrokenProcessPool, also when the pool runs threads
+import math
+import multiprocessing
+import os
+from dataclasses import asdict, dataclass
+from functools import lru_cache
+from typing import Any
+
+import numpy as np
+
+from service.errors import RamiformError
+
+#: File names of a stored specimen (beside ``source.<format>``, the upload itself).
+PICTURES = ("photo.png", "overlay.png", "mask.png", "thumbnail.png")
+PLOTS = ("box_counting.svg", "lacunarity.svg", "references.svg")
+_SOURCE_SUFFIX = {"PNG": "png", "JPEG": "jpg", "TIFF": "tif", "BMP": "bmp"}
+
+
+@dataclass(frozen=True)
+class AnalysisOptions:
+    """What the client chose for one upload; picklable, so it travels to the workers."""
+
+    filename: str | None = None
+    pixel_size_mm: float | None = None
+    mode: str = "auto"
+    polarity: str = "auto"
+    threshold: float | None = None
+    roi: tuple[float, float, float] | None = None
+    page: int | None = None
+    library_dir: str | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        return asdict(self)
+
+
+def json_safe(value: Any) -> Any:
+    """``value`` with numpy scalars made Python ones and NaN or infinities made ``None``.
+
+    JSON has no NaN; PostgreSQL's ``json`` type and strict clients refuse it.
+    """
+    if isinstance(value, dict):
+        return {str(k): json_safe(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [json_safe(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return json_safe(value.tolist())
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
+
+
+@lru_cache(maxsize=4)
+def _reference_set(library_dir: str | None):
+    # Read-only files: caching the open set per process keeps its loaded clusters warm.
+    from service.library import load_reference_set
+
+    return load_reference_set(library_dir)
+
+
+def reference_distributions(analysis: dict[str, Any]) -> list[dict[str, Any]]:
+    """Per-feature reference values by regime, when the matching section carries them."""
+    found = analysis.get("reference_distributions")
+    return found if isinstance(found, list) else []
+
+
+def _specimen_values(features: dict[str, Any], names: list[str]) -> dict[str, float]:
+    flat: dict[str, float] = {}
+    for name in names:
+        node: Any = features
+        for part in name.split("."):
+            node = node.get(part) if isinstance(node, dict) else None
+        if isinstance(node, (int, float)) and not isinstance(node, bool):
+            flat[name] = float(node)
+    return flat
+
+
+def run_analysis(data: bytes, options: AnalysisOptions) -> dict[str, Any]:
+    """Analyse one upload; returns ``{"analysis": dict, "files": {name: bytes}}``.
+
+    Raises the pipeline's own errors (``RamiformError`` subclasses, ``ValueError``) unchanged.
+    """
+    from service.analysis import analyze
+    from service.web import pictures, plots
+
+    result = analyze(
+        data,
+        filename=options.filename,
+        pixel_size_mm=options.pixel_size_mm,
+        mode=options.mode,
+        polarity=options.polarity,
+        threshold=options.threshold,
+        roi=options.roi,
+        page=options.page,
+        reference_set=_reference_set(options.library_dir),
+    )
+    analysis = json_safe(result.to_dict())
+    rgb = result.image.rgb
+    mask = result.segmentation.mask
+    features = result.features
+    overlay = pictures.annotated_overlay(rgb, mask, features.skeleton_mask, features.tips_rc, features.junctions_rc)
+    files = {
+        f"source.{_SOURCE_SUFFIX.get(result.image.format, 'img')}": bytes(data),
+        "photo.png": pictures.png_bytes(pictures.display_photo(rgb)),
+        "overlay.png": pictures.png_bytes(overlay),
+        "mask.png": pictures.png_bytes(mask),
+        "thumbnail.png": pictures.png_bytes(pictures.thumbnail(overlay)),
+        "box_counting.svg": plots.box_counting_svg(analysis["features"].get("box_dimension", {})),
+        "lacunarity.svg": plots.lacunarity_svg(analysis["features"].get("lacunarity", {})),
+    }
+    distributions = reference_distributions(analysis)
+    if distributions:
+        names = [d["feature"] for d in distributions if "feature" in d]
+        files["references.svg"] = plots.reference_distributions_svg(
+            distributions, _specimen_values(analysis["features"], names)
+        )
+    return {"analysis": analysis, "files": files}
+
+
+class AnalysisPool:
+    """Runs analyses off the event loop: a pool of processes sized to the cores.
+
+    ``processes=0`` runs them in threads of this process instead (debugging, small tests).
+    A worker that dies (out of memory, killed) breaks a process pool; the pool is then
+    replaced, the one request answered with an error, and the service keeps serving.
+    """
+
+    def __init__(self, processes: int) -> None:
+        self.processes = processes
+        self._executor = self._new_executor()
+
+    def _new_executor(self) -> concurrent.futures.Executor:
+        if self.processes == 0:
+            return concurrent.futures.ThreadPoolExecutor(max_workers=os.cpu_count() or 1)
+        # spawn: a fresh interpreter per worker, never a fork of a threaded server
+        return concurrent.futures.ProcessPoolExecutor(
+            max_workers=self.processes, mp_context=multiprocessing.get_context("spawn")
+        )
+
+    async def run(self, fn, *args: Any) -> Any:
+        loop = asyncio.get_running_loop()
+        executor = self._executor
+        try:
+            return await loop.run_in_executor(executor, fn, *args)
+        except concurrent.futures.process.BrokenProcessPool as exc:
+            if executor is self._executor:
+                self._executor = self._new_executor()
+                executor.shutdown(wait=False, cancel_futures=True)
+            raise WorkerLostError("the analysis worker stopped unexpectedly; please try again") from exc
+
+    def shutdown(self) -> None:
+        self._executor.shutdown(wait=True, cancel_futures=True)
+
+
+class WorkerLostError(RamiformError):
+    """An analysis process died while working (the service itself keeps running)."""
+
+    status_code = 503
