@@ -16,7 +16,6 @@ from service.web import api, pages
 from service.web.errors import install_error_handlers
 from service.web.jobs import AnalysisPool
 from service.web.limits import UploadLimitMiddleware
-from service.web.limits import UploadLimitMiddleware
 from service.web.settings import Settings
 
 STATIC_DIR = Path(__file__).resolve().parents[2] / "static"
