@@ -19,7 +19,7 @@ from typing import Any
 
 import numpy as np
 
-from service.errors import RamiformError
+from service.errors import LibraryError, RamiformError
 
 #: File names of a stored specimen (beside ``source.<format>``, the upload itself).
 PICTURES = ("photo.png", "overlay.png", "mask.png", "thumbnail.png")
@@ -70,6 +70,22 @@ def _reference_set(library_dir: str | None):
     return load_reference_set(library_dir)
 
 
+def _reference_set_or_reason(library_dir: str | None):
+    """``(reference set, None)``, or ``(None, why the specimen is measured but not ranked)``.
+
+    A missing or damaged reference set must not cost the user the measurements; the
+    analysis then carries no matching section and says why in its warnings.
+    """
+    import importlib
+
+    if not hasattr(importlib.import_module("service.match"), "match_features"):
+        return None, "not ranked: this installation has no matcher (service.match.match_features)"
+    try:
+        return _reference_set(library_dir), None
+    except LibraryError as exc:
+        return None, f"not ranked against the reference library: {exc}"
+
+
 def reference_distributions(analysis: dict[str, Any]) -> list[dict[str, Any]]:
     """Per-feature reference values by regime, when the matching section carries them."""
     found = analysis.get("reference_distributions")
@@ -95,6 +111,7 @@ def run_analysis(data: bytes, options: AnalysisOptions) -> dict[str, Any]:
     from service.analysis import analyze
     from service.web import pictures, plots
 
+    reference_set, not_ranked = _reference_set_or_reason(options.library_dir)
     result = analyze(
         data,
         filename=options.filename,
@@ -104,9 +121,12 @@ def run_analysis(data: bytes, options: AnalysisOptions) -> dict[str, Any]:
         threshold=options.threshold,
         roi=options.roi,
         page=options.page,
-        reference_set=_reference_set(options.library_dir),
+        reference_set=reference_set,
+        match=not_ranked is None,
     )
     analysis = json_safe(result.to_dict())
+    if not_ranked is not None:
+        analysis["warnings"].append(not_ranked)
     rgb = result.image.rgb
     mask = result.segmentation.mask
     features = result.features
