@@ -103,3 +103,20 @@ def test_rebuild_replaces_the_set_and_keeps_its_cache(tiny_sets, dask_cluster, t
     build_library("tiny", target, scheduler=dask_cluster.scheduler_address, progress=False)
     assert not (target / "clusters" / "stale.npz").exists()
     assert np.array_equal(load_reference_set(target).read_cache("sizes")["n"], np.arange(3))
+
+
+def test_default_preset_covers_the_grid_the_library_promises():
+    # The grid of the reference-library specification (issue 2): DLA sticking 1, 0.3, 0.1 in
+    # both neighbourhoods, Eden, ballistic, DBM eta 0.5-4, at least 12 realisations each.
+    specs = PRESETS["default"]
+    grid = {(s.regime, tuple(sorted(s.parameters.items()))) for s in specs}
+    dla = {("dla", (("neighborhood", nb), ("sticking", st))) for nb in ("von_neumann", "moore") for st in (1.0, 0.3, 0.1)}
+    dbm = {("dbm", (("eta", eta),)) for eta in (0.5, 1.0, 1.5, 2.0, 3.0, 4.0)}
+    assert grid == dla | dbm | {("eden", ()), ("ballistic", ())}
+    assert min(s.n_realisations for s in specs) >= 12
+    assert len({s.id for s in specs}) == len(specs)
+    # Finite-size effects are large below 10^4 sites: every regime but DBM reaches it.
+    largest = {}
+    for s in specs:
+        largest[s.regime] = max(largest.get(s.regime, 0), s.n_particles)
+    assert all(n >= 10_000 for regime, n in largest.items() if regime != "dbm")
