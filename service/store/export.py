@@ -53,9 +53,13 @@ def specimen_row(record: SpecimenRecord) -> dict[str, Any]:
     return row
 
 
-def _cell(value: Any) -> Any:
+#: Columns Ramiform generates itself; every other text cell may carry what a client wrote.
+_GENERATED = frozenset({"id", "created_at", "sha256"})
+
+
+def _cell(column: str, value: Any) -> Any:
     # A text cell starting with = + - @ would run as a formula in a spreadsheet.
-    if isinstance(value, str) and value[:1] in ("=", "+", "-", "@", "\t", "\r"):
+    if column not in _GENERATED and isinstance(value, str) and value[:1] in ("=", "+", "-", "@", "\t", "\r"):
         return "'" + value
     return value
 
@@ -68,5 +72,5 @@ def specimens_csv(records: Iterable[SpecimenRecord]) -> str:
     writer = csv.DictWriter(out, fieldnames=columns, lineterminator="\r\n")
     writer.writeheader()
     for row in rows:
-        writer.writerow({key: _cell(value) for key, value in row.items()})
+        writer.writerow({key: _cell(key, value) for key, value in row.items()})
     return out.getvalue()

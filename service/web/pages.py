@@ -178,8 +178,19 @@ async def library_page(request: Request, settings: Settings = Depends(get_settin
 async def api_docs(request: Request) -> HTMLResponse:
     """A plain reference of the REST API, drawn from the OpenAPI schema (no outside scripts)."""
     schema = request.app.openapi()
+    components = schema.get("components", {}).get("schemas", {})
+
+    def body_fields(op: dict[str, Any]) -> list[tuple[str, bool, str]]:
+        for content in op.get("requestBody", {}).get("content", {}).values():
+            body = content.get("schema", {})
+            body = components.get(body.get("$ref", "").rsplit("/", 1)[-1], body)
+            required = set(body.get("required", []))
+            return [(name, name in required, prop.get("description", ""))
+                    for name, prop in body.get("properties", {}).items()]
+        return []
+
     operations = [
-        (method.upper(), path, op)
+        (method.upper(), path, op, body_fields(op))
         for path, item in schema.get("paths", {}).items()
         for method, op in item.items()
         if method in ("get", "post", "put", "patch", "delete")

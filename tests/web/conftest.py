@@ -1,11 +1,10 @@
-"""Apps under test, and specimen images whose true dimension is known exactly."""
+"""Apps under test and small specimen photographs rendered from grown clusters."""
 
 from __future__ import annotations
 
 import io
 import warnings
 
-import numpy as np
 import pytest
 from PIL import Image
 
@@ -16,31 +15,20 @@ with warnings.catch_warnings():
 from service.web.app import create_app
 from service.web.settings import Settings
 
-#: Similarity dimension of the Vicsek fractal, log 5 / log 3 (exact; CHECK_VALUES.md).
-VICSEK_DIMENSION = np.log(5) / np.log(3)
+def specimen_png(seed: int, *, n_particles: int = 600, size_px: int = 360) -> bytes:
+    """A photo-like rendering (dish, electrode, uneven light, noise) of a DLA cluster."""
+    from service.imaging import render_photo
+    from service.simulate import grow
 
-
-def vicsek_mask(level: int) -> np.ndarray:
-    """The Vicsek cross fractal after ``level`` subdivisions: 3**level cells a side."""
-    cross = np.array([[0, 1, 0], [1, 1, 1], [0, 1, 0]], dtype=bool)
-    mask = np.ones((1, 1), dtype=bool)
-    for _ in range(level):
-        mask = np.kron(cross, mask).astype(bool)
-    return mask
-
-
-def png(mask: np.ndarray, *, cell_px: int = 4, margin_px: int = 24) -> bytes:
-    """A dark specimen on a white background, each cell drawn as ``cell_px`` pixels a side."""
-    big = np.kron(mask, np.ones((cell_px, cell_px), dtype=bool))
-    big = np.pad(big, margin_px)
+    rgb = render_photo(grow("dla", n_particles, seed=seed) > 0, seed=seed, size_px=size_px)
     out = io.BytesIO()
-    Image.fromarray(np.where(big, 40, 235).astype(np.uint8)).save(out, format="PNG")
+    Image.fromarray(rgb).save(out, format="PNG")
     return out.getvalue()
 
 
 @pytest.fixture(scope="session")
-def vicsek_png() -> bytes:
-    return png(vicsek_mask(4))  # 81 cells x 4 px + margins = 372 px a side
+def dla_png() -> bytes:
+    return specimen_png(1)
 
 
 def make_client(tmp_path, **overrides) -> TestClient:
