@@ -93,23 +93,26 @@ def geometric_sizes(smallest: float, largest: float, ratio: float = SIZE_RATIO) 
 def scaling_range(width_px: float, extent_px: float, what: str) -> tuple[float, float, list[str]]:
     """Automatic fit range between the branch width and the specimen extent.
 
-    Returns ``(lower, upper, warnings)``: lower = ``LOWER_CUTOFF_WIDTHS`` widths but at
-    least ``MIN_BOX_PX``, upper =
-    ``UPPER_CUTOFF_FRACTION`` of the extent; the lower end is pulled down (with a
-    warning) when the range would be narrower than ``MIN_FIT_SPAN``.
+    Returns ``(lower, upper, warnings)``. Normally lower = ``LOWER_CUTOFF_WIDTHS``
+    widths (at least ``MIN_BOX_PX``) and upper = ``UPPER_CUTOFF_FRACTION`` of the
+    extent; a range narrower than ``MIN_FIT_SPAN`` is widened downwards. A compact
+    specimen (width above a quarter of the extent) is measured from 1 px to a
+    sixteenth of its width, where it is two-dimensional and its outline does not yet
+    weigh on the counts. Narrow or compact cases carry a warning.
     """
     warnings: list[str] = []
     upper = max(UPPER_CUTOFF_FRACTION * extent_px, 1.0)
-    lower = max(MIN_BOX_PX, LOWER_CUTOFF_WIDTHS * width_px)
-    if upper / lower < MIN_FIT_SPAN:
-        # A compact specimen: measure it where it is two-dimensional, well below its
-        # width, since boxes near the width see its outline as much as its area.
+    if width_px >= 0.25 * extent_px:
         upper = max(MIN_FIT_SPAN, min(upper, width_px / 16.0))
         lower = 1.0
         warnings.append(
-            f"{what}: branches are wide for the specimen size (width {width_px:.1f} px, "
-            f"extent {extent_px:.0f} px); the fit runs from 1 px, below the branch width"
+            f"{what}: the specimen is compact (width {width_px:.0f} px of {extent_px:.0f} px); "
+            "it was measured below its width, where it fills the plane"
         )
+    else:
+        lower = max(MIN_BOX_PX, LOWER_CUTOFF_WIDTHS * width_px)
+        if upper / lower < MIN_FIT_SPAN:
+            lower = max(1.0, upper / MIN_FIT_SPAN)
     if upper / lower < MIN_TRUSTED_SPAN:
         warnings.append(
             f"{what}: the scaling range {lower:.1f}-{upper:.1f} px spans less than one decade; "

@@ -111,8 +111,8 @@ def binary_tree(
     *,
     width_px: float = 7.0,
     trunk_px: float = 260.0,
-    shrink: float = 0.72,
-    half_angle_deg: float = 30.0,
+    shrink: float = 0.6,
+    half_angle_deg: float = 35.0,
 ) -> tuple[np.ndarray, dict]:
     """A perfect binary tree drawn with thick straight strokes and no crossings.
 

@@ -1,0 +1,122 @@
+"""Size and shape of a specimen about its centre: gyration, radial density, outline."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from skimage.measure import perimeter_crofton
+
+from service.features._common import as_specimen_mask, crop_to_specimen
+
+
+@dataclass(frozen=True)
+class RadialProfile:
+    """Size measures about a centre, all lengths in pixels.
+
+    Attributes
+    ----------
+    center_rc : (float, float)
+        The centre used (seed or centroid), in mask coordinates.
+    area_px : int
+        Occupied pixels.
+    radius_of_gyration_px : float
+        ``sqrt(mean |x - centroid|^2)`` over occupied pixels.
+    bounding_radius_px : float
+        Radius of the circle about ``center_rc`` that holds every occupied pixel centre.
+    area_fraction : float
+        Occupied area over the area of that circle.
+    perimeter_px : float
+        Outline length by the Crofton formula over four directions, unbiased for
+        outlines of every orientation (a pixel-edge count overestimates curves).
+    radii_px, density : ndarray
+        Annulus outer radii and the occupied fraction of the pixels of each annulus
+        (the radial density profile), annuli of equal width out to the bounding radius.
+    """
+
+    center_rc: tuple[float, float]
+    area_px: int
+    radius_of_gyration_px: float
+    bounding_radius_px: float
+    area_fraction: float
+    perimeter_px: float
+    radii_px: np.ndarray
+    density: np.ndarray
+
+    def to_dict(self, pixel_size_mm: float | None = None) -> dict:
+        out = {
+            "center_rc": [float(self.center_rc[0]), float(self.center_rc[1])],
+            "area_px": int(self.area_px),
+            "radius_of_gyration_px": float(self.radius_of_gyration_px),
+            "bounding_circle": {
+                "center_rc": [float(self.center_rc[0]), float(self.center_rc[1])],
+                "radius_px": float(self.bounding_radius_px),
+            },
+            "area_fraction": float(self.area_fraction),
+            "perimeter_px": float(self.perimeter_px),
+            "radial_density": {
+                "radii_px": [float(r) for r in self.radii_px],
+                "density": [float(d) for d in self.density],
+            },
+        }
+        if pixel_size_mm is not None:
+            s = pixel_size_mm
+            out["area_mm2"] = self.area_px * s * s
+            out["radius_of_gyration_mm"] = self.radius_of_gyration_px * s
+            out["bounding_circle"]["radius_mm"] = self.bounding_radius_px * s
+            out["perimeter_mm"] = self.perimeter_px * s
+            out["radial_density"]["radii_mm"] = [float(r) * s for r in self.radii_px]
+        return out
+
+
+def radial_profile(
+    mask: np.ndarray, *, center_rc: tuple[float, float] | None = None, n_annuli: int = 32
+) -> RadialProfile:
+    """Radius of gyration, bounding circle, area fraction, perimeter and radial density.
+
+    Strategy: distances of the occupied pixels from the centre are binned into
+    ``n_annuli`` equal annuli; the number of all pixels per annulus comes from the
+    same binning of every pixel of the bounding square (clipped to the image), so the
+    density is exact for the pixel grid and needs no per-annulus loop.
+
+    References
+    ----------
+    .. [1] T. Vicsek, *Fractal Growth Phenomena*, 2nd ed., World Scientific, 1992
+       (radius of gyration and density-density scaling of aggregates).
+    .. [2] G. Lehmann, D. Legland, "Efficient N-dimensional surface estimation using
+       Crofton formula and run-length encoding", Insight Journal (2012).
+    """
+    mask = as_specimen_mask(mask)
+    if n_annuli < 1:
+        raise ValueError(f"n_annuli must be at least 1, got {n_annuli}")
+    points = np.argwhere(mask).astype(float)
+    centroid = points.mean(axis=0)
+    center = np.asarray(center_rc, dtype=float) if center_rc is not None else centroid
+    if center.shape != (2,) or not np.all(np.isfinite(center)):
+        raise ValueError(f"center_rc must be a finite (row, col) pair, got {center_rc!r}")
+    r_gyr = float(np.sqrt(((points - centroid) ** 2).sum(axis=1).mean()))
+    distance = np.hypot(points[:, 0] - center[0], points[:, 1] - center[1])
+    r_max = float(distance.max())
+    outer = max(r_max, 0.5)
+    edges = np.linspace(0.0, outer, n_annuli + 1)
+    occupied = np.bincount(np.minimum((distance / outer * n_annuli).astype(np.int64), n_annuli - 1), minlength=n_annuli)
+    h, w = mask.shape
+    r0, r1 = max(int(np.floor(center[0] - outer)), 0), min(int(np.ceil(center[0] + outer)) + 1, h)
+    c0, c1 = max(int(np.floor(center[1] - outer)), 0), min(int(np.ceil(center[1] + outer)) + 1, w)
+    rr, cc = np.ogrid[r0:r1, c0:c1]
+    all_d = np.hypot(rr - center[0], cc - center[1])
+    inside = all_d <= outer
+    available = np.bincount(
+        np.minimum((all_d[inside] / outer * n_annuli).astype(np.int64), n_annuli - 1), minlength=n_annuli
+    )
+    density = np.divide(occupied, available, out=np.zeros(n_annuli), where=available > 0)
+    return RadialProfile(
+        center_rc=(float(center[0]), float(center[1])),
+        area_px=int(points.shape[0]),
+        radius_of_gyration_px=r_gyr,
+        bounding_radius_px=r_max,
+        area_fraction=float(points.shape[0] / max(np.pi * r_max**2, 1.0)),
+        perimeter_px=float(perimeter_crofton(crop_to_specimen(mask, pad_px=1)[0], directions=4)),
+        radii_px=edges[1:],
+        density=density,
+    )

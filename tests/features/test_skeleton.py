@@ -1,0 +1,84 @@
+"""Skeleton graph of drawn trees with known topology."""
+
+import numpy as np
+import pytest
+
+from service.errors import SpecimenError
+from service.features import skeleton_graph
+from tests.features import shapes
+
+
+@pytest.fixture(scope="module")
+def tree():
+    mask, truth = shapes.binary_tree(6, width_px=7.0)
+    return mask, truth, skeleton_graph(mask, center_rc=truth["foot_rc"])
+
+
+def test_tips_junctions_and_branches_are_exact(tree):
+    _, truth, graph = tree
+    # Exact topology of the drawn perfect binary tree (shapes.binary_tree docstring).
+    assert graph.tips == truth["tips"] == 33
+    assert graph.junctions == truth["junctions"] == 31
+    assert graph.branches == truth["branches"] == 63
+    assert graph.tips_rc.shape == (33, 2) and graph.junctions_rc.shape == (31, 2)
+
+
+def test_bare_skeleton_overcounts(tree):
+    _, truth, graph = tree
+    # Square stroke ends fork the bare skeleton (issue 3: about a third too many).
+    assert graph.bare_tips >= 1.25 * truth["tips"]
+    assert graph.bare_junctions >= 1.25 * truth["junctions"]
+
+
+def test_horton_strahler_of_perfect_binary_tree(tree):
+    _, truth, graph = tree
+    s = graph.strahler
+    # Horton-Strahler ordering of a perfect binary tree of depth k: order k, 2^(k - w)
+    # streams of order w, bifurcation ratio exactly 2 (CHECK_VALUES.md, exact).
+    assert s.max_order == truth["strahler_order"] == 6
+    assert s.stream_counts == tuple(2 ** (6 - w) for w in range(1, 7))
+    assert s.bifurcation_ratio == pytest.approx(2.0, abs=1e-9)
+    # Each generation is drawn 0.6 times as long as its parent, so stream lengths grow by
+    # 1 / 0.6 per order (geometry of the drawing); leaves lose their end caps to the
+    # skeleton, hence the tolerance.
+    assert s.length_ratio == pytest.approx(1 / 0.6, rel=0.08)
+
+
+def test_angles_widths_and_tortuosity(tree):
+    mask, truth, graph = tree
+    # Drawn geometry: every split opens by 2 x 35 degrees; strokes 7 px wide and straight.
+    assert graph.branching_angles_deg.size == truth["junctions"]
+    assert np.median(graph.branching_angles_deg) == pytest.approx(truth["branching_angle_deg"], abs=4)
+    assert np.median(graph.widths_px) == pytest.approx(7.0, abs=1.0)
+    assert np.median(graph.tortuosity) < 1.03
+    # The cleaned skeleton lies on the specimen; its length is the drawn centre-line
+    # length less at most one stroke width at each of the 33 free ends, where the
+    # skeleton stops short of the square cap.
+    assert mask[graph.skeleton_mask].all()
+    drawn = 260 * sum(2**g * 0.6**g for g in range(6))
+    assert drawn - 33 * 7.0 <= graph.total_length_px <= drawn
+
+
+def test_straight_bar_has_two_tips_and_no_junction():
+    bar = np.zeros((60, 300), dtype=bool)
+    bar[25:36, 20:280] = True  # 11 px thick, square ends: a bare skeleton forks at both
+    graph = skeleton_graph(bar)
+    assert (graph.tips, graph.junctions, graph.branches) == (2, 0, 1)
+    assert graph.strahler.max_order == 1
+
+
+def test_ring_keeps_its_cycle():
+    yy, xx = np.mgrid[:200, :200]
+    r = np.hypot(yy - 100, xx - 100)
+    ring = (r > 60) & (r < 70)
+    graph = skeleton_graph(ring)
+    # One closed branch, no tips or junctions; its length is the mid-circle's, 2 pi 65.
+    assert (graph.tips, graph.junctions, graph.branches) == (0, 0, 1)
+    assert graph.total_length_px == pytest.approx(2 * np.pi * 65, rel=0.02)
+
+
+def test_bad_input():
+    with pytest.raises(SpecimenError):
+        skeleton_graph(np.zeros((10, 10), dtype=bool))
+    with pytest.raises(ValueError):
+        skeleton_graph(np.ones((5, 5)), prune_widths=-1)
