@@ -164,13 +164,14 @@ def run_tasks(
     if not tasks:
         return []
     results: list[Any] = [None] * len(tasks)
-    start_order = sorted(range(len(tasks)), key=lambda i: -costs[i])
+    weights = [max(1, round(1000 * c)) for c in costs]  # integers: the bar ends exactly at its total
+    start_order = sorted(range(len(tasks)), key=lambda i: -weights[i])
     with dask_client(scheduler, workers) as client:
         futures = {}
         for rank, i in enumerate(start_order):
             futures[client.submit(fn, *tasks[i], pure=False, priority=len(tasks) - rank)] = i
         with tqdm(
-            total=float(sum(costs)),
+            total=sum(weights),
             disable=not progress,
             bar_format="{desc} |{bar}| {percentage:3.0f}% [{elapsed} elapsed, {remaining} left]",
             desc=f"{label}: 0/{len(tasks)}",
@@ -186,7 +187,7 @@ def run_tasks(
                     raise LibraryError(f"{label}: task {tasks[i]!r:.200} failed: {exc}") from exc
                 future.release()
                 bar.set_description_str(f"{label}: {done}/{len(tasks)}", refresh=False)
-                bar.update(costs[i])
+                bar.update(weights[i])
     return results
 
 

@@ -40,3 +40,19 @@ def test_default_set_clusters_hold_arrival_orders_one_to_n():
             h, w = lattice.shape
             assert lattice[h // 2, w // 2] == 1
             assert np.array_equal(np.sort(lattice[lattice > 0]), np.arange(1, ensemble.n_particles + 1))
+
+
+def test_default_set_is_what_the_simulators_grow_from_its_seeds():
+    # The bundled clusters must stay reproducible from their recorded seeds: one realisation
+    # of the cheapest ensemble of each regime is regrown and compared site by site.
+    from service.library.build import estimated_seconds, grow_sites
+
+    refs = load_reference_set(DEFAULT_DIR)
+    cheapest = {}
+    for e in refs.ensembles:
+        cost = estimated_seconds(e.regime, dict(e.parameters), e.n_particles)
+        if e.regime not in cheapest or cost < cheapest[e.regime][0]:
+            cheapest[e.regime] = (cost, e)
+    for _, ensemble in cheapest.values():
+        regrown = grow_sites(ensemble.regime, dict(ensemble.parameters), ensemble.n_particles, ensemble.seeds[0])
+        assert np.array_equal(refs.sites(ensemble)[0], regrown), ensemble.id
