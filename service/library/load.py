@@ -232,6 +232,8 @@ class ReferenceSet:
 
     def _read_checked(self, relative: str) -> bytes:
         expected = self._checksum(relative)
+        if Path(relative).is_absolute() or ".." in Path(relative).parts:
+            raise LibraryError(f"{self.path}: the manifest names a file outside the set: {relative}")
         try:
             data = (self.path / relative).read_bytes()
         except OSError as exc:

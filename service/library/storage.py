@@ -87,6 +87,9 @@ class EnsembleSpec:
         parts = [self.regime, *(f"{k}-{v}" for k, v in sorted(self.parameters.items()))]
         return "_".join(parts) + f"_n{self.n_particles}"
 
+    def __hash__(self) -> int:  # parameters is a dict; equal specs share an id
+        return hash(self.id)
+
     def to_dict(self) -> dict[str, Any]:
         return {
             "id": self.id,
@@ -104,6 +107,8 @@ class Ensemble(EnsembleSpec):
     seeds: tuple[int, ...] = ()
     clusters: str = ""
     thumbnail: str = ""
+
+    __hash__ = EnsembleSpec.__hash__
 
     def to_dict(self) -> dict[str, Any]:
         return {

@@ -125,3 +125,19 @@ def test_cache_round_trip_and_staleness(copy_of):
     rebuilt = load_reference_set(copy_of)
     assert rebuilt.read_cache("features-v1") is None
     assert rebuilt.read_cache("summary") is None
+
+
+def test_ensembles_can_key_a_dict(small_set):
+    refs = load_reference_set(small_set)
+    by_ensemble = {e: e.n_particles for e in refs.ensembles}
+    assert by_ensemble[load_reference_set(small_set).ensemble("eden_n90")] == 90
+
+
+def test_manifest_cannot_point_outside_the_set(copy_of):
+    manifest = json.loads((copy_of / "manifest.json").read_text())
+    entry = manifest["ensembles"][0]
+    manifest["files"]["../elsewhere.npz"] = manifest["files"].pop(entry["clusters"])
+    entry["clusters"] = "../elsewhere.npz"
+    (copy_of / "manifest.json").write_text(json.dumps(manifest))
+    with pytest.raises(LibraryError, match="outside the set"):
+        load_reference_set(copy_of).sites(entry["id"])
