@@ -112,7 +112,7 @@
       const answer = await fetch(demo.dataset.url);
       if (!answer.ok) throw new Error("the server answered " + answer.status);
       const blob = await answer.blob();
-      const file = new File([blob], demo.dataset.filename, { type: "image/png" });
+      const file = new File([blob], demo.dataset.filename, { type: "image/jpeg" });
       add([file], { label: demo.dataset.label, kind: "electrodeposit", pixel_size_mm: "" });
     } catch (err) {
       alert("The demo image could not be made: " + err.message);

@@ -16,7 +16,7 @@ from PIL import Image
 from service.store import write_durably
 
 DEMO_LABEL = "DEMO (simulated, not a real specimen)"
-DEMO_FILENAME = "ramiform-demo-simulated-deposit.png"
+DEMO_FILENAME = "ramiform-demo-simulated-deposit.jpg"
 DEMO_STORY = (
     "Demo data, made up: a 'copper deposit' from a fictional dish named Demo cell 1. It is in fact "
     "a diffusion-limited aggregate of 3000 particles (seed 2026) that Ramiform grew and rendered "
@@ -30,27 +30,27 @@ _SIZE_PX = 720
 DEMO_VERSION = 1
 
 
-def make_demo_png() -> bytes:
-    """Grow and render the demo specimen; the PNG bytes (deterministic, seconds of CPU)."""
+def make_demo_jpeg() -> bytes:
+    """Grow and render the demo specimen; JPEG bytes, as a camera gives (deterministic, seconds of CPU)."""
     from service.imaging import render_photo
     from service.simulate import grow
 
     cluster = grow("dla", _N_PARTICLES, seed=_GROWTH_SEED)
     rgb = render_photo(cluster > 0, seed=_RENDER_SEED, size_px=_SIZE_PX, polarity="dark")
     out = io.BytesIO()
-    Image.fromarray(np.asarray(rgb, dtype=np.uint8)).save(out, format="PNG")
+    Image.fromarray(np.asarray(rgb, dtype=np.uint8)).save(out, format="JPEG", quality=92)
     return out.getvalue()
 
 
 def demo_path(data_dir: Path) -> Path:
-    return Path(data_dir) / "demo" / f"demo-specimen-v{DEMO_VERSION}.png"
+    return Path(data_dir) / "demo" / f"demo-specimen-v{DEMO_VERSION}.jpg"
 
 
-def ensure_demo_png(data_dir: Path) -> bytes:
+def ensure_demo_jpeg(data_dir: Path) -> bytes:
     """The demo image from the data folder, made and stored durably on first use."""
     path = demo_path(data_dir)
     if path.is_file():
         return path.read_bytes()
-    data = make_demo_png()
+    data = make_demo_jpeg()
     write_durably(path, data)
     return data

@@ -18,13 +18,47 @@ from service.store.export import flatten
 from service.web import plots
 from service.web.api import file_url, summary
 from service.web.deps import current_lab, get_pool, get_settings, get_store
-from service.web.demo import DEMO_FILENAME, DEMO_LABEL, DEMO_STORY, ensure_demo_png
+from service.web.demo import DEMO_FILENAME, DEMO_LABEL, DEMO_STORY, ensure_demo_jpeg
 from service.web.jobs import AnalysisPool
 from service.web.references import ensembles_for_matches, reference_set_or_error
 from service.web.settings import Settings
 
 TEMPLATES_DIR = Path(__file__).resolve().parents[2] / "templates"
 templates = Jinja2Templates(directory=TEMPLATES_DIR)
+
+
+def _sig(value: Any, digits: int = 5) -> str:
+    """A number for tables: integers as they are, floats to ``digits`` significant digits."""
+    if value is None:
+        return "–"
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return _plain(value)
+    if isinstance(value, int) or float(value).is_integer():
+        return str(int(value))
+    return f"{value:.{digits}g}"
+
+
+def _plain(value: Any) -> str:
+    """Nested settings as readable text: ``key: value; ...`` and lists in brackets."""
+    if isinstance(value, dict):
+        return "; ".join(f"{k}: {_plain(v)}" for k, v in value.items())
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(_plain(v) for v in value) + "]"
+    if isinstance(value, float):
+        return _sig(value)
+    return "–" if value is None else str(value)
+
+
+def _fixed(value: Any, digits: int = 3) -> str:
+    """A headline number: integers as they are, floats with ``digits`` decimals."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return "–"
+    return str(value) if isinstance(value, int) else f"{value:.{digits}f}"
+
+
+templates.env.filters["sig"] = _sig
+templates.env.filters["fixed"] = _fixed
+templates.env.filters["plain"] = _plain
 
 router = APIRouter(include_in_schema=False)
 
@@ -49,12 +83,12 @@ def _svg_data_uri(svg: bytes) -> str:
     return "data:image/svg+xml;base64," + base64.b64encode(svg).decode("ascii")
 
 
-def _numeric_features(record: SpecimenRecord) -> dict[str, float]:
+def _numeric_features(record: SpecimenRecord) -> dict[str, int | float]:
     out = {}
     for key, value in flatten("", record.analysis.get("features", {})):
         if isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value):
             if not any(part in key for part in _NOT_COMPARED):
-                out[key] = float(value)
+                out[key] = value
     return out
 
 
@@ -64,10 +98,10 @@ async def upload_page(request: Request, settings: Settings = Depends(get_setting
                  demo_label=DEMO_LABEL, demo_story=DEMO_STORY, demo_filename=DEMO_FILENAME)
 
 
-@router.get("/demo/specimen.png")
+@router.get("/demo/specimen.jpg")
 async def demo_image(settings: Settings = Depends(get_settings), pool: AnalysisPool = Depends(get_pool)) -> Response:
-    data = await pool.run(ensure_demo_png, settings.data_dir)
-    return Response(data, media_type="image/png", headers={"Cache-Control": "public, max-age=3600"})
+    data = await pool.run(ensure_demo_jpeg, settings.data_dir)
+    return Response(data, media_type="image/jpeg", headers={"Cache-Control": "public, max-age=3600"})
 
 
 @router.get("/specimens", response_class=HTMLResponse)
