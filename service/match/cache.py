@@ -1,0 +1,186 @@
+"""Reference feature vectors: computed once per reference set on Dask, cached beside it.
+
+The cache is stored with :meth:`ReferenceSet.write_cache` under a name that carries
+``FEATURE_SCHEMA``, so a change of the features invalidates it, and the set's fingerprint
+ties it to the very clusters it was computed from.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+
+import numpy as np
+
+from service.errors import LibraryError
+from service.match.vector import FEATURE_NAMES, FEATURE_SCHEMA, reference_vector
+
+#: Name of the cache entry in the reference set's ``cache/`` folder.
+CACHE_NAME = f"match-features-v{FEATURE_SCHEMA}"
+#: Sets with at most this many clusters get their cache computed on first use, in process;
+#: larger ones must be prepared with :func:`build_feature_cache`.
+AUTO_BUILD_MAX_CLUSTERS = 240
+
+
+@dataclass(frozen=True, eq=False)
+class ReferenceTable:
+    """Feature vectors of every cluster of a reference set.
+
+    Attributes
+    ----------
+    values : ndarray, shape (n_clusters, n_features)
+    log_sites : ndarray, shape (n_clusters,)
+        Natural log of the lattice sites ``N_eq`` after normalisation.
+    scale_px : ndarray, shape (n_clusters,)
+        Pixels per site the normalisation found on each cluster's drawing.
+    ensemble : ndarray of int, shape (n_clusters,)
+        Index of each cluster's ensemble in ``reference_set.ensembles``.
+    realisation : ndarray of int, shape (n_clusters,)
+        Index of the cluster within its ensemble.
+    feature_names : tuple of str
+    """
+
+    values: np.ndarray
+    log_sites: np.ndarray
+    scale_px: np.ndarray
+    ensemble: np.ndarray
+    realisation: np.ndarray
+    feature_names: tuple[str, ...]
+
+    def subset(self, keep: np.ndarray) -> ReferenceTable:
+        """The rows where ``keep`` (bool or index array) selects."""
+        return ReferenceTable(
+            self.values[keep], self.log_sites[keep], self.scale_px[keep],
+            self.ensemble[keep], self.realisation[keep], self.feature_names,
+        )
+
+
+def _task(arrival_order: np.ndarray, ensemble) -> tuple[np.ndarray, int, float]:
+    return reference_vector(arrival_order)
+
+
+def compute_reference_table(
+    reference_set, *, scheduler: str | None = None, workers: int | None = None, progress: bool = True,
+    in_process: bool = False,
+) -> ReferenceTable:
+    """Feature vectors of every cluster, on Dask (or serially with ``in_process``)."""
+    if in_process:
+        results = {
+            e.id: [_task(reference_set.arrival_order(e, i), e) for i in range(e.n_realisations)]
+            for e in reference_set.ensembles
+        }
+    else:
+        results = reference_set.map_clusters(_task, scheduler=scheduler, workers=workers, progress=progress)
+    rows = [
+        (index, realisation, result)
+        for index, e in enumerate(reference_set.ensembles)
+        for realisation, result in enumerate(results[e.id])
+    ]
+    return ReferenceTable(
+        values=np.array([r[2][0] for r in rows], dtype=np.float64).reshape(len(rows), len(FEATURE_NAMES)),
+        log_sites=np.log(np.array([r[2][1] for r in rows], dtype=np.float64)),
+        scale_px=np.array([r[2][2] for r in rows], dtype=np.float64),
+        ensemble=np.array([r[0] for r in rows], dtype=np.int64),
+        realisation=np.array([r[1] for r in rows], dtype=np.int64),
+        feature_names=FEATURE_NAMES,
+    )
+
+
+def build_feature_cache(
+    reference_set, *, scheduler: str | None = None, workers: int | None = None, progress: bool = True
+) -> ReferenceTable:
+    """Compute the matcher's feature vector of every reference cluster and cache it.
+
+    Each cluster is drawn as a segmented photograph would show it
+    (:func:`service.match.vector.reference_photo_mask`), normalised and measured exactly as
+    a specimen is; one Dask task per cluster (``ReferenceSet.map_clusters``).
+
+    Parameters
+    ----------
+    reference_set : ReferenceSet or path
+        The set to prepare (a path is opened with ``load_reference_set``).
+    scheduler : str, optional
+        Address of an existing Dask scheduler; by default a LocalCluster is started.
+    workers : int, optional
+        Worker processes of the LocalCluster (default: one per core).
+    progress : bool
+        Show a progress bar on stderr.
+
+    Returns
+    -------
+    ReferenceTable
+        What was cached (also readable later with :func:`load_reference_table`).
+    """
+    reference_set = _as_reference_set(reference_set)
+    started = time.perf_counter()
+    table = compute_reference_table(reference_set, scheduler=scheduler, workers=workers, progress=progress)
+    _write(reference_set, table, time.perf_counter() - started)
+    return table
+
+
+def _write(reference_set, table: ReferenceTable, wall_s: float) -> None:
+    reference_set.write_cache(
+        CACHE_NAME,
+        {
+            "values": table.values,
+            "log_sites": table.log_sites,
+            "scale_px": table.scale_px,
+            "ensemble": table.ensemble,
+            "realisation": table.realisation,
+            "feature_names": np.array(FEATURE_NAMES),
+            "wall_s": np.array(wall_s),
+        },
+    )
+
+
+def load_reference_table(reference_set, *, build_if_missing: bool | None = None) -> ReferenceTable:
+    """The cached feature vectors of a reference set.
+
+    Parameters
+    ----------
+    reference_set : ReferenceSet
+    build_if_missing : bool, optional
+        Compute (in process) and cache the vectors when there is no valid cache. Default:
+        only for sets of at most ``AUTO_BUILD_MAX_CLUSTERS`` clusters.
+
+    Raises
+    ------
+    LibraryError
+        If there is no valid cache and it is not to be built here.
+    """
+    cached = reference_set.read_cache(CACHE_NAME)
+    if cached is not None and tuple(str(n) for n in cached["feature_names"]) == FEATURE_NAMES:
+        n = len(cached["ensemble"])
+        if np.array_equal(
+            np.bincount(cached["ensemble"], minlength=len(reference_set.ensembles)),
+            [e.n_realisations for e in reference_set.ensembles],
+        ) and cached["values"].shape == (n, len(FEATURE_NAMES)):
+            return ReferenceTable(
+                values=cached["values"].astype(np.float64),
+                log_sites=cached["log_sites"].astype(np.float64),
+                scale_px=cached["scale_px"].astype(np.float64),
+                ensemble=cached["ensemble"].astype(np.int64),
+                realisation=cached["realisation"].astype(np.int64),
+                feature_names=FEATURE_NAMES,
+            )
+    n_clusters = sum(e.n_realisations for e in reference_set.ensembles)
+    if build_if_missing is None:
+        build_if_missing = n_clusters <= AUTO_BUILD_MAX_CLUSTERS
+    if not build_if_missing:
+        raise LibraryError(
+            f"the reference set at {reference_set.path} has no matcher feature cache ({CACHE_NAME}) for its "
+            f"{n_clusters} clusters; prepare it once with: python -c \"from service.match import "
+            f"build_feature_cache; build_feature_cache('{reference_set.path}')\""
+        )
+    started = time.perf_counter()
+    table = compute_reference_table(reference_set, in_process=True)
+    _write(reference_set, table, time.perf_counter() - started)
+    return table
+
+
+def _as_reference_set(reference_set):
+    if reference_set is None or isinstance(reference_set, (str, bytes)) or hasattr(reference_set, "__fspath__"):
+        from service.library.load import load_reference_set
+
+        return load_reference_set(reference_set)
+    return reference_set
