@@ -1,0 +1,281 @@
+"""Rank a measured specimen against a reference set: the matcher's public entry.
+
+Only the universality table below names regimes; everything else reads the regimes and
+parameters from the reference set's manifest, so a new regime or parameter value in the
+library needs no change here.
+"""
+
+from __future__ import annotations
+
+import threading
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from scipy import special
+
+from service.errors import SpecimenError
+from service.match.cache import _as_reference_set, load_reference_table
+from service.match.model import ReferenceModel, fit_model
+from service.match.vector import FEATURE_SCHEMA, FEATURES, specimen_vector
+
+#: Families that belong to one universality class, so either answer is right for either.
+#: Members are (regime, {parameter: (low, high)}); a regime with no bounds matches any of
+#: its parameter sets.
+UNIVERSALITY_CLASSES: tuple[dict[str, Any], ...] = (
+    {
+        "name": "diffusion-limited growth",
+        "members": (("dla", {}), ("dbm", {"eta": (1.0, 1.0)})),
+        "note": (
+            "DLA and the dielectric breakdown model with eta = 1 belong to one universality class "
+            "(growth probability proportional to the Laplacian field; Niemeyer, Pietronero & Wiesmann, "
+            "Phys. Rev. Lett. 52, 1033, 1984): either answer is right for either."
+        ),
+    },
+    {
+        "name": "compact growth",
+        "members": (("eden", {}), ("dbm", {"eta": (0.0, 0.5)})),
+        "note": (
+            "Eden growth and the dielectric breakdown model with eta near 0 belong to one universality "
+            "class (at eta = 0 every perimeter site is equally likely, which is Eden's rule; Niemeyer, "
+            "Pietronero & Wiesmann 1984): either answer is right for either."
+        ),
+    },
+)
+#: Features listed in the explanation as deciding between the best and the runner-up.
+N_DECIDING = 4
+#: Features of a specimen beyond this many reference spreads are named when it is out of library.
+OUTLIER_Z = 3.0
+
+_MODELS: dict[tuple[str, str], ReferenceModel] = {}
+_DEFAULT_SET: list = []
+_LOCK = threading.Lock()
+
+
+def universality_class(regime: str, parameters: dict) -> str | None:
+    """Name of the universality class (from ``UNIVERSALITY_CLASSES``) a family belongs to."""
+    for entry in UNIVERSALITY_CLASSES:
+        for member_regime, bounds in entry["members"]:
+            if member_regime == regime and all(
+                name in parameters and lo <= float(parameters[name]) <= hi for name, (lo, hi) in bounds.items()
+            ):
+                return entry["name"]
+    return None
+
+
+def _class_note(name: str | None) -> str | None:
+    return next((e["note"] for e in UNIVERSALITY_CLASSES if e["name"] == name), None)
+
+
+def _resolve(reference_set):
+    if reference_set is not None:
+        return _as_reference_set(reference_set)
+    with _LOCK:
+        if not _DEFAULT_SET:
+            _DEFAULT_SET.append(_as_reference_set(None))
+        return _DEFAULT_SET[0]
+
+
+def reference_model(reference_set=None) -> ReferenceModel:
+    """The fitted and calibrated model of a reference set (default: the bundled one).
+
+    Fitted once per set and process (a few seconds), then kept in memory; keyed by the set's
+    folder and fingerprint, so a rebuilt set is refitted.
+    """
+    reference_set = _resolve(reference_set)
+    key = (str(Path(reference_set.path).resolve()), reference_set.fingerprint)
+    with _LOCK:
+        if key not in _MODELS:
+            _MODELS[key] = fit_model(reference_set, load_reference_table(reference_set))
+        return _MODELS[key]
+
+
+def _numeric(value: Any) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool)
+
+
+def _parameter_estimates(model: ReferenceModel, scaled_loglik: np.ndarray) -> dict[str, Any]:
+    """Posterior-weighted mean and spread of every numeric parameter that varies in a regime."""
+    regime_probability = special.softmax(scaled_loglik)
+    out: dict[str, Any] = {}
+    regimes = dict.fromkeys(f.regime for f in model.families)
+    for regime in regimes:
+        members = [i for i, f in enumerate(model.families) if f.regime == regime]
+        weights = special.softmax(scaled_loglik[members])
+        names = dict.fromkeys(n for i in members for n, v in model.families[i].parameters.items() if _numeric(v))
+        for name in names:
+            rows = [(w, float(model.families[i].parameters[name])) for w, i in zip(weights, members)
+                    if name in model.families[i].parameters]
+            grid = sorted({v for _, v in rows})
+            if len(grid) < 2:
+                continue
+            w = np.array([r[0] for r in rows])
+            v = np.array([r[1] for r in rows])
+            w = w / w.sum()
+            mean = float(w @ v)
+            out.setdefault(regime, {})[name] = {
+                "value": mean,
+                "std": float(np.sqrt(max(w @ (v - mean) ** 2, 0.0))),
+                "values_in_library": grid,
+                "regime_probability": float(regime_probability[members].sum()),
+                "method": "posterior-weighted mean over the regime's families (interpolates between library values)",
+            }
+    return out
+
+
+def _family_entry(model: ReferenceModel, f: int, probability: float, d2: float, where) -> dict[str, Any]:
+    family = model.families[f]
+    i, j, t = where
+    ids = model.statistics.ensemble_ids[f]
+    return {
+        "regime": family.regime,
+        "parameters": dict(family.parameters),
+        "probability": float(probability),
+        "distance": float(np.sqrt(max(d2, 0.0))),
+        "ensembles": [{"index": int(ids[i]), "weight": 1.0 - t}] + ([{"index": int(ids[j]), "weight": t}] if j != i else []),
+    }
+
+
+def _feature_row(model, values, mu, f: int, name_index: int) -> dict[str, float]:
+    sd = float(np.sqrt(model.statistics.covariance[f, name_index, name_index]))
+    mean = float(mu[f, name_index])
+    return {"mean": mean, "sd": sd, "z": float((values[name_index] - mean) / sd)}
+
+
+def match_features(features, *, reference_set=None, mask: np.ndarray | None = None) -> dict[str, Any]:
+    """Rank a specimen against every regime and parameter set of a reference set.
+
+    Parameters
+    ----------
+    features : Features
+        The specimen's measurements (``service.features.measure``); its ``mask`` is what the
+        matcher normalises and compares, unless ``mask`` is given.
+    reference_set : ReferenceSet or path, optional
+        Default: the bundled set (``service.library.load_reference_set()``).
+    mask : (H, W) bool ndarray, optional
+        The specimen mask, when ``features`` does not carry it.
+
+    Returns
+    -------
+    dict
+        ``matches`` (best first: ``regime``, ``parameters``, ``probability``, ``distance``
+        = Mahalanobis distance to the family at the specimen's size, and the ensembles
+        interpolated), ``in_library``, ``parameter_estimates``, ``explanation``,
+        ``warnings``.
+
+    Notes
+    -----
+    The specimen is resampled to one branch width per site (``normalise``) and measured on
+    that lattice (``lattice_features``); references went through the same two steps from
+    photograph-like drawings of every library cluster. Family means are interpolated in
+    ``log N_eq``; each family's likelihood is Gaussian with its shrunk covariance; the
+    posterior (uniform prior over families) is tempered by the temperature fitted on held-
+    out references. ``in_library`` is false when even the nearest family is farther than
+    the novelty threshold (``ReferenceModel.novelty_d2``).
+
+    References
+    ----------
+    .. [1] P. C. Mahalanobis, "On the generalised distance in statistics", Proc. Natl.
+       Inst. Sci. India 2, 49 (1936).
+    .. [2] C. Guo et al., "On calibration of modern neural networks", ICML (2017).
+    """
+    if mask is None:
+        mask = getattr(features, "mask", None)
+    if mask is None:
+        raise ValueError("match_features needs the specimen mask: pass mask= or Features carrying .mask")
+    reference_set = _resolve(reference_set)
+    model = reference_model(reference_set)
+    try:
+        vector, normalisation = specimen_vector(mask)
+    except SpecimenError as exc:
+        return {
+            "matches": [],
+            "in_library": False,
+            "parameter_estimates": {},
+            "explanation": {"summary": f"not compared with the references: {exc}"},
+            "warnings": [f"matching: {exc}"],
+        }
+    values, log_sites = vector.values, float(np.log(vector.n_sites))
+    d2, loglik, mu, where = model.evaluate(values, log_sites)
+    scaled = loglik / model.temperature
+    probability = special.softmax(scaled)
+    order = np.argsort(-probability, kind="stable")
+    nearest = int(np.argmin(d2))
+    in_library = bool(d2[nearest] <= model.novelty_d2)
+    matches = [_family_entry(model, int(f), probability[f], d2[f], where[f]) for f in order]
+    for entry in matches:
+        for e in entry["ensembles"]:
+            e["id"] = reference_set.ensembles[e.pop("index")].id
+
+    warnings: list[str] = []
+    lo, hi = model.size_range
+    if not lo / 1.5 <= vector.n_sites <= hi * 1.5:
+        warnings.append(
+            f"matching: the specimen spans {vector.n_sites} branch widths squared, outside the library's sizes "
+            f"{lo:.0f}-{hi:.0f}; references are compared at their nearest size"
+        )
+    if not in_library:
+        warnings.append(
+            f"matching: the specimen lies outside every reference ensemble (nearest Mahalanobis distance "
+            f"{np.sqrt(d2[nearest]):.1f} > {np.sqrt(model.novelty_d2):.1f}); the ranking is only relative"
+        )
+
+    best, runner = int(order[0]), int(order[1]) if order.size > 1 else None
+    rows = []
+    for n, (name, description) in enumerate(FEATURES):
+        row = {"feature": name, "description": description, "value": float(values[n]),
+               "best": _feature_row(model, values, mu, best, n)}
+        if runner is not None:
+            row["runner_up"] = _feature_row(model, values, mu, runner, n)
+            row["weight_of_evidence"] = 0.5 * (row["runner_up"]["z"] ** 2 - row["best"]["z"] ** 2)
+        rows.append(row)
+    deciding = sorted(rows, key=lambda r: -r.get("weight_of_evidence", 0.0))[:N_DECIDING]
+    classes = {universality_class(model.families[f].regime, model.families[f].parameters)
+               for f in (best, runner) if f is not None}
+    best_class = universality_class(model.families[best].regime, model.families[best].parameters)
+    note = _class_note(best_class)
+    outliers = [name for n, (name, _) in enumerate(FEATURES)
+                if abs(_feature_row(model, values, mu, nearest, n)["z"]) > OUTLIER_Z]
+    b = matches[0]
+    summary = (
+        f"best match {b['regime']} {b['parameters']} (probability {b['probability']:.2f}, "
+        f"Mahalanobis distance {b['distance']:.2f})"
+    )
+    if runner is not None:
+        r = matches[1]
+        summary += f"; runner-up {r['regime']} {r['parameters']} ({r['probability']:.2f})"
+        if len(classes) == 1 and None not in classes:
+            summary += f"; both belong to one universality class ({best_class})"
+    if not in_library:
+        summary = "outside the library: " + summary
+    explanation = {
+        "summary": summary,
+        "best": matches[0],
+        "runner_up": matches[1] if runner is not None else None,
+        "deciding_features": deciding,
+        "all_features": rows,
+        "universality_note": note,
+        "specimen": {**normalisation, "n_sites": int(vector.n_sites), "log_sites": log_sites},
+        "novelty": {
+            "nearest": {"regime": model.families[nearest].regime, "parameters": dict(model.families[nearest].parameters)},
+            "nearest_distance": float(np.sqrt(d2[nearest])),
+            "threshold_distance": float(np.sqrt(model.novelty_d2)),
+            "n_features": len(FEATURES),
+            "features_beyond_3_sd": outliers,
+        },
+        "references": {
+            "path": str(reference_set.path),
+            "preset": reference_set.preset,
+            "fingerprint": reference_set.fingerprint,
+            "feature_schema": FEATURE_SCHEMA,
+            "n_families": len(model.families),
+            "calibration": dict(model.calibration),
+        },
+    }
+    return {
+        "matches": matches,
+        "in_library": in_library,
+        "parameter_estimates": _parameter_estimates(model, scaled),
+        "explanation": explanation,
+        "warnings": warnings,
+    }
