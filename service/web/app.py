@@ -12,7 +12,7 @@ from fastapi.staticfiles import StaticFiles
 
 from service import __version__
 from service.store import Store
-from service.web import api, pages
+from service.web import api, auth, pages
 from service.web.errors import install_error_handlers
 from service.web.jobs import AnalysisPool
 from service.web.limits import UploadLimitMiddleware
@@ -53,9 +53,11 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     )
     app.state.settings = settings
     install_error_handlers(app)
+    auth.install_login_redirect(app)
     # 413 with a JSON reason while the body streams (FastAPI's own limit answers in plain text)
     app.add_middleware(UploadLimitMiddleware, max_bytes=settings.max_upload_bytes)
     app.mount("/static", StaticFiles(directory=STATIC_DIR), name="static")
     app.include_router(api.router)
     app.include_router(pages.router)
+    app.include_router(auth.router)
     return app

@@ -7,6 +7,7 @@ import hmac
 from fastapi import HTTPException, Request
 
 from service.store import Store
+from service.web.auth import lab_from_cookie
 from service.web.jobs import AnalysisPool
 from service.web.settings import Settings
 
@@ -35,13 +36,16 @@ def lab_for_key(settings: Settings, presented: str) -> str | None:
 def current_lab(request: Request) -> str | None:
     """The calling lab, scoping every read and write; ``None`` when access control is off.
 
-    With ``RAMIFORM_API_KEYS`` set, the caller must send ``Authorization: Bearer KEY``.
+    With ``RAMIFORM_API_KEYS`` set, the caller must send ``Authorization: Bearer KEY``, or
+    (a browser) the signed cookie that signing in on ``/login`` gave it.
     """
     settings = get_settings(request)
     if not settings.keys_by_lab:
         return None
     scheme, _, presented = request.headers.get("authorization", "").partition(" ")
     lab = lab_for_key(settings, presented.strip()) if scheme.lower() == "bearer" else None
+    if lab is None and "authorization" not in request.headers:
+        lab = lab_from_cookie(request, settings)
     if lab is None:
         raise HTTPException(401, "a valid API key is required (Authorization: Bearer KEY)",
                             headers={"WWW-Authenticate": "Bearer"})

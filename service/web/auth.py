@@ -1,0 +1,140 @@
+"""Signing in on the pages: the lab's key is asked once, then a signed cookie stands for it.
+
+With ``RAMIFORM_API_KEYS`` set, REST clients send ``Authorization: Bearer KEY`` on every
+request. A browser instead signs in once on ``/login`` and receives a cookie naming its lab,
+signed with the service's secret (itsdangerous), HttpOnly (no script reads it) and SameSite
+(other sites' pages do not send it). The cookie holds no key, only a keyed fingerprint of it,
+so changing or removing a lab's key ends that lab's sessions. Keys are never logged.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import hmac
+import logging
+from typing import Annotated
+from urllib.parse import quote, urlsplit
+
+from fastapi import APIRouter, FastAPI, Form, Query, Request
+from fastapi.exception_handlers import http_exception_handler
+from fastapi.responses import HTMLResponse, RedirectResponse, Response
+from itsdangerous import BadSignature, URLSafeTimedSerializer
+from starlette.exceptions import HTTPException as StarletteHTTPException
+
+from service.web.settings import Settings
+
+COOKIE_NAME = "ramiform_lab"
+#: A working day: a page session ends by itself.
+COOKIE_MAX_AGE_S = 12 * 3600
+_SAFE_METHODS = ("GET", "HEAD", "OPTIONS")
+
+log = logging.getLogger("ramiform.web.auth")
+router = APIRouter(include_in_schema=False)
+
+
+def _secret(settings: Settings) -> bytes:
+    if settings.secret_key:
+        return settings.secret_key.encode()
+    # Derived from every key together: a lab that knows only its own cannot forge another's cookie.
+    return hashlib.sha256(b"ramiform page cookie\0" + settings.api_keys.encode()).digest()
+
+
+def _fingerprint(settings: Settings, key: str) -> str:
+    return hmac.new(_secret(settings), key.encode(), hashlib.sha256).hexdigest()[:32]
+
+
+def _serializer(settings: Settings) -> URLSafeTimedSerializer:
+    return URLSafeTimedSerializer(_secret(settings), salt="ramiform-lab-cookie")
+
+
+def cookie_value(settings: Settings, lab: str) -> str:
+    """The signed cookie of a signed-in ``lab`` (whose key must be configured)."""
+    key = settings.keys_by_lab[lab]
+    return _serializer(settings).dumps({"lab": lab, "key": _fingerprint(settings, key)})
+
+
+def lab_from_cookie(request: Request, settings: Settings) -> str | None:
+    """The lab the request's cookie was signed for, or None (absent, forged, expired, stale).
+
+    A cookie-borne request that changes something (POST, DELETE, ...) must also come from a
+    page of this service: an ``Origin`` naming another host is refused.
+    """
+    value = request.cookies.get(COOKIE_NAME)
+    if not value:
+        return None
+    try:
+        data = _serializer(settings).loads(value, max_age=COOKIE_MAX_AGE_S)
+    except BadSignature:  # also SignatureExpired
+        return None
+    lab = data.get("lab") if isinstance(data, dict) else None
+    key = settings.keys_by_lab.get(lab) if isinstance(lab, str) else None
+    if key is None or not hmac.compare_digest(str(data.get("key", "")), _fingerprint(settings, key)):
+        return None
+    origin = request.headers.get("origin")
+    if request.method not in _SAFE_METHODS and origin and urlsplit(origin).netloc != request.headers.get("host"):
+        log.warning("refused a cross-site %s %s carrying a page cookie", request.method, request.url.path)
+        return None
+    return lab
+
+
+def _safe_next(target: str | None) -> str:
+    # Only a path on this service: never an absolute or scheme-relative URL (open redirect).
+    if not target or not target.startswith("/") or target.startswith("//") or "\\" in target:
+        return "/"
+    return target
+
+
+def _login_page(request: Request, *, next_path: str, error: str | None, status_code: int) -> HTMLResponse:
+    from service.web.pages import templates
+
+    return templates.TemplateResponse(request, "login.html", {"next": next_path, "error": error},
+                                      status_code=status_code)
+
+
+@router.get("/login", response_class=HTMLResponse)
+async def login_form(request: Request, next: Annotated[str | None, Query(max_length=2000)] = None) -> Response:
+    settings: Settings = request.app.state.settings
+    if not settings.keys_by_lab:
+        return RedirectResponse(_safe_next(next), status_code=303)
+    return _login_page(request, next_path=_safe_next(next), error=None, status_code=200)
+
+
+@router.post("/login", response_class=HTMLResponse)
+async def login(
+    request: Request,
+    key: Annotated[str, Form(max_length=1000)],
+    next: Annotated[str | None, Form(max_length=2000)] = None,
+) -> Response:
+    from service.web.deps import lab_for_key  # here, since deps imports this module
+
+    settings: Settings = request.app.state.settings
+    lab = lab_for_key(settings, key.strip()) if settings.keys_by_lab else None
+    if lab is None:
+        log.info("page sign-in refused: unknown key")
+        return _login_page(request, next_path=_safe_next(next), error="That key is not valid here.",
+                           status_code=401)
+    log.info("lab %s signed in on the pages", lab)
+    response = RedirectResponse(_safe_next(next), status_code=303)
+    response.set_cookie(COOKIE_NAME, cookie_value(settings, lab), max_age=COOKIE_MAX_AGE_S, httponly=True,
+                        samesite="lax", secure=request.url.scheme == "https", path="/")
+    return response
+
+
+@router.post("/logout")
+async def logout() -> Response:
+    response = RedirectResponse("/login", status_code=303)
+    response.delete_cookie(COOKIE_NAME, path="/", httponly=True, samesite="lax")
+    return response
+
+
+def install_login_redirect(app: FastAPI) -> None:
+    """A page asked for without a valid key sends the browser to ``/login`` and back."""
+
+    @app.exception_handler(StarletteHTTPException)
+    async def _to_login(request: Request, exc: StarletteHTTPException) -> Response:
+        path = request.url.path
+        wants_page = not path.startswith(("/api/", "/static/")) and "text/html" in request.headers.get("accept", "")
+        if exc.status_code == 401 and wants_page and request.method in _SAFE_METHODS:
+            target = path + (f"?{request.url.query}" if request.url.query else "")
+            return RedirectResponse(f"/login?next={quote(target, safe='')}", status_code=303)
+        return await http_exception_handler(request, exc)
