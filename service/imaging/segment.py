@@ -135,35 +135,34 @@ def segment(
 
     Notes
     -----
-    Background: a quadratic surface fitted with iterative 3-sigma clipping at reduced
-    resolution (specimen and glare are clipped out), divided out at full resolution.
-    Threshold: Otsu's method (Otsu 1979) on the evened image inside the field of view,
-    then moved half way between the background (median grey of the other class) and the
-    specimen's full-contrast grey (5th percentile of the foreground class, 95th when
-    bright), the level at which a blurred edge crosses half its contrast. Triangle (Zack et al. 1977) replaces
-    Otsu when the Otsu foreground is more than half the field, which happens when a
-    small specimen is drowned by background texture. Dish rim: a circular Hough
-    transform (Duda & Hart 1972) on Canny edges at reduced resolution, accepted when the
-    circle is supported by edges along most of its visible length. Ridge measure: the
-    larger Hessian eigenvalue minus the magnitude of the smaller, scale-normalised and
-    maximised over scales, a line measure in the spirit of Sato et al. (1998) and Frangi
-    et al. (1998). ``auto`` picks ridge when the photograph is a bright field on a dark
-    surround whose evened histogram is not bimodal (Otsu's separability below 0.6) and the
-    line measure finds an elongated network there. Ridge mode keeps line-measure values
-    more than 4 robust standard deviations (1.4826 MAD) above the median in the field.
+    Background: a quadratic surface fitted by least squares with iterative 3-sigma
+    clipping at reduced resolution, refitted on the background class alone, and divided
+    out at full resolution (lighting multiplies). Polarity: of the two Otsu classes of the
+    evened picture, the one filling the field's outer band is the background (a deposit
+    grows from the centre and stops short of the rim). Threshold: Otsu's method [1]_ on
+    the evened picture inside the field, moved half way between the background (median of
+    the other class) and the specimen's full-contrast grey (5th percentile of the Otsu
+    foreground, 95th when bright): the level at which a blurred edge crosses half its
+    contrast, i.e. where the true outline lies. Dish rim: a circular Hough transform [2]_
+    on Canny edges at reduced resolution, accepted when edges whose gradient points along
+    the radius line most of the circle's visible length and the disc holds detail beyond
+    noise. Ridge measure: the larger Hessian eigenvalue minus the magnitude of the
+    smaller, scale-normalised (sigma^2) and maximised over three scales, a line measure in
+    the spirit of [3]_ and [4]_; it keeps values more than 4 robust standard deviations
+    (1.4826 MAD) above the field's median. ``auto`` picks ridge when the photograph is a
+    bright field on a dark surround, its evened histogram is not bimodal (Otsu's
+    separability below 0.6), and the line measure finds an elongated network there.
 
     References
     ----------
     .. [1] N. Otsu, "A threshold selection method from gray-level histograms", IEEE Trans.
        Syst. Man Cybern. 9, 62-66 (1979).
-    .. [2] G. W. Zack, W. E. Rogers, S. A. Latt, "Automatic measurement of sister chromatid
-       exchange frequency", J. Histochem. Cytochem. 25, 741-753 (1977).
-    .. [3] R. O. Duda, P. E. Hart, "Use of the Hough transformation to detect lines and
+    .. [2] R. O. Duda, P. E. Hart, "Use of the Hough transformation to detect lines and
        curves in pictures", Commun. ACM 15, 11-15 (1972).
-    .. [4] Y. Sato et al., "Three-dimensional multi-scale line filter for segmentation and
+    .. [3] Y. Sato et al., "Three-dimensional multi-scale line filter for segmentation and
        visualization of curvilinear structures in medical images", Med. Image Anal. 2,
        143-168 (1998).
-    .. [5] A. F. Frangi et al., "Multiscale vessel enhancement filtering", MICCAI 1998,
+    .. [4] A. F. Frangi et al., "Multiscale vessel enhancement filtering", MICCAI 1998,
        LNCS 1496, 130-137.
     """
     if mode not in MODES:
@@ -203,7 +202,9 @@ def segment(
     }
     warnings: list[str] = []
 
-    background = _fit_background(small, small_fov)
+    # A plane cannot mimic a centred specimen the way a quadratic bump can, so the first
+    # evening, used to find the classes, is planar; the background is refitted later.
+    background = _fit_background(small, small_fov, degree=1)
     if mode == "auto":
         chosen, decision = _choose_mode(gray, rgb, small, small_fov, fov_kind, factor, background)
         settings["mode_decision"] = decision
@@ -321,6 +322,22 @@ def _find_field(small: np.ndarray, factor: int) -> tuple[_Field | None, str]:
     return None, "whole image"
 
 
+def _holds_structure(small: np.ndarray, inside: np.ndarray) -> bool:
+    """Whether the region holds local detail beyond noise (a field with a specimen in it).
+
+    A filled disc photographed alone would otherwise pass for a dish or a field of view:
+    its inside is flat, while a field holding a specimen has edges well above the noise.
+    """
+    if np.count_nonzero(inside) < 64:
+        return False
+    detail = small - ndimage.gaussian_filter(small, 2.0)
+    values = detail[inside]
+    centre = float(np.median(values))
+    # Reduced copies are nearly noiseless, so detail must also clear 2% of full scale.
+    limit = max(6.0 * _robust_sigma(values), 0.02)
+    return float(np.mean(np.abs(values - centre) > limit)) >= 0.002
+
+
 def _dark_surround_field(small: np.ndarray, factor: int) -> _Field | None:
     # Fundus cameras and microscopes image a bright disc on black: all four corners dark,
     # the centre much brighter. The field is the bright component, as an equal-area circle.
@@ -341,6 +358,8 @@ def _dark_surround_field(small: np.ndarray, factor: int) -> _Field | None:
     area = float(np.count_nonzero(main))
     if area < 0.2 * h * w:
         return None
+    if not _holds_structure(small, ndimage.binary_erosion(main, iterations=8)):
+        return None
     rows, cols = np.nonzero(main)
     # Shrink by two reduced pixels so the dark edge and its halo stay outside.
     r_small = math.sqrt(area / math.pi) - 2.0
@@ -360,54 +379,65 @@ def _dish_rim_field(small: np.ndarray, factor: int) -> _Field | None:
     if np.count_nonzero(edges) < 20:
         return None
     lo, hi = int(0.3 * min(th, tw)), int(0.62 * max(th, tw))
-    radii = np.arange(lo, hi + 1, 2)
+    radii = np.arange(lo, hi + 1)
     spaces = hough_circle(edges, radii, normalize=True, full_output=False)
     # Candidates: the best centre for every radius (the rim's circles are among them).
     best = spaces.reshape(len(radii), -1).argmax(axis=1)
     pcy, pcx = np.unravel_index(best, spaces.shape[1:])
     prad = radii
-    near = ndimage.binary_dilation(edges, structure=_EIGHT, iterations=1)
+    # Support: edge pixels (within one pixel) whose smoothed gradient points along the
+    # radius, as a rim's does; branches crossing a circle point every which way.
+    smooth = ndimage.gaussian_filter(tiny, 1.5)
+    g_r, g_c = ndimage.sobel(smooth, axis=0), ndimage.sobel(smooth, axis=1)
+    g_norm = np.hypot(g_r, g_c) + 1e-12
     angles = np.linspace(0.0, 2.0 * np.pi, 720, endpoint=False)
     accepted: list[tuple[float, float, float]] = []
     for x0, y0, r0 in zip(pcx, pcy, prad):
-        ys = np.rint(y0 + r0 * np.sin(angles)).astype(int)
-        xs = np.rint(x0 + r0 * np.cos(angles)).astype(int)
-        visible = (ys >= 0) & (ys < th) & (xs >= 0) & (xs < tw)
-        if visible.mean() < 0.6:
-            continue
-        support = near[ys[visible], xs[visible]].mean()
-        if support >= 0.6:
+        support = np.zeros(angles.size)
+        for dr in (-1.0, 0.0, 1.0):
+            ys = np.rint(y0 + (r0 + dr) * np.sin(angles)).astype(int)
+            xs = np.rint(x0 + (r0 + dr) * np.cos(angles)).astype(int)
+            visible = (ys >= 0) & (ys < th) & (xs >= 0) & (xs < tw)
+            yv, xv = np.clip(ys, 0, th - 1), np.clip(xs, 0, tw - 1)
+            radial = np.abs(g_r[yv, xv] * np.sin(angles) + g_c[yv, xv] * np.cos(angles)) / g_norm[yv, xv]
+            support = np.maximum(support, visible & edges[yv, xv] & (radial > 0.8))
+        if visible.mean() >= 0.6 and support[visible].mean() >= 0.6:
             accepted.append((float(y0), float(x0), float(r0)))
+    # The dish is the largest supported circle with a specimen inside; its rim is a band, so
+    # take the innermost supported circle concentric with it, and step a little further in.
+    yy, xx = np.ogrid[:th, :tw]
+    accepted = [c for c in accepted if _holds_structure(tiny, (yy - c[0]) ** 2 + (xx - c[1]) ** 2 <= (c[2] - 8.0) ** 2)]
     if not accepted:
         return None
-    # The dish is the largest supported circle; its rim is a band, so take the innermost
-    # supported circle concentric with it, and step a little further in past the band.
     y0, x0, r0 = max(accepted, key=lambda c: c[2])
     concentric = [c for c in accepted if math.hypot(c[0] - y0, c[1] - x0) <= 0.04 * r0 and c[2] >= 0.85 * r0]
     r_in = min(c[2] for c in concentric)
     scale = f2 * factor
-    margin = 0.025 * r_in * scale + 2.0 * scale
+    margin = 0.015 * r_in * scale + 1.5 * scale
     return _Field(y0 * scale + (scale - 1) / 2.0, x0 * scale + (scale - 1) / 2.0, r_in * scale - margin, "dish rim")
 
 
 # ----------------------------------------------------------------------------- background and threshold
 
 
-def _fit_background(small: np.ndarray, inside: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Quadratic background of ``small`` by 3-sigma clipped least squares; (coefficients, fitted small).
+def _fit_background(small: np.ndarray, inside: np.ndarray, degree: int = 2) -> tuple[np.ndarray, np.ndarray]:
+    """Plane or quadratic background of ``small`` by 3-sigma clipped least squares.
 
-    A quadratic has six coefficients, so the fit uses a sparse grid of about 16,000 points.
+    Returns the six quadratic coefficients (the last three zero for a plane) and the
+    fitted surface on the reduced grid. Six coefficients need few points, so the fit uses
+    a sparse grid of about 16,000.
     """
     h, w = small.shape
     y = np.linspace(-1.0, 1.0, h, dtype=np.float64)
     x = np.linspace(-1.0, 1.0, w, dtype=np.float64)
     step = max(1, math.ceil(math.sqrt(h * w / 16_000)))
     ys, xs = np.meshgrid(y[::step], x[::step], indexing="ij")
-    terms = np.stack([np.ones_like(ys), ys, xs, ys * ys, ys * xs, xs * xs], axis=-1).reshape(-1, 6)
+    n_terms = 6 if degree == 2 else 3
+    terms = np.stack([np.ones_like(ys), ys, xs, ys * ys, ys * xs, xs * xs][:n_terms], axis=-1).reshape(-1, n_terms)
     values = small[::step, ::step].astype(np.float64).ravel()
     inside_s = inside[::step, ::step].ravel()
     keep = inside_s.copy()
-    coef = np.array([float(np.median(values[inside_s])) if inside_s.any() else 0.5, 0, 0, 0, 0, 0])
+    coef = np.array([float(np.median(values[inside_s])) if inside_s.any() else 0.5] + [0.0] * (n_terms - 1))
     for _ in range(6):
         if np.count_nonzero(keep) < 12:
             break
@@ -418,6 +448,7 @@ def _fit_background(small: np.ndarray, inside: np.ndarray) -> tuple[np.ndarray, 
         if np.array_equal(new_keep, keep):
             break
         keep = new_keep
+    coef = np.concatenate([coef, np.zeros(6 - n_terms)])
     c = coef.astype(np.float32)
     yf, xf = y.astype(np.float32)[:, None], x.astype(np.float32)[None, :]
     fitted = (c[0] + c[1] * yf + c[3] * yf * yf) + (c[2] + c[4] * yf) * xf + c[5] * xf * xf
@@ -443,12 +474,41 @@ def _robust_sigma(values: np.ndarray) -> float:
     return 1.4826 * float(np.median(np.abs(values - np.median(values)))) + 1e-6
 
 
+def _outer_band(shape: tuple[int, int], fov: _Field | None, factor: int) -> np.ndarray:
+    """The field's outer band on the reduced grid: where a grown specimen rarely reaches."""
+    if fov is not None:
+        return _disc_mask(shape, fov, factor) & ~_disc_mask(shape, fov, factor, shrink_px=0.15 * fov.r)
+    band = np.zeros(shape, dtype=bool)
+    k = max(1, int(0.07 * min(shape)))
+    band[:k], band[-k:], band[:, :k], band[:, -k:] = True, True, True, True
+    return band
+
+
 def _threshold_mask(gray: np.ndarray, small: np.ndarray, small_fov: np.ndarray, fov: _Field | None, factor: int,
                     polarity: str, threshold: float | None,
                     background: tuple[np.ndarray, np.ndarray]) -> tuple[np.ndarray, dict[str, Any], float]:
-    from skimage.filters import threshold_otsu, threshold_triangle
+    from skimage.filters import threshold_otsu
 
-    coef, fitted = background
+    # Strategy: the first (planar, symmetrically clipped) fit follows whichever class fills
+    # most of the field; lighting multiplies both classes alike, so it evens the picture
+    # either way. Otsu then splits the evened picture; the class that fills the field's outer band is the
+    # background (a deposit grows from the centre and stops short of the rim), which gives
+    # the polarity; the background is refitted on that class alone and divided out.
+    _, fitted = background
+    evened_small = small / np.maximum(fitted, np.float32(0.02))
+    t_small = float(threshold_otsu(evened_small[small_fov], nbins=256))
+    high = evened_small >= t_small
+    if polarity == "auto":
+        band = _outer_band(small.shape, fov, factor) & small_fov
+        high_share = float(high[band].mean()) if band.any() else 1.0
+        chosen = "dark" if high_share >= 0.5 else "bright"
+        polarity_source = f"auto: {max(high_share, 1 - high_share):.0%} of the field's outer band is background"
+    else:
+        chosen, polarity_source = polarity, "given"
+    background_class = small_fov & (high if chosen == "dark" else ~high)
+    if np.count_nonzero(background_class) < 64:
+        background_class = small_fov
+    coef, fitted = _fit_background(small, background_class)
     floor = np.float32(max(0.02, 0.05 * float(np.median(fitted[small_fov]))))
     level = float(np.median(np.maximum(fitted[small_fov], floor)))
     # Evened image: gray * level / background, in place in the background buffer.
@@ -457,46 +517,27 @@ def _threshold_mask(gray: np.ndarray, small: np.ndarray, small_fov: np.ndarray, 
     np.divide(gray, even, out=even)
     even *= np.float32(level)
 
-    resid = (small / np.maximum(fitted, floor) * level)[small_fov] - level
-    sigma_small = _robust_sigma(resid)
-    if polarity == "auto":
-        dark = float(np.clip(-resid - 3.0 * sigma_small, 0.0, None).sum())
-        bright = float(np.clip(resid - 3.0 * sigma_small, 0.0, None).sum())
-        chosen = "dark" if dark >= bright else "bright"
-        polarity_source = f"auto (tail mass dark {dark:.3g}, bright {bright:.3g})"
-    else:
-        chosen, polarity_source = polarity, "given"
-
     step = max(1, int(math.sqrt(gray.size / 1_000_000)))
     sample = even[::step, ::step]
-    if fov is not None:
-        sample = sample[_disc_mask(sample.shape, fov, step)]
-    else:
-        sample = sample.ravel()
-    noise = _robust_sigma(sample[np.abs(sample - level) < 5.0 * sigma_small + 0.02]) if sample.size else 1e-6
-
+    sample = sample[_disc_mask(sample.shape, fov, step)] if fov is not None else sample.ravel()
     if threshold is not None:
         t, method = float(threshold), "given"
     else:
         t_otsu = float(threshold_otsu(sample, nbins=512))
         fg = sample < t_otsu if chosen == "dark" else sample > t_otsu
-        method = "otsu"
-        if fg.mean() > 0.5:
-            t_otsu = float(threshold_triangle(sample, nbins=512))
-            fg = sample < t_otsu if chosen == "dark" else sample > t_otsu
-            method = "triangle"
+        t, method = t_otsu, "otsu"
         if fg.any() and (~fg).any():
             # Half way between the background (median of the other class) and the specimen's
             # full-contrast level (5th percentile of the foreground, 95th when bright): the
             # level where a blurred edge crosses half its contrast, i.e. the drawn outline.
             full = float(np.percentile(sample[fg], 5.0 if chosen == "dark" else 95.0))
             t = 0.5 * (full + float(np.median(sample[~fg])))
-            method += ", moved to half contrast between background and specimen"
-        else:
-            t = t_otsu
-    fg_sel = sample < t if chosen == "dark" else sample > t
-    contrast = (abs(float(np.median(sample[fg_sel])) - float(np.median(sample[~fg_sel]))) / noise
-                if fg_sel.any() and (~fg_sel).any() else 0.0)
+            method = "otsu, moved to half contrast between background and specimen"
+    fg = sample < t if chosen == "dark" else sample > t
+    contrast = 0.0
+    if fg.any() and (~fg).any():
+        noise = _robust_sigma(sample[~fg])
+        contrast = abs(float(np.median(sample[fg])) - float(np.median(sample[~fg]))) / noise
 
     mask = even < np.float32(t) if chosen == "dark" else even > np.float32(t)
     del even
@@ -508,8 +549,8 @@ def _threshold_mask(gray: np.ndarray, small: np.ndarray, small_fov: np.ndarray, 
         "threshold": round(t, 4),
         "threshold_method": method,
         "threshold_scale": "grey level after evening the light (background at its median grey)",
-        "background": {"model": "quadratic surface, 3-sigma clipped least squares", "fitted_at_factor": factor,
-                       "median_grey": round(level, 4)},
+        "background": {"model": "quadratic surface, 3-sigma clipped least squares on the background class",
+                       "fitted_at_factor": factor, "median_grey": round(level, 4)},
         "contrast_to_noise": round(contrast, 2),
     }
     return mask, details, contrast
@@ -672,15 +713,18 @@ def _keep_specimen(mask: np.ndarray, seed_rc: tuple[float, float], keep_all: boo
         r_seed, c_seed = int(round(seed_rc[0])), int(round(seed_rc[1]))
         at_seed = labels[r_seed, c_seed] if 0 <= r_seed < h and 0 <= c_seed < w else 0
         if at_seed and big[at_seed]:
-            main = int(at_seed)
+            main = [int(at_seed)]
         else:
             # Nearest sizeable component, favouring large ones: size / (1 + distance / side)^2.
             score = np.where(big, sizes / (1.0 + dist / (0.1 * max(h, w))) ** 2, -1.0)
-            main = int(np.argmax(score))
-        # Reach of the main component from the seed, from its pixels' farthest distance.
-        main_idx = idx[lab == main]
+            main = [int(np.argmax(score))]
+        largest = int(np.argmax(sizes))
+        if sizes[largest] > 5 * sizes[main[0]]:
+            main.append(largest)  # the seed sat on a small blob (an electrode standing free)
+        # Reach of the main components from the seed: their farthest pixel.
+        main_idx = idx[np.isin(lab, main)]
         reach = float(np.sqrt(((main_idx // w - seed_rc[0]) ** 2 + (main_idx % w - seed_rc[1]) ** 2).max()))
-        keep = big & (sizes >= max(min_object_px, 0.002 * sizes[main])) & (dist <= 1.1 * reach + 1.0)
+        keep = big & (sizes >= max(min_object_px, 0.002 * sizes[largest])) & (dist <= 1.1 * reach + 1.0)
         keep[main] = True
     keep[0] = False
     kept = keep[labels]
@@ -716,10 +760,12 @@ def _find_electrode(mask: np.ndarray, seed_rc: tuple[float, float], width_px: fl
     crop = mask[r0: int(seed_rc[0]) + half, c0: int(seed_rc[1]) + half]
     if not crop.any():
         return None
-    dist = ndimage.distance_transform_edt(crop)
+    # Padding with background makes the crop's edge count as an edge: a blob cut by the
+    # window is not mistaken for a wider one.
+    dist = ndimage.distance_transform_edt(np.pad(crop, 1))[1:-1, 1:-1]
     peak = float(dist.max())
-    if peak < max(4.0, 1.25 * width_px):
-        return None
+    if peak < max(4.0, 1.25 * width_px) or peak > 0.06 * min(h, w):
+        return None  # as thin as the branches, or so wide that the specimen itself is compact
     core = dist >= 0.7 * peak
     labels, _ = ndimage.label(core)
     pr, pc = np.unravel_index(int(np.argmax(dist)), dist.shape)
@@ -735,15 +781,15 @@ def _warnings(mask: np.ndarray, rows: np.ndarray, cols: np.ndarray, center_rc: t
         out.append("the specimen touches the image frame: it may extend beyond the photograph")
     if fov is not None and mode == "threshold":
         reach = float(np.sqrt(((rows - fov.cy) ** 2 + (cols - fov.cx) ** 2).max()))
-        if reach >= fov.r - max(2.0 * width_px, 0.01 * fov.r):
+        if reach >= fov.r - 0.01 * fov.r - 2.0 * min(width_px, 0.02 * fov.r):
             out.append(f"the specimen touches the {'dish rim' if fov.source == 'dish rim' else 'field edge'}"
                        ": growth may have been cut off or the rim included")
     area = rows.size
     extent = float(np.sqrt(((rows - center_rc[0]) ** 2 + (cols - center_rc[1]) ** 2).max())) + 0.5
-    if area < 400 or extent < 10.0 * width_px:
+    fill = area / (math.pi * extent * extent)
+    if fill <= 0.5 and (area < 400 or extent < 10.0 * width_px):
         out.append(f"specimen too small: it spans {extent / max(width_px, 1e-9):.0f} branch widths, "
                    "too few scales for a dimension fit (at least 10 wanted)")
-    fill = area / (math.pi * extent * extent)
     field_area = float(np.count_nonzero(small_fov)) * factor * factor
     if mode == "threshold" and fill > 0.5:
         out.append(f"the mask fills {fill:.0%} of its bounding circle: a compact blob, probably not a branching pattern")
