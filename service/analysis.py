@@ -127,7 +127,7 @@ def analyze(
     if match:
         from service.match import match_features
 
-        matching = match_features(features, reference_set=reference_set)
+        matching = match_features(features, reference_set=reference_set, mask=seg.mask)
         warnings.extend(matching.pop("warnings", []))
     source_info = {
         "filename": filename,
