@@ -81,3 +81,15 @@ def median_branch_width_px(
     if on_skeleton.size == 0:
         on_skeleton = edt[mask]
     return float(max(1.0, np.median(local_width_px(on_skeleton))))
+
+
+def summed_area_table(mask: np.ndarray) -> np.ndarray:
+    """Summed-area table with a zero first row and column: ``T[r, c] = mask[:r, :c].sum()``.
+
+    int32 while the total fits (faster to build and read), int64 beyond.
+    """
+    dtype = np.int32 if mask.size < 2**31 - 1 else np.int64
+    table = np.zeros((mask.shape[0] + 1, mask.shape[1] + 1), dtype=dtype)
+    np.cumsum(mask, axis=0, dtype=dtype, out=table[1:, 1:])
+    np.cumsum(table[1:, 1:], axis=1, out=table[1:, 1:])
+    return table

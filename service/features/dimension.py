@@ -14,7 +14,12 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import stats
 
-from service.features._common import as_specimen_mask, crop_to_specimen, median_branch_width_px
+from service.features._common import (
+    as_specimen_mask,
+    crop_to_specimen,
+    median_branch_width_px,
+    summed_area_table,
+)
 
 #: Box sizes grow by this ratio; well below 2 so sets whose natural ratio is 3 (carpet,
 #: Vicsek, Koch) are sampled between their own levels, not only at powers of two.
@@ -133,14 +138,6 @@ def _t95(n_points: int) -> float:
     return float(stats.t.ppf(0.975, max(n_points - 2, 1)))
 
 
-def _integral_image(mask: np.ndarray) -> np.ndarray:
-    """Summed-area table with a leading zero row and column: ``I[r, c] = mask[:r, :c].sum()``."""
-    table = np.zeros((mask.shape[0] + 1, mask.shape[1] + 1), dtype=np.int64)
-    np.cumsum(mask, axis=0, dtype=np.int64, out=table[1:, 1:])
-    np.cumsum(table[1:, 1:], axis=1, out=table[1:, 1:])
-    return table
-
-
 def _occupied_boxes(table: np.ndarray, size: int, offset_r: int, offset_c: int) -> int:
     """Occupied boxes of side ``size`` on a grid shifted up-left by the given offsets.
 
@@ -226,33 +223,40 @@ def box_counting(
         if sizes.size == 0 or sizes[0] < 1:
             raise ValueError("sizes_px must be positive integers")
 
-    table = _integral_image(crop)
+    in_fit = (sizes >= lower * (1 - 1e-9)) & (sizes <= upper * (1 + 1e-9))
+    if in_fit.sum() < 3:
+        nearest = np.argsort(np.abs(np.log(sizes / np.sqrt(lower * upper))))[:3]
+        in_fit = np.zeros_like(in_fit)
+        in_fit[nearest] = True
+        warnings.append("box counting: fewer than three box sizes in the scaling range")
+
+    table = summed_area_table(crop)
     h, w = crop.shape
-    per_offset = np.empty((sizes.size, n_offsets * n_offsets), dtype=np.float64)
+    per_offset = np.empty((int(in_fit.sum()), n_offsets * n_offsets), dtype=np.float64)
     counts = np.empty(sizes.size, dtype=np.float64)
+    j = 0
     for i, size in enumerate(sizes):
         s = int(size)
+        if not in_fit[i]:
+            # Sizes outside the fit only draw the log-log plot: one grid is enough.
+            counts[i] = _occupied_boxes(table, s, 0, 0)
+            continue
         shifts = [(k * s) // n_offsets for k in range(n_offsets)]
-        per_offset[i] = [_occupied_boxes(table, s, sr, sc) for sr in shifts for sc in shifts]
+        per_offset[j] = [_occupied_boxes(table, s, sr, sc) for sr in shifts for sc in shifts]
         # Grids flush with the bottom or right edge of the bounding box as well: a
         # specimen that ends there (an anti-diagonal stroke) fits them best.
         flush = [
             _occupied_boxes(table, s, sr, sc)
-            for sr in (shifts[0], (-h) % s)
-            for sc in (shifts[0], (-w) % s)
+            for sr in (0, (-h) % s)
+            for sc in (0, (-w) % s)
             if (sr, sc) != (0, 0)
         ]
-        counts[i] = min(per_offset[i].min(), *flush) if flush else per_offset[i].min()
+        counts[i] = min([per_offset[j].min(), *flush])
+        j += 1
 
-    in_fit = (sizes >= lower * (1 - 1e-9)) & (sizes <= upper * (1 + 1e-9))
-    if in_fit.sum() < 3:
-        raise_fit = np.argsort(np.abs(np.log(sizes / np.sqrt(lower * upper))))[:3]
-        in_fit = np.zeros_like(in_fit)
-        in_fit[raise_fit] = True
-        warnings.append("box counting: fewer than three box sizes in the scaling range")
     log_s = np.log(sizes[in_fit].astype(float))
     slope, intercept, stderr, n = _line_fit(log_s, np.log(counts[in_fit]))
-    offset_slopes = [_line_fit(log_s, np.log(per_offset[in_fit, j]))[0] for j in range(per_offset.shape[1])]
+    offset_slopes = [_line_fit(log_s, np.log(per_offset[:, j]))[0] for j in range(per_offset.shape[1])]
     spread = float(np.std(offset_slopes, ddof=1)) if len(offset_slopes) > 1 else 0.0
     half = _t95(n) * float(np.hypot(stderr, spread))
     value = -slope
@@ -312,8 +316,9 @@ def mass_radius(
     if upper / lower < MIN_TRUSTED_SPAN:
         warnings.append(f"mass-radius: the scaling range {lower:.1f}-{upper:.1f} px spans less than one decade")
     radii = geometric_sizes(1, max(r_max, 2.0)).astype(float) if radii_px is None else np.asarray(radii_px, float)
-    distance.sort()
-    masses = np.searchsorted(distance, radii, side="right").astype(float)
+    # M(r) for every integer r from one histogram of ceil(distance), no sort needed.
+    cumulative = np.cumsum(np.bincount(np.ceil(distance).astype(np.int64)))
+    masses = cumulative[np.clip(np.floor(radii).astype(np.int64), 0, cumulative.size - 1)].astype(float)
     in_fit = (radii >= lower) & (radii <= upper) & (masses > 0)
     if in_fit.sum() < 3:
         in_fit = masses > 0
@@ -376,7 +381,7 @@ def sandbox(
     if upper / lower < MIN_TRUSTED_SPAN:
         warnings.append(f"sandbox: the scaling range {lower:.1f}-{upper:.1f} px spans less than one decade")
     half_sides = geometric_sizes(1, upper)
-    table = _integral_image(mask)
+    table = summed_area_table(mask)
     h, w = mask.shape
     r = half_sides[None, :]
     r0 = np.clip(centers[:, :1] - r, 0, h)

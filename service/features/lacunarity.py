@@ -6,7 +6,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from service.features._common import as_specimen_mask
+from service.features._common import as_specimen_mask, summed_area_table
 
 
 @dataclass(frozen=True)
@@ -83,17 +83,18 @@ def lacunarity(mask: np.ndarray, scales_px: np.ndarray | list[int] | None = None
         scales = np.unique(np.round(raw).astype(np.int64))
         if raw.ndim != 1 or scales.size == 0 or scales[0] < 1 or scales[-1] > min(h, w):
             raise ValueError(f"scales_px must be positive integers no larger than {min(h, w)}, got {scales_px!r}")
-    table = np.zeros((h + 1, w + 1), dtype=np.int64)
-    np.cumsum(mask, axis=0, dtype=np.int64, out=table[1:, 1:])
-    np.cumsum(table[1:, 1:], axis=1, out=table[1:, 1:])
+    table = summed_area_table(mask)
     values = np.empty(scales.size, dtype=np.float64)
+    buffer = np.empty(table.shape, dtype=table.dtype)
     for i, r in enumerate(scales):
-        mass = table[r:, r:] - table[:-r, r:]
+        mass = buffer[: h + 1 - r, : w + 1 - r]
+        np.subtract(table[r:, r:], table[:-r, r:], out=mass)
         mass -= table[r:, :-r]
         mass += table[:-r, :-r]
-        mean = mass.mean(dtype=np.float64)
+        mean = float(mass.sum(dtype=np.int64)) / mass.size
         # L = 1 + var / mean^2, with the variance from deviations: better conditioned
         # than E[M^2] - E[M]^2, and exactly 1 when every box holds the same mass.
-        deviation = (mass - mean).ravel()
+        deviation = mass.astype(np.float64).ravel()
+        deviation -= mean
         values[i] = 1.0 + float(deviation @ deviation) / deviation.size / (mean * mean) if mean > 0 else np.nan
     return LacunarityCurve(scales_px=scales, values=values)

@@ -75,9 +75,9 @@ def radial_profile(
     """Radius of gyration, bounding circle, area fraction, perimeter and radial density.
 
     Strategy: distances of the occupied pixels from the centre are binned into
-    ``n_annuli`` equal annuli; the number of all pixels per annulus comes from the
-    same binning of every pixel of the bounding square (clipped to the image), so the
-    density is exact for the pixel grid and needs no per-annulus loop.
+    ``n_annuli`` equal annuli; the number of image pixels per annulus comes from the
+    same binning of the pixels of the bounding square (clipped to the image, sampled
+    on a coarser grid when large), so there is no per-annulus loop.
 
     References
     ----------
@@ -100,13 +100,17 @@ def radial_profile(
     outer = max(r_max, 0.5)
     edges = np.linspace(0.0, outer, n_annuli + 1)
     occupied = np.bincount(np.minimum((distance / outer * n_annuli).astype(np.int64), n_annuli - 1), minlength=n_annuli)
+    # Pixels available per annulus (inside the image): every pixel of the bounding
+    # square when it is small, else a regular sample of it with stride ``step``
+    # (weight step^2), which keeps the count within about 1/256 of exact.
     h, w = mask.shape
+    step = max(1, int(outer // 256))
     r0, r1 = max(int(np.floor(center[0] - outer)), 0), min(int(np.ceil(center[0] + outer)) + 1, h)
     c0, c1 = max(int(np.floor(center[1] - outer)), 0), min(int(np.ceil(center[1] + outer)) + 1, w)
-    rr, cc = np.ogrid[r0:r1, c0:c1]
+    rr, cc = np.ogrid[r0:r1:step, c0:c1:step]
     all_d = np.hypot(rr - center[0], cc - center[1])
     inside = all_d <= outer
-    available = np.bincount(
+    available = step * step * np.bincount(
         np.minimum((all_d[inside] / outer * n_annuli).astype(np.int64), n_annuli - 1), minlength=n_annuli
     )
     density = np.divide(occupied, available, out=np.zeros(n_annuli), where=available > 0)

@@ -20,8 +20,8 @@ from service.features._common import as_specimen_mask, crop_to_specimen, local_w
 
 #: A terminal branch shorter than this many local widths (at its junction) is a spur.
 PRUNE_WIDTHS = 1.5
-#: Two junctions joined by a branch shorter than this many local widths are one junction.
-MERGE_WIDTHS = 1.0
+#: Two adjacent junctions whose centres are closer than this many local widths are one.
+MERGE_WIDTHS = 0.5
 
 _NEIGHBOURS = np.array([(-1, 0), (0, -1), (0, 1), (1, 0), (-1, -1), (-1, 1), (1, -1), (1, 1)], dtype=np.int64)
 
@@ -156,6 +156,42 @@ def _trace_branches(skeleton, node_label, neighbours):  # pragma: no cover - com
 _LENGTH_SMOOTHING_PX = 5
 
 
+@numba.njit(cache=True)
+def _smoothed_length(path, window):  # pragma: no cover - compiled
+    """Length of the polyline through the running means of ``window`` path pixels.
+
+    Caller guarantees: ``path`` is an (N, 2) integer array, N >= 1; ``window`` >= 1.
+    The first and last pixels are kept as they are.
+    """
+    n = path.shape[0]
+    if n < 2:
+        return 0.0
+    if n <= window:
+        total = 0.0
+        for i in range(1, n):
+            total += np.hypot(path[i, 0] - path[i - 1, 0], path[i, 1] - path[i - 1, 1])
+        return total
+    sum_r = 0.0
+    sum_c = 0.0
+    for i in range(window):
+        sum_r += path[i, 0]
+        sum_c += path[i, 1]
+    prev_r = float(path[0, 0])
+    prev_c = float(path[0, 1])
+    total = 0.0
+    for i in range(window, n + 1):
+        mr = sum_r / window
+        mc = sum_c / window
+        total += np.hypot(mr - prev_r, mc - prev_c)
+        prev_r = mr
+        prev_c = mc
+        if i < n:
+            sum_r += path[i, 0] - path[i - window, 0]
+            sum_c += path[i, 1] - path[i - window, 1]
+    total += np.hypot(path[n - 1, 0] - prev_r, path[n - 1, 1] - prev_c)
+    return total
+
+
 def _path_length_px(path: np.ndarray) -> float:
     """Arc length of a pixel path, free of most of the staircase excess.
 
@@ -168,14 +204,7 @@ def _path_length_px(path: np.ndarray) -> float:
     .. [1] Z. Kulpa, "Area and perimeter measurement of blobs in discrete binary
        pictures", Comput. Graph. Image Process. 6, 434 (1977).
     """
-    p = path.astype(float)
-    k = _LENGTH_SMOOTHING_PX
-    if len(p) > k:
-        kernel = np.ones(k) / k
-        inner = np.column_stack([np.convolve(p[:, 0], kernel, "valid"), np.convolve(p[:, 1], kernel, "valid")])
-        p = np.vstack([p[:1], inner, p[-1:]])
-    steps = np.diff(p, axis=0)
-    return float(np.hypot(steps[:, 0], steps[:, 1]).sum())
+    return float(_smoothed_length(path, _LENGTH_SMOOTHING_PX))
 
 
 @dataclass
@@ -183,10 +212,10 @@ class _Branch:
     a: int
     b: int
     path: np.ndarray  # (N, 2) int pixel path from node a to node b
+    length_px: float = field(init=False)
 
-    @property
-    def length_px(self) -> float:
-        return _path_length_px(self.path)
+    def __post_init__(self) -> None:
+        self.length_px = _path_length_px(self.path)
 
 
 class _Graph:
@@ -195,7 +224,10 @@ class _Graph:
     def __init__(self, branches: list[_Branch], node_pixels: dict[int, np.ndarray], width: np.ndarray):
         self.branches = dict(enumerate(branches))
         self.node_pixels = node_pixels
-        self.width = width
+        # Width at a node: the widest point of its own pixels, fixed at creation (merged
+        # nodes keep the larger), so merging cannot make a junction swallow its neighbours.
+        self.node_width = {n: float(width[px[:, 0], px[:, 1]].max()) for n, px in node_pixels.items()}
+        self.node_center = {n: px.mean(axis=0) for n, px in node_pixels.items()}
         self.incident: dict[int, list[int]] = {n: [] for n in node_pixels}
         for k, br in self.branches.items():
             self.incident[br.a].append(k)
@@ -213,8 +245,7 @@ class _Graph:
         return len(self.incident[node])
 
     def node_width_px(self, node: int) -> float:
-        px = self.node_pixels[node]
-        return float(self.width[px[:, 0], px[:, 1]].max())
+        return self.node_width[node]
 
     def remove_branch(self, k: int) -> None:
         br = self.branches.pop(k)
@@ -224,6 +255,8 @@ class _Graph:
     def remove_node(self, node: int) -> None:
         del self.incident[node]
         del self.node_pixels[node]
+        del self.node_width[node]
+        del self.node_center[node]
 
     def prune_spurs(self, prune_widths: float) -> int:
         spurs = []
@@ -240,18 +273,35 @@ class _Graph:
         return len(spurs)
 
     def merge_close_junctions(self, merge_widths: float) -> int:
+        """Fuse each junction into a wider neighbour whose centre is within reach.
+
+        A junction is fused into an adjacent, wider junction when its centre lies within
+        ``merge_widths`` widths of the wider one's (with the default half width: inside
+        its largest inscribed disc), i.e. both are one thick junction drawn twice by
+        thinning. The wider junction keeps its place and width, so fusions cannot chain
+        across a mesh of small pores.
+        """
         merged = 0
-        for k in list(self.branches):
+        candidates = []
+        for k, br in self.branches.items():
+            if br.a == br.b:
+                if br.length_px < 2 * merge_widths * self.node_width_px(br.a):
+                    candidates.append((np.inf, k))  # a pixel loop inside one junction
+                continue
+            if self.degree(br.a) >= 3 and self.degree(br.b) >= 3:
+                candidates.append((max(self.node_width_px(br.a), self.node_width_px(br.b)), k))
+        for _, k in sorted(candidates, reverse=True):
             br = self.branches.get(k)
-            if br is not None and br.a == br.b and br.length_px < merge_widths * self.node_width_px(br.a):
-                self.remove_branch(k)  # a pixel loop inside one junction
+            if br is None:
+                continue
+            if br.a == br.b:
+                self.remove_branch(k)
                 merged += 1
                 continue
-            if br is None or br.a == br.b or self.degree(br.a) < 3 or self.degree(br.b) < 3:
+            keep, gone = (br.a, br.b) if self.node_width_px(br.a) >= self.node_width_px(br.b) else (br.b, br.a)
+            gap = float(np.hypot(*(self.node_center[keep] - self.node_center[gone])))
+            if gap >= merge_widths * self.node_width_px(keep):
                 continue
-            if br.length_px >= merge_widths * max(self.node_width_px(br.a), self.node_width_px(br.b)):
-                continue
-            keep, gone = br.a, br.b
             self.remove_branch(k)
             for j in self.incident[gone]:
                 other = self.branches[j]
@@ -260,7 +310,6 @@ class _Graph:
                 if other.b == gone:
                     other.b = keep
                 self.incident[keep].append(j)
-            self.node_pixels[keep] = np.vstack([self.node_pixels[keep], self.node_pixels[gone], br.path])
             self.remove_node(gone)
             merged += 1
         return merged
@@ -435,25 +484,25 @@ def _horton_strahler(graph: _Graph, node_rc: dict[int, np.ndarray], root_rc: np.
     from the leaves up (a node takes its children's largest order, plus one when two or
     more children share it); streams are maximal runs of one order, followed top-down.
     """
-    multigraph = nx.MultiGraph()
-    multigraph.add_nodes_from(graph.incident)
     shortest: dict[tuple[int, int], int] = {}
     for k, br in graph.branches.items():
         if br.a == br.b:
             continue
-        multigraph.add_edge(br.a, br.b)
         pair = (min(br.a, br.b), max(br.a, br.b))
         if pair not in shortest or br.length_px < graph.branches[shortest[pair]].length_px:
             shortest[pair] = k
+    simple_graph = nx.Graph()  # parallel branches and loops only close cycles: drop them
+    simple_graph.add_nodes_from(graph.incident)
+    simple_graph.add_edges_from(shortest)
     stream_lengths: dict[int, list[float]] = {}
     angles: list[float] = []
-    for component in nx.connected_components(multigraph):
+    for component in nx.connected_components(simple_graph):
         if len(component) < 2:
             continue
         nodes = list(component)
         coords = np.array([node_rc[n] for n in nodes])
         root = nodes[int(np.argmin(((coords - root_rc) ** 2).sum(axis=1)))]
-        tree = nx.bfs_tree(multigraph, root)
+        tree = nx.bfs_tree(simple_graph, root)
         top_down = list(nx.topological_sort(tree))
         order: dict[int, int] = {}
         for node in reversed(top_down):
@@ -575,7 +624,7 @@ def skeleton_graph(
             break
 
     offset = np.array([r0, c0])
-    node_rc = {n: px.mean(axis=0) for n, px in graph.node_pixels.items()}
+    node_rc = graph.node_center
     degrees = {n: graph.degree(n) for n in graph.incident}
     tips_rc = np.array([graph.node_pixels[n][0] for n, d in degrees.items() if d == 1], dtype=np.int64).reshape(-1, 2)
     junctions_rc = np.array(
