@@ -35,6 +35,8 @@ _SMALL_SIDE_PX = 512
 # Long side of the copy used for the Hough search of the dish rim.
 _HOUGH_SIDE_PX = 192
 _EIGHT = np.ones((3, 3), dtype=bool)
+# The specimen's full-contrast grey: this percentile of the Otsu foreground (from the far end).
+_FULL_CONTRAST_PERCENTILE = 15.0
 # Ridge mode keeps line-measure values this many robust standard deviations above the median.
 _RIDGE_NOISE_LEVELS = 4.0
 _OUTLINE_RGB = (255, 0, 255)
@@ -141,8 +143,8 @@ def segment(
     evened picture, the one filling the field's outer band is the background (a deposit
     grows from the centre and stops short of the rim). Threshold: Otsu's method [1]_ on
     the evened picture inside the field, moved half way between the background (median of
-    the other class) and the specimen's full-contrast grey (5th percentile of the Otsu
-    foreground, 95th when bright): the level at which a blurred edge crosses half its
+    the other class) and the specimen's full-contrast grey (15th percentile of the Otsu
+    foreground, 85th when bright): the level at which a blurred edge crosses half its
     contrast, i.e. where the true outline lies. Dish rim: a circular Hough transform [2]_
     on Canny edges at reduced resolution, accepted when edges whose gradient points along
     the radius line most of the circle's visible length and the disc holds detail beyond
@@ -528,9 +530,11 @@ def _threshold_mask(gray: np.ndarray, small: np.ndarray, small_fov: np.ndarray, 
         t, method = t_otsu, "otsu"
         if fg.any() and (~fg).any():
             # Half way between the background (median of the other class) and the specimen's
-            # full-contrast level (5th percentile of the foreground, 95th when bright): the
+            # full-contrast level (15th percentile of the foreground, 85th when bright): the
             # level where a blurred edge crosses half its contrast, i.e. the drawn outline.
-            full = float(np.percentile(sample[fg], 5.0 if chosen == "dark" else 95.0))
+            # A percentile this far in keeps a brighter electrode or glint from setting it.
+            q = _FULL_CONTRAST_PERCENTILE
+            full = float(np.percentile(sample[fg], q if chosen == "dark" else 100.0 - q))
             t = 0.5 * (full + float(np.median(sample[~fg])))
             method = "otsu, moved to half contrast between background and specimen"
     fg = sample < t if chosen == "dark" else sample > t
