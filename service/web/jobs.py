@@ -76,31 +76,24 @@ def _reference_set_or_reason(library_dir: str | None):
     A missing or damaged reference set must not cost the user the measurements; the
     analysis then carries no matching section and says why in its warnings.
     """
-    import importlib
-
-    if not hasattr(importlib.import_module("service.match"), "match_features"):
-        return None, "not ranked: this installation has no matcher (service.match.match_features)"
     try:
         return _reference_set(library_dir), None
     except LibraryError as exc:
         return None, f"not ranked against the reference library: {exc}"
 
 
-def reference_distributions(analysis: dict[str, Any]) -> list[dict[str, Any]]:
-    """Per-feature reference values by regime, when the matching section carries them."""
-    found = analysis.get("reference_distributions")
-    return found if isinstance(found, list) else []
+def _family_name(match: dict[str, Any] | None) -> str | None:
+    if not match:
+        return None
+    params = ", ".join(f"{k}={v}" for k, v in (match.get("parameters") or {}).items())
+    return f"{match.get('regime')} ({params})" if params else str(match.get("regime"))
 
 
-def _specimen_values(features: dict[str, Any], names: list[str]) -> dict[str, float]:
-    flat: dict[str, float] = {}
-    for name in names:
-        node: Any = features
-        for part in name.split("."):
-            node = node.get(part) if isinstance(node, dict) else None
-        if isinstance(node, (int, float)) and not isinstance(node, bool):
-            flat[name] = float(node)
-    return flat
+def matcher_rows(analysis: dict[str, Any]) -> list[dict[str, Any]]:
+    """The matcher's per-feature rows (``explanation.all_features``), or [] when unranked."""
+    explanation = analysis.get("explanation")
+    rows = explanation.get("all_features") if isinstance(explanation, dict) else None
+    return rows if isinstance(rows, list) else []
 
 
 def run_analysis(data: bytes, options: AnalysisOptions) -> dict[str, Any]:
@@ -140,13 +133,29 @@ def run_analysis(data: bytes, options: AnalysisOptions) -> dict[str, Any]:
         "box_counting.svg": plots.box_counting_svg(analysis["features"].get("box_dimension", {})),
         "lacunarity.svg": plots.lacunarity_svg(analysis["features"].get("lacunarity", {})),
     }
-    distributions = reference_distributions(analysis)
-    if distributions:
-        names = [d["feature"] for d in distributions if "feature" in d]
+    rows = matcher_rows(analysis)
+    if rows:
+        explanation = analysis["explanation"]
         files["references.svg"] = plots.reference_distributions_svg(
-            distributions, _specimen_values(analysis["features"], names)
+            rows, _family_name(explanation.get("best")) or "best match", _family_name(explanation.get("runner_up"))
         )
     return {"analysis": analysis, "files": files}
+
+
+def matcher_distances(vectors: list[list[float]], library_dir: str | None) -> list[list[float]]:
+    """Mahalanobis distances between specimens in the matcher's feature space.
+
+    The metric is the reference model's within-ensemble covariance averaged over its
+    families: the spread the matcher itself expects between clusters grown alike.
+    """
+    from service.match import reference_model
+
+    model = reference_model(_reference_set(library_dir))
+    inverse = np.linalg.inv(model.statistics.covariance.mean(axis=0))
+    x = np.asarray(vectors, dtype=float)
+    diff = x[:, None, :] - x[None, :, :]
+    d2 = np.einsum("ijk,kl,ijl->ij", diff, inverse, diff)
+    return np.sqrt(np.maximum(d2, 0.0)).tolist()
 
 
 class AnalysisPool:

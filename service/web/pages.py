@@ -19,7 +19,7 @@ from service.web import plots
 from service.web.api import file_url, summary
 from service.web.deps import current_lab, get_pool, get_settings, get_store
 from service.web.demo import DEMO_FILENAME, DEMO_LABEL, DEMO_STORY, ensure_demo_jpeg
-from service.web.jobs import AnalysisPool
+from service.web.jobs import AnalysisPool, matcher_distances, matcher_rows
 from service.web.references import ensembles_for_matches, reference_set_or_error
 from service.web.settings import Settings
 
@@ -92,6 +92,29 @@ def _numeric_features(record: SpecimenRecord) -> dict[str, int | float]:
     return out
 
 
+def _family(match: dict[str, Any] | None) -> str:
+    if not match:
+        return "–"
+    params = ", ".join(f"{k} = {_sig(v, 3)}" for k, v in (match.get("parameters") or {}).items())
+    return f"{match.get('regime')} ({params})" if params else str(match.get("regime"))
+
+
+def deciding_in_words(explanation: dict[str, Any]) -> list[str]:
+    """One sentence per deciding feature: the specimen's value against the two best families."""
+    best, runner = _family(explanation.get("best")), _family(explanation.get("runner_up"))
+    sentences = []
+    for row in explanation.get("deciding_features") or []:
+        b, r = row.get("best") or {}, row.get("runner_up")
+        text = (f"{row.get('description') or row.get('feature')}: this specimen {_sig(row.get('value'), 3)}; "
+                f"{best} expects {_sig(b.get('mean'), 3)} ± {_sig(b.get('sd'), 2)} ({b.get('z', 0):+.1f} sd)")
+        if r:
+            text += f", {runner} expects {_sig(r.get('mean'), 3)} ± {_sig(r.get('sd'), 2)} ({r.get('z', 0):+.1f} sd)"
+        if row.get("weight_of_evidence") is not None:
+            text += f" - {row['weight_of_evidence']:.1f} nats in favour of the best match"
+        sentences.append(text + ".")
+    return sentences
+
+
 @router.get("/", response_class=HTMLResponse)
 async def upload_page(request: Request, settings: Settings = Depends(get_settings)) -> HTMLResponse:
     return _page(request, "upload.html", max_upload_mb=settings.max_upload_mb,
@@ -139,8 +162,10 @@ async def report_page(
             nearest = []
     files = {name: file_url(record, name) for name in record.files}
     measurements = [(k, v) for k, v in flatten("", analysis.get("features", {})) if v is not None]
+    explanation = analysis.get("explanation") if isinstance(analysis.get("explanation"), dict) else {}
     return _page(request, "report.html", record=record, a=analysis, files=files, matches=matches,
-                 nearest=nearest, measurements=measurements, cautions=cautions_for(record.kind))
+                 nearest=nearest, measurements=measurements, cautions=cautions_for(record.kind),
+                 explanation=explanation, deciding=deciding_in_words(explanation))
 
 
 def standardised_distances(
@@ -180,6 +205,8 @@ async def compare_page(
     request: Request,
     ids: Annotated[list[str], Query(max_length=12)] = [],  # noqa: B006 - FastAPI reads the default
     store: Store = Depends(get_store),
+    pool: AnalysisPool = Depends(get_pool),
+    settings: Settings = Depends(get_settings),
     lab: str | None = Depends(current_lab),
 ) -> HTMLResponse:
     records = await run_in_threadpool(store.get_many, ids, owner=lab) if ids else []
@@ -193,10 +220,32 @@ async def compare_page(
         values = [_numeric_features(r) for r in records]
         keys = list(dict.fromkeys(k for v in values for k in v))
         context["rows"] = [(k, [v.get(k) for v in values]) for k in keys]
-        population, _ = await run_in_threadpool(store.list, owner=lab, limit=2000)
-        matrix, used, n_population = standardised_distances(records, population)
-        context["distance"] = {"matrix": matrix, "features": used, "population": n_population, "names": names}
+        context["distance"] = {"names": names, **await _distances(records, store, lab, pool, settings)}
     return _page(request, "compare.html", **context)
+
+
+def _matcher_vector(record: SpecimenRecord) -> tuple[tuple, list[float]] | None:
+    """(feature names and schema, values) the matcher compared, or None when unranked."""
+    rows = matcher_rows(record.analysis)
+    if not rows or any(not isinstance(r.get("value"), (int, float)) for r in rows):
+        return None
+    schema = (record.analysis.get("explanation") or {}).get("references", {}).get("feature_schema")
+    return (schema, *(r["feature"] for r in rows)), [float(r["value"]) for r in rows]
+
+
+async def _distances(records, store: Store, lab, pool: AnalysisPool, settings: Settings) -> dict[str, Any]:
+    """Distances in the matcher's feature space when every specimen was ranked, else standardised."""
+    vectors = [_matcher_vector(r) for r in records]
+    if all(vectors) and len({v[0] for v in vectors}) == 1:
+        library_dir = str(settings.library_dir) if settings.library_dir else None
+        try:
+            matrix = await pool.run(matcher_distances, [v[1] for v in vectors], library_dir)
+            return {"kind": "matcher", "matrix": matrix, "features": list(vectors[0][0][1:])}
+        except LibraryError:
+            pass  # the library is gone or damaged: fall back to the stored specimens' spread
+    population, _ = await run_in_threadpool(store.list, owner=lab, limit=2000)
+    matrix, used, n_population = standardised_distances(records, population)
+    return {"kind": "standardised", "matrix": matrix, "features": used, "population": n_population}
 
 
 @router.get("/library", response_class=HTMLResponse)

@@ -113,33 +113,44 @@ def lacunarity_svg(lacunarity: Mapping[str, Any]) -> bytes:
     return _svg(fig)
 
 
-def reference_distributions_svg(
-    distributions: Sequence[Mapping[str, Any]], specimen: Mapping[str, float]
-) -> bytes:
-    """One panel per feature: each regime's reference values as a box, the specimen as a line.
+def reference_distributions_svg(rows: Sequence[Mapping[str, Any]], best: str, runner_up: str | None) -> bytes:
+    """One panel per matcher feature: the best and runner-up families as the matcher models
+    them (Gaussian, mean and sd at the specimen's size) and the specimen's value as a line.
 
-    ``distributions`` entries: ``{"feature", "label"?, "groups": [{"name", "values"}]}``;
-    ``specimen`` maps a feature name to the specimen's value.
+    ``rows`` are ``explanation.all_features`` of the analysis JSON: ``feature``, ``value``,
+    ``best`` and ``runner_up`` (each ``{"mean", "sd", "z"}``).
     """
-    n = max(len(distributions), 1)
-    cols = min(n, 3)
-    rows = -(-n // cols)
+    rows = [r for r in rows if r.get("value") is not None and r.get("best")]
+    n = max(len(rows), 1)
+    cols = min(n, 4)
+    n_rows = -(-n // cols)
     with matplotlib.rc_context(_RC):
-        fig = Figure(figsize=(3.0 * cols, 2.4 * rows), layout="constrained")
-        axes = fig.subplots(rows, cols, squeeze=False).ravel()
-    for ax, dist in zip(axes, distributions):
-        groups = [g for g in dist.get("groups", []) if len(g.get("values", [])) > 0]
-        if groups:
-            ax.boxplot([np.asarray(g["values"], dtype=float) for g in groups], orientation="horizontal",
-                       tick_labels=[str(g["name"]) for g in groups], widths=0.6,
-                       medianprops={"color": FIT}, flierprops={"markersize": 2})
-        value = specimen.get(dist["feature"])
-        if value is not None and np.isfinite(value):
-            ax.axvline(value, color=SPECIMEN, linewidth=2, label="this specimen")
-        ax.set_title(dist.get("label", dist["feature"]), loc="left", color=INK, fontsize=9)
-        _style(ax)
-    for ax in axes[len(distributions):]:
+        fig = Figure(figsize=(2.6 * cols, 1.9 * n_rows + 0.4), layout="constrained")
+        axes = fig.subplots(n_rows, cols, squeeze=False).ravel()
+    for ax, row in zip(axes, rows):
+        families = [(best, row["best"], FIT)]
+        if runner_up and row.get("runner_up"):
+            families.append((runner_up, row["runner_up"], "#8a949c"))
+        spans = [(f["mean"], f["sd"]) for _, f, _ in families if f.get("sd") and np.isfinite(f["sd"]) and f["sd"] > 0]
+        lo = min([m - 4 * sd for m, sd in spans] + [row["value"]])
+        hi = max([m + 4 * sd for m, sd in spans] + [row["value"]])
+        x = np.linspace(lo - 0.05 * (hi - lo + 1e-9), hi + 0.05 * (hi - lo + 1e-9), 200)
+        for name, family, colour in families:
+            sd = family.get("sd")
+            if sd and np.isfinite(sd) and sd > 0:
+                pdf = np.exp(-0.5 * ((x - family["mean"]) / sd) ** 2) / (sd * np.sqrt(2 * np.pi))
+                ax.fill_between(x, pdf, color=colour, alpha=0.25, linewidth=0)
+                ax.plot(x, pdf, color=colour, linewidth=1, label=name)
+        ax.axvline(row["value"], color=SPECIMEN, linewidth=2, label="this specimen")
+        ax.set_yticks([])
+        ax.spines["left"].set_visible(False)
+        ax.set_title(row["feature"], loc="left", color=INK, fontsize=8)
+        ax.tick_params(labelsize=7)
+    for ax in axes[len(rows):]:
         ax.set_visible(False)
+    if rows:
+        handles, labels = axes[0].get_legend_handles_labels()
+        fig.legend(handles, labels, loc="outside lower center", ncols=len(labels), frameon=False, fontsize=8)
     return _svg(fig)
 
 

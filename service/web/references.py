@@ -21,22 +21,19 @@ def reference_set_or_error(settings: Settings):
 
 
 def ensembles_for_matches(references, matches: list[dict[str, Any]], limit: int = 4) -> list[dict[str, Any]]:
-    """The reference ensembles behind the best matches, for thumbnails on the report.
+    """The reference ensembles nearest the specimen, for thumbnails on the report.
 
-    A match names an ensemble by ``ensemble_id`` when the matcher gives one, else by its
-    regime and parameters.
+    Each match names the ensembles its family was interpolated between (``ensembles``:
+    ``{"id", "weight"}``); the heaviest of each of the best ``limit`` matches is shown.
     """
+    known = {e.id: e for e in references.ensembles}
     out = []
     for match in matches[:limit]:
-        ensemble = None
-        for e in references.ensembles:
-            if match.get("ensemble_id") == e.id or (
-                e.regime == match.get("regime") and dict(e.parameters) == dict(match.get("parameters") or {})
-            ):
-                ensemble = e
-                break
-        if ensemble is not None:
-            out.append({"id": ensemble.id, "regime": ensemble.regime, "parameters": dict(ensemble.parameters),
-                        "probability": match.get("probability"),
-                        "thumbnail_url": f"/api/references/{ensemble.id}/thumbnail.png"})
+        weighted = sorted(match.get("ensembles") or [], key=lambda e: -float(e.get("weight", 0)))
+        ensemble = next((known[e["id"]] for e in weighted if e.get("id") in known), None)
+        if ensemble is None:
+            continue
+        out.append({"id": ensemble.id, "regime": ensemble.regime, "parameters": dict(ensemble.parameters),
+                    "n_particles": ensemble.n_particles, "probability": match.get("probability"),
+                    "thumbnail_url": f"/api/references/{ensemble.id}/thumbnail.png"})
     return out

@@ -31,12 +31,22 @@ def dla_png() -> bytes:
     return specimen_png(1)
 
 
+@pytest.fixture(scope="session")
+def tiny_library(tmp_path_factory):
+    """The "tiny" reference set (every regime, 200 sites, 2 realisations), grown once per session."""
+    from service.library import build_library
+
+    out = tmp_path_factory.mktemp("library") / "tiny"
+    build_library("tiny", out, workers=1, progress=False)
+    return out
+
+
 def make_client(tmp_path, **overrides) -> TestClient:
-    settings = Settings(data_dir=tmp_path / "data", workers=0, **overrides)
+    settings = Settings(**{"data_dir": tmp_path / "data", "workers": 0, **overrides})
     return TestClient(create_app(settings))
 
 
 @pytest.fixture
-def client(tmp_path):
-    with make_client(tmp_path) as c:
+def client(tmp_path, tiny_library):
+    with make_client(tmp_path, library_dir=tiny_library) as c:
         yield c

@@ -11,6 +11,7 @@ import pytest
 from PIL import Image
 
 from service.analysis import analyze
+from service.simulate import REGIMES
 from service.web.jobs import json_safe
 from tests.web.conftest import make_client, specimen_png
 
@@ -34,6 +35,9 @@ def test_upload_read_list_export_delete(client, dla_png):
     for key in ("ramiform_version", "source", "image", "calibration", "segmentation", "features"):
         assert body[key] == expected[key], key
     assert body["calibration"] == {"pixel_size_mm": 0.02, "source": "user", "calibrated": True}
+    # ranked against the configured library: every family, posterior probabilities summing to 1
+    assert {m["regime"] for m in body["matches"]} <= set(REGIMES)
+    assert sum(m["probability"] for m in body["matches"]) == pytest.approx(1.0)
 
     # stored files: the mask is the segmentation bit for bit, pictures decode, plots are SVG
     files = body["files"]
@@ -124,6 +128,19 @@ def test_health_and_openapi(client):
     assert client.get("/redoc").status_code == 404
 
 
+def test_references_list_the_library(client, tiny_library):
+    from service.library import load_reference_set
+
+    listed = client.get("/api/references").json()
+    library = load_reference_set(tiny_library)
+    assert [e["id"] for e in listed["ensembles"]] == [e.id for e in library.ensembles]
+    assert listed["regimes"] == sorted({e.regime for e in library.ensembles})
+    first = listed["ensembles"][0]
+    thumbnail = client.get(first["thumbnail_url"])
+    assert thumbnail.content == library.thumbnail_bytes(first["id"])
+    assert client.get("/api/references/no-such-ensemble/thumbnail.png").status_code == 404
+
+
 def test_two_instances_share_one_store(tmp_path, dla_png):
     # Two apps on one database and one data folder, as behind a proxy: no state in a process.
     with make_client(tmp_path) as one, make_client(tmp_path) as two:
@@ -146,3 +163,27 @@ def test_api_keys_scope_specimens_to_a_lab(tmp_path, dla_png):
         assert c.get("/api/specimens", headers=b).json()["total"] == 0
         assert c.delete(f"/api/specimens/{sid}", headers=b).status_code == 404
         assert c.get("/api/health").status_code == 200
+
+
+def test_analyses_run_in_worker_processes_while_the_service_answers(tmp_path):
+    import concurrent.futures
+    import threading
+    import time
+
+    big = specimen_png(4, n_particles=3000, size_px=1400)
+    with make_client(tmp_path, workers=1) as c:
+        pool = c.app.state.pool._executor
+        assert isinstance(pool, concurrent.futures.ProcessPoolExecutor)
+        c.get("/api/health")
+        answers: list = []
+        worker = threading.Thread(target=lambda: answers.append(_upload(c, big)))
+        worker.start()
+        latencies = []
+        while worker.is_alive():
+            start = time.perf_counter()
+            assert c.get("/api/health").status_code == 200
+            latencies.append(time.perf_counter() - start)
+            time.sleep(0.05)
+        worker.join()
+        assert answers[0].status_code == 201, answers[0].text
+        assert len(latencies) >= 3 and max(latencies) < 1.0  # issue 6: health within a second under load

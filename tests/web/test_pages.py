@@ -29,6 +29,10 @@ def test_report_page_shows_pictures_numbers_and_cautions(client, dla_png):
         assert f'src="{body["files"][name]}"' in html
         assert client.get(body["files"][name]).status_code == 200
     assert f'{body["features"]["box_dimension"]["value"]:.3f}' in html
+    # the ranking: regimes, the deciding features in words, the specimen on the reference distributions
+    assert body["matches"][0]["regime"] in html and "What decided it" in html
+    assert f'src="{body["files"]["references.svg"]}"' in html
+    assert "/api/references/" in html  # thumbnails of the nearest simulated references
     # an electrodeposit carries the electrodeposition caution only
     assert 'data-caution="electrodeposition"' in html and 'data-caution="biological"' not in html
     vessel = _upload(client, specimen_png(2), kind="vessel")
@@ -46,7 +50,7 @@ def test_list_compare_library_and_docs_pages(client, dla_png):
 
     compare = client.get("/compare", params=[("ids", ids[0]), ("ids", ids[1])]).text
     assert compare.count("data:image/svg+xml;base64,") == 2
-    assert "Standardised distance" in compare and "not the matcher" in compare
+    assert "Standardised distance" in compare or "Mahalanobis distance in the matcher" in compare
     assert "Pick two or more" in client.get("/compare").text
 
     assert client.get("/library").status_code == 200

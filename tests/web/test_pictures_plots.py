@@ -47,9 +47,9 @@ def test_plots_are_svg_documents():
     assert ET.fromstring(plots.lacunarity_svg({"scales_px": sizes, "values": [3, 2, 1.5, 1.2, 1.0]})).tag == SVG
     compared = plots.compare_svgs([("a <&>", {"box_dimension": box}), ("b", {"box_dimension": box})])
     assert {k: ET.fromstring(v).tag for k, v in compared.items()} == {"box_counting": SVG, "lacunarity": SVG}
-    dist = plots.reference_distributions_svg(
-        [{"feature": "box_dimension", "groups": [{"name": "dla", "values": [1.6, 1.7]}]}], {"box_dimension": 1.65})
-    assert ET.fromstring(dist).tag == SVG
+    rows = [{"feature": "box_dimension", "value": 1.65, "best": {"mean": 1.7, "sd": 0.05, "z": -1.0},
+             "runner_up": {"mean": 1.9, "sd": 0.04, "z": -6.25}}]
+    assert ET.fromstring(plots.reference_distributions_svg(rows, "dla", "eden")).tag == SVG
 
 
 def _record(i: int, features: dict) -> SpecimenRecord:
