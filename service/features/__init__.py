@@ -19,6 +19,7 @@ from service.features._common import (
     crop_to_specimen,
     local_width_px,
     median_branch_width_px,
+    specimen_center,
 )
 from service.features.dimension import ScalingFit, box_counting, mass_radius, sandbox
 from service.features.lacunarity import LacunarityCurve, default_scales_px, lacunarity
@@ -136,12 +137,9 @@ def measure(
     mask = as_specimen_mask(mask)
     pixel_size_mm = check_pixel_size(pixel_size_mm)
     if center_rc is not None:
-        center = np.asarray(center_rc, dtype=float)
-        if center.shape != (2,) or not np.all(np.isfinite(center)):
-            raise ValueError(f"center_rc must be a finite (row, col) pair, got {center_rc!r}")
+        center_rc = tuple(specimen_center(np.empty((0, 2)), center_rc))
     crop, origin = crop_to_specimen(mask, pad_px=1)
-    offset = np.asarray(origin, dtype=float)
-    center_crop = None if center_rc is None else tuple(np.asarray(center_rc, dtype=float) - offset)
+    center_crop = None if center_rc is None else tuple(np.asarray(center_rc) - np.asarray(origin))
 
     edt = ndimage.distance_transform_edt(crop)
     skeleton = skeletonize(crop)

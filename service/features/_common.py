@@ -39,6 +39,16 @@ def check_pixel_size(pixel_size_mm: float | None) -> float | None:
     return value
 
 
+def specimen_center(points_rc: np.ndarray, center_rc: tuple[float, float] | None) -> np.ndarray:
+    """``center_rc`` as a checked float (row, col) pair; the centroid of the points if None."""
+    if center_rc is None:
+        return points_rc.mean(axis=0)
+    center = np.asarray(center_rc, dtype=float)
+    if center.shape != (2,) or not np.all(np.isfinite(center)):
+        raise ValueError(f"center_rc must be a finite (row, col) pair, got {center_rc!r}")
+    return center
+
+
 def crop_to_specimen(mask: np.ndarray, pad_px: int = 1) -> tuple[np.ndarray, tuple[int, int]]:
     """Crop ``mask`` to the bounding box of its occupied pixels, padded with background.
 

@@ -14,10 +14,12 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import stats
 
+from service.errors import SpecimenError
 from service.features._common import (
     as_specimen_mask,
     crop_to_specimen,
     median_branch_width_px,
+    specimen_center,
     summed_area_table,
 )
 
@@ -32,9 +34,11 @@ MIN_BOX_PX = 4.0
 #: The scaling range ends at this fraction of the specimen's extent: larger boxes cut
 #: the specimen's outer edge and their counts carry a finite-size excess.
 UPPER_CUTOFF_FRACTION = 1.0 / 12.0
+#: Specimens narrower than this (largest extent) have too few box sizes to fit.
+MIN_EXTENT_PX = 8
 #: Fits over less than this ratio of sizes (one decade) carry a warning.
 MIN_TRUSTED_SPAN = 10.0
-#: The lower cutoff is lowered, with a warning, to keep at least this ratio of sizes.
+#: The lower cutoff is lowered to keep at least this ratio of scales in a fit.
 MIN_FIT_SPAN = 4.0
 
 
@@ -95,23 +99,24 @@ def geometric_sizes(smallest: float, largest: float, ratio: float = SIZE_RATIO) 
     return np.unique(np.round(smallest * ratio ** np.arange(n)).astype(np.int64))
 
 
-def scaling_range(width_px: float, extent_px: float, what: str) -> tuple[float, float, list[str]]:
-    """Automatic fit range between the branch width and the specimen extent.
+def scaling_range(
+    width_px: float, upper_px: float, what: str, *, compact: bool = False
+) -> tuple[float, float, list[str]]:
+    """Automatic fit range between the branch width and an upper scale.
 
     Returns ``(lower, upper, warnings)``. Normally lower = ``LOWER_CUTOFF_WIDTHS``
-    widths (at least ``MIN_BOX_PX``) and upper = ``UPPER_CUTOFF_FRACTION`` of the
-    extent; a range narrower than ``MIN_FIT_SPAN`` is widened downwards. A compact
-    specimen (width above a quarter of the extent) is measured from 1 px to a
-    sixteenth of its width, where it is two-dimensional and its outline does not yet
-    weigh on the counts. Narrow or compact cases carry a warning.
+    widths (at least ``MIN_BOX_PX``); a range narrower than ``MIN_FIT_SPAN`` is widened
+    downwards. A ``compact`` specimen is measured from 1 px to a sixteenth of its
+    width, where it is two-dimensional and its outline does not yet weigh on the
+    counts. Narrow or compact cases carry a warning naming ``what`` was fitted.
     """
     warnings: list[str] = []
-    upper = max(UPPER_CUTOFF_FRACTION * extent_px, 1.0)
-    if width_px >= 0.25 * extent_px:
+    upper = max(upper_px, 1.0)
+    if compact:
         upper = max(MIN_FIT_SPAN, min(upper, width_px / 16.0))
         lower = 1.0
         warnings.append(
-            f"{what}: the specimen is compact (width {width_px:.0f} px of {extent_px:.0f} px); "
+            f"{what}: the specimen is compact (branch width {width_px:.0f} px); "
             "it was measured below its width, where it fills the plane"
         )
     else:
@@ -124,6 +129,27 @@ def scaling_range(width_px: float, extent_px: float, what: str) -> tuple[float, 
             "the dimension is uncertain"
         )
     return lower, upper, warnings
+
+
+def _check_extent(mask: np.ndarray) -> np.ndarray:
+    """The specimen's bounding-box crop; SpecimenError if it is too small to fit."""
+    crop, _ = crop_to_specimen(mask, pad_px=0)
+    if max(crop.shape) < MIN_EXTENT_PX:
+        raise SpecimenError(
+            f"the specimen spans only {max(crop.shape)} px; a dimension needs at least {MIN_EXTENT_PX} px across"
+        )
+    return crop
+
+
+def _fit_mask(scales: np.ndarray, lower: float, upper: float, what: str, warnings: list[str]) -> np.ndarray:
+    """Scales within ``[lower, upper]``; the three nearest its middle if fewer (warned)."""
+    in_fit = (scales >= lower * (1 - 1e-9)) & (scales <= upper * (1 + 1e-9))
+    if in_fit.sum() < 3:
+        nearest = np.argsort(np.abs(np.log(scales / np.sqrt(lower * upper))))[:3]
+        in_fit = np.zeros(scales.size, dtype=bool)
+        in_fit[nearest] = True
+        warnings.append(f"{what}: fewer than three scales in the scaling range")
+    return in_fit
 
 
 def _line_fit(log_x: np.ndarray, log_y: np.ndarray) -> tuple[float, float, float, int]:
@@ -174,7 +200,9 @@ def box_counting(
         Box sides to count. Default: a geometric series of ratio ``2 ** 0.25`` from 1 px
         to the specimen extent.
     fit_range_px : (float, float), optional
-        Fit only sizes within this range. Default: automatic, see ``scaling_range``.
+        Fit only sizes within this range. Default: automatic (``scaling_range``), up
+        to ``UPPER_CUTOFF_FRACTION`` of the extent; compact when the width exceeds a
+        quarter of the extent.
     n_offsets : int
         Grid shifts per axis (``n_offsets ** 2`` grids, shifts ``k * size / n_offsets``,
         plus grids flush with the far edges of the bounding box); each size keeps the
@@ -193,7 +221,7 @@ def box_counting(
     Raises
     ------
     SpecimenError
-        If the mask is empty.
+        If the mask is empty or spans fewer than ``MIN_EXTENT_PX`` pixels.
 
     References
     ----------
@@ -205,13 +233,15 @@ def box_counting(
     mask = as_specimen_mask(mask)
     if n_offsets < 1:
         raise ValueError(f"n_offsets must be at least 1, got {n_offsets}")
-    crop, _ = crop_to_specimen(mask, pad_px=0)
+    crop = _check_extent(mask)
     extent = float(max(crop.shape))
     warnings: list[str] = []
     if fit_range_px is None:
         if width_px is None:
             width_px = median_branch_width_px(np.pad(crop, 1))
-        lower, upper, warnings = scaling_range(width_px, extent, "box counting")
+        lower, upper, warnings = scaling_range(
+            width_px, UPPER_CUTOFF_FRACTION * extent, "box counting", compact=width_px >= 0.25 * extent
+        )
     else:
         lower, upper = (float(v) for v in fit_range_px)
         if not 0 < lower < upper:
@@ -223,12 +253,7 @@ def box_counting(
         if sizes.size == 0 or sizes[0] < 1:
             raise ValueError("sizes_px must be positive integers")
 
-    in_fit = (sizes >= lower * (1 - 1e-9)) & (sizes <= upper * (1 + 1e-9))
-    if in_fit.sum() < 3:
-        nearest = np.argsort(np.abs(np.log(sizes / np.sqrt(lower * upper))))[:3]
-        in_fit = np.zeros_like(in_fit)
-        in_fit[nearest] = True
-        warnings.append("box counting: fewer than three box sizes in the scaling range")
+    in_fit = _fit_mask(sizes, lower, upper, "box counting", warnings)
 
     table = summed_area_table(crop)
     h, w = crop.shape
@@ -272,10 +297,6 @@ def box_counting(
     )
 
 
-def _default_center(mask: np.ndarray) -> np.ndarray:
-    return np.argwhere(mask).mean(axis=0)
-
-
 def mass_radius(
     mask: np.ndarray,
     *,
@@ -298,31 +319,21 @@ def mass_radius(
        phenomenon", Phys. Rev. Lett. 47, 1400 (1981).
     """
     mask = as_specimen_mask(mask)
+    _check_extent(mask)
     if not 0 < max_radius_fraction <= 1:
         raise ValueError(f"max_radius_fraction must be in (0, 1], got {max_radius_fraction}")
-    center = np.asarray(center_rc, dtype=float) if center_rc is not None else _default_center(mask)
-    if center.shape != (2,) or not np.all(np.isfinite(center)):
-        raise ValueError(f"center_rc must be a finite (row, col) pair, got {center_rc!r}")
     points = np.argwhere(mask)
+    center = specimen_center(points, center_rc)
     distance = np.hypot(points[:, 0] - center[0], points[:, 1] - center[1])
     r_max = float(distance.max())
     if width_px is None:
         width_px = median_branch_width_px(np.pad(mask, 1))
-    warnings: list[str] = []
-    upper = max(max_radius_fraction * r_max, 2.0)
-    lower = max(1.0, LOWER_CUTOFF_WIDTHS * width_px)
-    if upper / lower < MIN_FIT_SPAN:
-        lower = max(1.0, upper / MIN_FIT_SPAN)
-    if upper / lower < MIN_TRUSTED_SPAN:
-        warnings.append(f"mass-radius: the scaling range {lower:.1f}-{upper:.1f} px spans less than one decade")
+    lower, upper, warnings = scaling_range(width_px, max_radius_fraction * r_max, "mass-radius")
     radii = geometric_sizes(1, max(r_max, 2.0)).astype(float) if radii_px is None else np.asarray(radii_px, float)
     # M(r) for every integer r from one histogram of ceil(distance), no sort needed.
     cumulative = np.cumsum(np.bincount(np.ceil(distance).astype(np.int64)))
     masses = cumulative[np.clip(np.floor(radii).astype(np.int64), 0, cumulative.size - 1)].astype(float)
-    in_fit = (radii >= lower) & (radii <= upper) & (masses > 0)
-    if in_fit.sum() < 3:
-        in_fit = masses > 0
-        warnings.append("mass-radius: fewer than three radii in the scaling range")
+    in_fit = _fit_mask(radii, lower, upper, "mass-radius", warnings) & (masses > 0)
     slope, intercept, stderr, n = _line_fit(np.log(radii[in_fit]), np.log(masses[in_fit]))
     half = _t95(n) * stderr
     return ScalingFit(
@@ -351,8 +362,8 @@ def sandbox(
     the radius of gyration of ``center_rc`` (default centroid), so the squares rarely
     reach past the specimen; the mass in each square of half-side ``r`` is read from
     a summed-area table for all centres and radii at once; ``<M(r)>`` over centres is
-    fitted against the side ``2r + 1`` from ``LOWER_CUTOFF_WIDTHS`` widths up to the
-    radius of gyration. ``ci95`` is the regression t-interval.
+    fitted against the side ``2r + 1`` from ``LOWER_CUTOFF_WIDTHS`` widths up to twice
+    the radius of gyration. ``ci95`` is the regression t-interval.
 
     References
     ----------
@@ -360,10 +371,11 @@ def sandbox(
        geometrical multifractals", Physica A 159, 155 (1989).
     """
     mask = as_specimen_mask(mask)
+    _check_extent(mask)
     if n_centers < 1:
         raise ValueError(f"n_centers must be at least 1, got {n_centers}")
     points = np.argwhere(mask)
-    center = np.asarray(center_rc, dtype=float) if center_rc is not None else points.mean(axis=0)
+    center = specimen_center(points, center_rc)
     d2 = ((points - center) ** 2).sum(axis=1)
     r_gyr = float(np.sqrt(d2.mean()))
     if width_px is None:
@@ -373,14 +385,8 @@ def sandbox(
         pool = points
     rng = np.random.default_rng(seed)
     centers = pool[rng.choice(pool.shape[0], size=min(n_centers, pool.shape[0]), replace=False)]
-    warnings: list[str] = []
-    upper = max(r_gyr, 2.0)
-    lower = max(1.0, LOWER_CUTOFF_WIDTHS * width_px / 2.0)
-    if upper / lower < MIN_FIT_SPAN:
-        lower = max(1.0, upper / MIN_FIT_SPAN)
-    if upper / lower < MIN_TRUSTED_SPAN:
-        warnings.append(f"sandbox: the scaling range {lower:.1f}-{upper:.1f} px spans less than one decade")
-    half_sides = geometric_sizes(1, upper)
+    lower, upper, warnings = scaling_range(width_px, 2.0 * r_gyr, "sandbox")
+    half_sides = geometric_sizes(1, max(r_gyr, 2.0))
     table = summed_area_table(mask)
     h, w = mask.shape
     r = half_sides[None, :]
@@ -389,12 +395,9 @@ def sandbox(
     c0 = np.clip(centers[:, 1:] - r, 0, w)
     c1 = np.clip(centers[:, 1:] + r + 1, 0, w)
     box_mass = table[r1, c1] - table[r0, c1] - table[r1, c0] + table[r0, c0]
-    masses = box_mass.mean(axis=0).astype(float)
+    masses = box_mass.mean(axis=0, dtype=np.float64)
     sides = (2 * half_sides + 1).astype(float)
-    in_fit = (half_sides >= lower) & (half_sides <= upper)
-    if in_fit.sum() < 3:
-        in_fit[:] = True
-        warnings.append("sandbox: fewer than three box sizes in the scaling range")
+    in_fit = _fit_mask(sides, lower, upper, "sandbox", warnings)
     slope, intercept, stderr, n = _line_fit(np.log(sides[in_fit]), np.log(masses[in_fit]))
     half = _t95(n) * stderr
     return ScalingFit(

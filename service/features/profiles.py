@@ -7,7 +7,7 @@ from dataclasses import dataclass
 import numpy as np
 from skimage.measure import perimeter_crofton
 
-from service.features._common import as_specimen_mask, crop_to_specimen
+from service.features._common import as_specimen_mask, crop_to_specimen, specimen_center
 
 
 @dataclass(frozen=True)
@@ -91,9 +91,7 @@ def radial_profile(
         raise ValueError(f"n_annuli must be at least 1, got {n_annuli}")
     points = np.argwhere(mask).astype(float)
     centroid = points.mean(axis=0)
-    center = np.asarray(center_rc, dtype=float) if center_rc is not None else centroid
-    if center.shape != (2,) or not np.all(np.isfinite(center)):
-        raise ValueError(f"center_rc must be a finite (row, col) pair, got {center_rc!r}")
+    center = specimen_center(points, center_rc)
     r_gyr = float(np.sqrt(((points - centroid) ** 2).sum(axis=1).mean()))
     distance = np.hypot(points[:, 0] - center[0], points[:, 1] - center[1])
     r_max = float(distance.max())

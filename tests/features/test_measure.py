@@ -82,6 +82,10 @@ def test_radial_profile_of_a_disk():
 def test_bad_input():
     with pytest.raises(SpecimenError):
         measure(np.zeros((64, 64), dtype=bool))
+    tiny = np.zeros((64, 64), dtype=bool)
+    tiny[30:33, 30:35] = True  # 5 px across: too few box sizes for any fit
+    with pytest.raises(SpecimenError):
+        measure(tiny)
     with pytest.raises(ValueError):
         measure(np.ones((3, 3, 3), dtype=bool))
     with pytest.raises(ValueError):
