@@ -259,18 +259,25 @@ class _Graph:
         del self.node_center[node]
 
     def prune_spurs(self, prune_widths: float) -> int:
-        spurs = []
+        """Drop terminal branches shorter than ``prune_widths`` widths of their junction.
+
+        At most ``degree - 2`` spurs go from one junction per pass (the shortest), so a
+        short stubby specimen keeps its two longest arms instead of vanishing.
+        """
+        spurs_at: dict[int, list[tuple[float, int, int]]] = {}
         for k, br in self.branches.items():
             for tip, base in ((br.a, br.b), (br.b, br.a)):
                 if self.degree(tip) == 1 and self.degree(base) >= 3:
                     if br.length_px < prune_widths * self.node_width_px(base):
-                        spurs.append((k, tip))
+                        spurs_at.setdefault(base, []).append((br.length_px, k, tip))
                     break
-        for k, tip in spurs:
-            if k in self.branches:
+        pruned = 0
+        for base, spurs in spurs_at.items():
+            for _, k, tip in sorted(spurs)[: self.degree(base) - 2]:
                 self.remove_branch(k)
                 self.remove_node(tip)
-        return len(spurs)
+                pruned += 1
+        return pruned
 
     def merge_close_junctions(self, merge_widths: float) -> int:
         """Fuse each junction into a wider neighbour whose centre is within reach.
@@ -631,7 +638,7 @@ def skeleton_graph(
         [np.round(node_rc[n]) for n, d in degrees.items() if d >= 3], dtype=np.int64
     ).reshape(-1, 2)
     paths = [br.path for br in graph.branches.values()]
-    lengths = np.array([_path_length_px(p) for p in paths])
+    lengths = np.array([br.length_px for br in graph.branches.values()])
     chords = np.array([np.hypot(*(p[-1] - p[0])) for p in paths])
     tortuosity = lengths[chords > 0] / chords[chords > 0]
     cleaned = np.zeros_like(skel)

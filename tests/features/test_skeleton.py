@@ -67,6 +67,16 @@ def test_straight_bar_has_two_tips_and_no_junction():
     assert graph.strahler.max_order == 1
 
 
+def test_stubby_cross_keeps_two_arms():
+    # Four arms, each shorter than the spur limit: pruning may not erase the specimen,
+    # so the two longest arms survive as one branch.
+    cross = np.zeros((80, 80), dtype=bool)
+    cross[33:48, 14:66] = True
+    cross[14:66, 33:48] = True
+    graph = skeleton_graph(cross)
+    assert (graph.tips, graph.junctions, graph.branches) == (2, 0, 1)
+
+
 def test_ring_keeps_its_cycle():
     yy, xx = np.mgrid[:200, :200]
     r = np.hypot(yy - 100, xx - 100)
