@@ -115,7 +115,8 @@ def deciding_in_words(explanation: dict[str, Any]) -> list[str]:
     return sentences
 
 
-@router.get("/", response_class=HTMLResponse)
+# Signed in first (when keys are on): this page uploads, and the library shows keyed thumbnails.
+@router.get("/", response_class=HTMLResponse, dependencies=[Depends(current_lab)])
 async def upload_page(request: Request, settings: Settings = Depends(get_settings)) -> HTMLResponse:
     return _page(request, "upload.html", max_upload_mb=settings.max_upload_mb,
                  demo_label=DEMO_LABEL, demo_story=DEMO_STORY, demo_filename=DEMO_FILENAME)
@@ -248,7 +249,7 @@ async def _distances(records, store: Store, lab, pool: AnalysisPool, settings: S
     return {"kind": "standardised", "matrix": matrix, "features": used, "population": n_population}
 
 
-@router.get("/library", response_class=HTMLResponse)
+@router.get("/library", response_class=HTMLResponse, dependencies=[Depends(current_lab)])
 async def library_page(request: Request, settings: Settings = Depends(get_settings)) -> HTMLResponse:
     try:
         references, error = reference_set_or_error(settings), None

@@ -134,6 +134,13 @@ def test_pages_ask_for_the_key_once_and_keep_a_signed_cookie(labs):
         assert b.get("/specimens", headers=html).status_code == 303
 
 
+@pytest.mark.parametrize("path", ["/", "/specimens", "/compare", "/library"])
+def test_every_page_sends_a_browser_without_a_key_to_sign_in(labs, path):
+    client, _ = labs
+    response = browser(client).get(path, headers={"Accept": "text/html"})
+    assert response.status_code == 303 and response.headers["location"].startswith("/login?next=")
+
+
 def test_forged_stale_and_cross_site_cookies_are_refused(labs, tmp_path):
     client, ids = labs
     settings = client.app.state.settings
