@@ -19,6 +19,7 @@ from service.features._common import (
     crop_to_specimen,
     local_width_px,
     median_branch_width_px,
+    paste_crop,
     specimen_center,
 )
 from service.features.dimension import ScalingFit, box_counting, mass_radius, sandbox
@@ -122,7 +123,7 @@ def measure(
     Raises
     ------
     SpecimenError
-        If the mask is empty.
+        If the mask is empty or too small to fit a dimension (under 8 px across).
     ValueError
         If the mask is not 2-D, or the pixel size or centre is not a finite number.
 
@@ -150,13 +151,12 @@ def measure(
     sand = sandbox(crop, width_px=width, center_rc=center_crop, seed=SANDBOX_SEED)
     lac = lacunarity(crop, default_scales_px(crop.shape, smallest_px=width))
     graph = skeleton_graph(crop, center_rc=center_crop, edt=edt, skeleton_mask=skeleton)
-    full_skeleton = np.zeros(mask.shape, dtype=bool)
-    r0, c0 = origin
-    window = full_skeleton[max(r0, 0) : r0 + crop.shape[0], max(c0, 0) : c0 + crop.shape[1]]
-    window |= graph.skeleton_mask[max(-r0, 0) : max(-r0, 0) + window.shape[0], max(-c0, 0) : max(-c0, 0) + window.shape[1]]
     shift = np.array(origin, dtype=np.int64)
     graph = dataclasses.replace(
-        graph, skeleton_mask=full_skeleton, tips_rc=graph.tips_rc + shift, junctions_rc=graph.junctions_rc + shift
+        graph,
+        skeleton_mask=paste_crop(graph.skeleton_mask, origin, mask.shape),
+        tips_rc=graph.tips_rc + shift,
+        junctions_rc=graph.junctions_rc + shift,
     )
     profile = radial_profile(mask, center_rc=center_rc)
     warnings = (*box.warnings, *mass.warnings, *sand.warnings)

@@ -63,6 +63,26 @@ def crop_to_specimen(mask: np.ndarray, pad_px: int = 1) -> tuple[np.ndarray, tup
     return crop, (int(r0) - pad_px, int(c0) - pad_px)
 
 
+def paste_crop(crop: np.ndarray, origin_rc: tuple[int, int], shape: tuple[int, int]) -> np.ndarray:
+    """Place ``crop`` (origin possibly outside the frame) into a zero array of ``shape``."""
+    out = np.zeros(shape, dtype=crop.dtype)
+    r0, c0 = origin_rc
+    sr0, sc0 = max(r0, 0), max(c0, 0)
+    sr1, sc1 = min(r0 + crop.shape[0], shape[0]), min(c0 + crop.shape[1], shape[1])
+    out[sr0:sr1, sc0:sc1] = crop[sr0 - r0 : sr1 - r0, sc0 - c0 : sc1 - c0]
+    return out
+
+
+def window_of(full: np.ndarray, origin_rc: tuple[int, int], shape: tuple[int, int]) -> np.ndarray:
+    """The ``shape`` window of ``full`` at ``origin_rc``, zero where it leaves the array."""
+    out = np.zeros(shape, dtype=full.dtype)
+    r0, c0 = origin_rc
+    sr0, sc0 = max(r0, 0), max(c0, 0)
+    sr1, sc1 = min(r0 + shape[0], full.shape[0]), min(c0 + shape[1], full.shape[1])
+    out[sr0 - r0 : sr1 - r0, sc0 - c0 : sc1 - c0] = full[sr0:sr1, sc0:sc1]
+    return out
+
+
 def local_width_px(edt: np.ndarray) -> np.ndarray:
     """Stroke width at each pixel from its Euclidean distance to the background.
 

@@ -16,7 +16,13 @@ import numpy as np
 from scipy import ndimage
 from skimage.morphology import skeletonize
 
-from service.features._common import as_specimen_mask, crop_to_specimen, local_width_px
+from service.features._common import (
+    as_specimen_mask,
+    crop_to_specimen,
+    local_width_px,
+    paste_crop,
+    window_of,
+)
 
 #: A terminal branch shorter than this many local widths (at its junction) is a spur.
 PRUNE_WIDTHS = 1.5
@@ -615,11 +621,11 @@ def skeleton_graph(
     if edt is None:
         edt_crop = ndimage.distance_transform_edt(crop)
     else:
-        edt_crop = _crop_like(np.asarray(edt, dtype=float), r0, c0, h, w)
+        edt_crop = window_of(np.asarray(edt, dtype=float), (r0, c0), (h, w))
     if skeleton_mask is None:
         skel = skeletonize(crop)
     else:
-        skel = _crop_like(np.asarray(skeleton_mask, dtype=bool), r0, c0, h, w) & crop
+        skel = window_of(np.asarray(skeleton_mask, dtype=bool), (r0, c0), (h, w)) & crop
     skel[0, :] = skel[-1, :] = skel[:, 0] = skel[:, -1] = False
     width = local_width_px(edt_crop)
     graph, bare_tips, bare_junctions = _bare_graph(skel, width)
@@ -648,11 +654,6 @@ def skeleton_graph(
     root = (np.asarray(center_rc, dtype=float) - offset) if center_rc is not None else np.argwhere(crop).mean(axis=0)
     strahler, angles = _horton_strahler(graph, node_rc, root)
 
-    full_skeleton = np.zeros(mask.shape, dtype=bool)
-    rr, cc = np.nonzero(cleaned)
-    rr, cc = rr + r0, cc + c0
-    inside = (rr >= 0) & (rr < mask.shape[0]) & (cc >= 0) & (cc < mask.shape[1])
-    full_skeleton[rr[inside], cc[inside]] = True
     return SkeletonGraph(
         tips=int(tips_rc.shape[0]),
         junctions=int(junctions_rc.shape[0]),
@@ -664,16 +665,8 @@ def skeleton_graph(
         branching_angles_deg=angles,
         widths_px=width[cleaned],
         strahler=strahler,
-        skeleton_mask=full_skeleton,
+        skeleton_mask=paste_crop(cleaned, (r0, c0), mask.shape),
         tips_rc=tips_rc + offset,
         junctions_rc=junctions_rc + offset,
     )
 
-
-def _crop_like(full: np.ndarray, r0: int, c0: int, h: int, w: int) -> np.ndarray:
-    """The (h, w) window of ``full`` at origin (r0, c0), zero where it leaves the array."""
-    out = np.zeros((h, w), dtype=full.dtype)
-    sr0, sc0 = max(r0, 0), max(c0, 0)
-    sr1, sc1 = min(r0 + h, full.shape[0]), min(c0 + w, full.shape[1])
-    out[sr0 - r0 : sr1 - r0, sc0 - c0 : sc1 - c0] = full[sr0:sr1, sc0:sc1]
-    return out
