@@ -17,7 +17,7 @@ matplotlib.use("Agg")
 import numpy as np  # noqa: E402
 from matplotlib.backends.backend_svg import FigureCanvasSVG  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
-from matplotlib.ticker import NullFormatter  # noqa: E402
+from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter  # noqa: E402
 
 #: Our palette: ink, the specimen's colour, the fitted line, and a cycle for compared specimens.
 INK = "#1d2a33"
@@ -55,8 +55,11 @@ def _svg(fig: Figure) -> bytes:
 def _style(ax) -> None:
     ax.grid(True, which="major", color="#d9dee2", linewidth=0.6)
     ax.set_axisbelow(True)
-    for axis in (ax.xaxis, ax.yaxis):  # short log axes would label every minor tick, overlapping
-        axis.set_minor_formatter(NullFormatter())
+    for axis in (ax.xaxis, ax.yaxis):
+        if axis.get_scale() == "log":  # plain numbers at 1-2-5 steps; a short axis still gets labels
+            axis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0)))
+            axis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
+            axis.set_minor_formatter(NullFormatter())
 
 
 def _positive_pairs(xs: Sequence[float], ys: Sequence[float]) -> tuple[np.ndarray, np.ndarray]:

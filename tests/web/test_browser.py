@@ -33,12 +33,13 @@ def _free_port() -> int:
 
 
 @pytest.fixture(scope="module")
-def server(tmp_path_factory):
+def server(tmp_path_factory, tiny_library):
     if not CHROMIUM.exists():
         pytest.skip("no browser: /usr/bin/chromium is missing (scripts/system-deps.sh installs it through apt)")
     port = _free_port()
     data_dir = tmp_path_factory.mktemp("browser-data")
-    env = {**os.environ, "RAMIFORM_DATA_DIR": str(data_dir), "RAMIFORM_WORKERS": "1"}
+    env = {**os.environ, "RAMIFORM_DATA_DIR": str(data_dir), "RAMIFORM_WORKERS": "1",
+           "RAMIFORM_LIBRARY_DIR": str(tiny_library)}
     env.pop("RAMIFORM_DATABASE_URL", None)
     log = open(data_dir / "server.log", "wb")
     proc = subprocess.Popen([sys.executable, "-m", "service.cli", "serve", "--port", str(port)],
@@ -91,7 +92,7 @@ def test_upload_through_the_page_and_read_the_report(server, browser, tmp_path):
     page.wait_for_load_state("networkidle")
 
     assert page.inner_text("h1") == "Dish <1>"  # shown as text, not markup
-    for picture in ("#specimen-overlay", "#plot-box-counting", "#plot-lacunarity"):
+    for picture in ("#specimen-overlay", "#plot-box-counting", "#plot-lacunarity", "#plot-references"):
         assert _loaded(page, picture), picture
     assert page.locator("[data-caution]").count() == 2  # kind not given: both cautions apply
     page.screenshot(path=ARTIFACTS / "report-page.png", full_page=True)
@@ -120,3 +121,14 @@ def test_several_images_dropped_at_once_show_progress_and_links(server, browser,
     page.goto(server + "/compare?" + "&".join(f"ids={i}" for i in ids))
     assert _loaded(page, "#compare-box-counting") and _loaded(page, "#compare-lacunarity")
     page.screenshot(path=ARTIFACTS / "compare-page.png", full_page=True)
+
+
+def test_one_click_on_the_demo_specimen_opens_a_full_report(server, browser):
+    page = browser.new_page(viewport={"width": 1280, "height": 900})
+    page.goto(server + "/")
+    page.click("#demo-button")
+    page.wait_for_url(f"{server}/specimens/*", timeout=180_000)
+    page.wait_for_load_state("networkidle")
+    assert "DEMO" in page.inner_text("h1")
+    assert _loaded(page, "#specimen-overlay") and _loaded(page, "#plot-box-counting")
+    page.screenshot(path=ARTIFACTS / "demo-report.png", full_page=True)
