@@ -15,7 +15,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-from PIL import BmpImagePlugin, Image, ImageFile, ImageOps, JpegImagePlugin, PngImagePlugin
+from PIL import BmpImagePlugin, Image, ImageOps, JpegImagePlugin, PngImagePlugin
 
 from service.errors import ImageTooLargeError, SpecimenError, UnsupportedFormatError
 
@@ -233,8 +233,6 @@ def _load_with_pil(data: bytes, kind: str, max_pixels: int) -> LoadedImage:
     _check_pixels(im.size[0], im.size[1], max_pixels, kind)
     bit_depth = _pil_bit_depth(data, kind, im)
     try:
-        if ImageFile.LOAD_TRUNCATED_IMAGES:  # someone relaxed PIL globally; we still refuse partial files
-            raise SpecimenError("PIL is set to accept truncated images; refusing to guess missing pixels")
         im.load()
         if kind == "JPEG":
             im = ImageOps.exif_transpose(im)

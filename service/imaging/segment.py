@@ -23,7 +23,7 @@ import numpy as np
 from scipy import ndimage
 
 from service.errors import SpecimenError
-from service.imaging.load import LoadedImage
+from service.imaging.load import LoadedImage, _luma
 
 __all__ = ["MODES", "POLARITIES", "Segmentation", "segment"]
 
@@ -259,26 +259,19 @@ def _as_gray_rgb(image: LoadedImage | np.ndarray) -> tuple[np.ndarray, np.ndarra
         raise ValueError(f"image must be a grey (H, W) or RGB (H, W, 3) array, got shape {arr.shape}")
     if arr.dtype == bool:
         arr = arr.astype(np.uint8) * np.uint8(255)
-    if arr.dtype == np.uint8:
-        scaled = arr.astype(np.float32) / np.float32(255.0)
-    elif arr.dtype == np.uint16:
-        scaled = arr.astype(np.float32) / np.float32(65535.0)
-    elif arr.dtype.kind == "f":
-        scaled = arr.astype(np.float32)
-        if not np.isfinite(scaled).all():
+    if arr.dtype.kind == "f":
+        if not np.isfinite(arr).all():
             raise ValueError("image holds NaN or infinite values")
-        if scaled.min() < 0.0 or scaled.max() > 1.0:
+        if arr.min() < 0.0 or arr.max() > 1.0:
             raise ValueError("a float image must lie in [0, 1]")
-    else:
+    elif arr.dtype not in (np.uint8, np.uint16):
         raise ValueError(f"image dtype {arr.dtype} is not supported (uint8, uint16, bool or float in [0, 1])")
-    if scaled.ndim == 2:
-        gray = scaled
-        rgb = np.repeat((gray * 255.0 + 0.5).astype(np.uint8)[:, :, None], 3, axis=2)
-    else:
-        luma = np.array([0.2125, 0.7154, 0.0721], dtype=np.float32)
-        gray = scaled[:, :, 0] * luma[0] + scaled[:, :, 1] * luma[1] + scaled[:, :, 2] * luma[2]
-        rgb = arr if arr.dtype == np.uint8 else (scaled * 255.0 + 0.5).astype(np.uint8)
-    return np.ascontiguousarray(gray, dtype=np.float32), np.ascontiguousarray(rgb)
+    full = 255.0 if arr.dtype == np.uint8 else 65535.0 if arr.dtype == np.uint16 else 1.0
+    if arr.ndim == 3:
+        rgb = arr if arr.dtype == np.uint8 else (arr * np.float32(255.0 / full) + np.float32(0.5)).astype(np.uint8)
+        return _luma(arr, full), np.ascontiguousarray(rgb)
+    gray = np.ascontiguousarray(arr, dtype=np.float32) * np.float32(1.0 / full)
+    return gray, np.repeat((gray * 255.0 + 0.5).astype(np.uint8)[:, :, None], 3, axis=2)
 
 
 def _block_mean(a: np.ndarray, factor: int) -> np.ndarray:
