@@ -81,6 +81,19 @@ def test_owner_scoping(store):
     assert store.get(mine.id) is not None
 
 
+def test_sqlite_runs_in_write_ahead_log_mode(tmp_path):
+    # WAL: readers never block the writer and commits survive crashes (sqlite.org/wal.html)
+    from sqlalchemy import text
+
+    from service.store import Store
+
+    s = Store.open(f"sqlite:///{tmp_path / 'wal.db'}", tmp_path / "data")
+    with s.engine.connect() as conn:
+        assert conn.execute(text("PRAGMA journal_mode")).scalar() == "wal"
+        assert conn.execute(text("PRAGMA synchronous")).scalar() == 2  # FULL
+    s.close()
+
+
 def test_schema_creation_is_idempotent(store):
     store.add(_analysis(0), {"a.png": b"x"})
     store.create_schema()  # a second instance starting on the same database

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import csv
 import io
+import secrets
 import xml.etree.ElementTree as ET
 
 import numpy as np
@@ -141,12 +142,38 @@ def test_references_list_the_library(client, tiny_library):
     assert client.get("/api/references/no-such-ensemble/thumbnail.png").status_code == 404
 
 
-def test_two_instances_share_one_store(tmp_path, dla_png):
+@pytest.fixture(params=["sqlite", pytest.param("postgresql", marks=pytest.mark.postgres)])
+def shared_database(request, tmp_path):
+    """A database URL two instances share: the default SQLite file, or a fresh PostgreSQL schema."""
+    if request.param == "sqlite":
+        yield None
+        return
+    from tests.store.conftest import PG_SKIP, PG_URL
+
+    if not PG_URL:
+        pytest.skip(PG_SKIP)
+    from sqlalchemy import create_engine, text
+
+    schema = f"ramiform_web_{secrets.token_hex(6)}"
+    admin = create_engine(PG_URL)
+    with admin.begin() as conn:
+        conn.execute(text(f'CREATE SCHEMA "{schema}"'))
+    try:
+        yield f"{PG_URL}?options=-csearch_path%3D{schema}"
+    finally:
+        with admin.begin() as conn:
+            conn.execute(text(f'DROP SCHEMA "{schema}" CASCADE'))
+        admin.dispose()
+
+
+def test_two_instances_share_one_store(tmp_path, dla_png, shared_database):
     # Two apps on one database and one data folder, as behind a proxy: no state in a process.
-    with make_client(tmp_path) as one, make_client(tmp_path) as two:
+    with make_client(tmp_path, database_url=shared_database) as one, \
+            make_client(tmp_path, database_url=shared_database) as two:
         sid = _upload(one, dla_png, label="shared").json()["id"]
         assert two.get(f"/api/specimens/{sid}").json()["label"] == "shared"
         assert two.get(f"/api/specimens/{sid}/files/mask.png").status_code == 200
+        assert two.get("/api/health").json()["database"] == ("postgresql" if shared_database else "sqlite")
         assert two.delete(f"/api/specimens/{sid}").status_code == 204
         assert one.get(f"/api/specimens/{sid}").status_code == 404
 
