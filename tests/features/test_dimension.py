@@ -77,6 +77,14 @@ def test_mass_radius_of_disk_and_line():
     assert abs(mass_radius(line).value - 1.0) < 0.03
 
 
+def test_mass_radius_of_vicsek_about_its_centre():
+    # About the centre, the Vicsek cross holds 5^k cells within 3^k / 2: mass-radius
+    # dimension log 5 / log 3 (exact self-similarity, CHECK_VALUES.md).
+    vicsek = shapes.vicsek(6)
+    fit = mass_radius(vicsek, center_rc=(364, 364))
+    assert abs(fit.value - shapes.VICSEK_DIMENSION) < 0.04
+
+
 def test_mass_radius_about_a_given_centre():
     carpet = shapes.sierpinski_carpet(6)
     # About the centre of the carpet's central hole (243 px square, exact geometry)
