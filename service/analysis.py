@@ -15,6 +15,7 @@ from typing import Any
 from service import __version__
 from service.features import Features, measure
 from service.imaging import LoadedImage, Segmentation, load_image, segment
+from service.imaging.load import DEFAULT_MAX_PIXELS
 
 
 @dataclass(frozen=True)
@@ -87,6 +88,7 @@ def analyze(
     threshold: float | None = None,
     roi: tuple[float, float, float] | None = None,
     page: int | None = None,
+    max_pixels: int | None = None,
     reference_set=None,
     match: bool = True,
 ) -> Analysis:
@@ -104,6 +106,9 @@ def analyze(
         Segmentation overrides, see :func:`service.imaging.segment`.
     page : int, optional
         TIFF page to read (default: the first).
+    max_pixels : int, optional
+        Largest decoded image accepted (default: the loader's); a larger one raises
+        ``ImageTooLargeError`` before any pixel is decoded.
     reference_set : ReferenceSet, optional
         References to rank against (default: the bundled set).
     match : bool
@@ -116,7 +121,7 @@ def analyze(
     data = Path(source).read_bytes() if isinstance(source, (str, Path)) else bytes(source)
     if filename is None and isinstance(source, (str, Path)):
         filename = Path(source).name
-    image = load_image(data, page=page)
+    image = load_image(data, page=page, max_pixels=max_pixels or DEFAULT_MAX_PIXELS)
     calibration = _calibration(image, pixel_size_mm)
     seg = segment(image, mode=mode, polarity=polarity, threshold=threshold, roi=roi)
     features = measure(seg.mask, pixel_size_mm=calibration["pixel_size_mm"], center_rc=seg.center_rc)

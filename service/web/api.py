@@ -162,6 +162,7 @@ async def create_specimen(
         filename=image.filename, pixel_size_mm=pixel_size_mm, mode=mode, polarity=polarity,
         threshold=threshold, roi=_roi(roi), page=page,
         library_dir=str(settings.library_dir) if settings.library_dir else None,
+        max_pixels=settings.max_pixels,
     )
     try:
         result = await pool.run(run_analysis, data, options)

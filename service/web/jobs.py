@@ -39,6 +39,7 @@ class AnalysisOptions:
     roi: tuple[float, float, float] | None = None
     page: int | None = None
     library_dir: str | None = None
+    max_pixels: int | None = None
 
     def to_dict(self) -> dict[str, Any]:
         return asdict(self)
@@ -114,6 +115,7 @@ def run_analysis(data: bytes, options: AnalysisOptions) -> dict[str, Any]:
         threshold=options.threshold,
         roi=options.roi,
         page=options.page,
+        max_pixels=options.max_pixels,
         reference_set=reference_set,
         match=not_ranked is None,
     )

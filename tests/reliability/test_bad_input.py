@@ -227,3 +227,12 @@ def test_upload_limit_answers_before_the_body_is_read(server_factory, tmp_path):
         status = status or _read_status_line(sock, 10.0)
         assert b" 413 " in status, status
     assert server.process.poll() is None
+
+
+def test_pixel_limit_setting_applies_to_uploads(tmp_path):
+    """RAMIFORM_MAX_PIXELS: a 600 x 600 photo (360,000 px) is refused by a service set to 250,000."""
+    png = encode(specimen_rgb(size_px=600))
+    with app_client(tmp_path, max_pixels=250_000) as small:
+        response = small.post("/api/specimens", files={"image": ("big.png", png, "image/png")})
+    assert response.status_code == 413, response.text
+    assert "250,000" in response.json()["detail"]
