@@ -489,7 +489,9 @@ def _direction(path: np.ndarray, from_px: float, to_px: float) -> np.ndarray:
     return v / norm if norm > 0 else v
 
 
-def _horton_strahler(graph: _Graph, node_rc: dict[int, np.ndarray], root_rc: np.ndarray):
+def _horton_strahler(
+    graph: _Graph, node_rc: dict[int, np.ndarray], root_rc: np.ndarray
+) -> tuple[HortonStrahler, np.ndarray]:
     """Strahler orders on a spanning tree of each component, plus bifurcation angles.
 
     Strategy: a breadth-first spanning tree of each connected component, rooted at its
