@@ -132,3 +132,14 @@ def test_one_click_on_the_demo_specimen_opens_a_full_report(server, browser):
     assert "DEMO" in page.inner_text("h1")
     assert _loaded(page, "#specimen-overlay") and _loaded(page, "#plot-box-counting")
     page.screenshot(path=ARTIFACTS / "demo-report.png", full_page=True)
+
+
+def test_library_page_shows_every_reference_thumbnail(server, browser, tiny_library):
+    from service.library import load_reference_set
+
+    page = browser.new_page(viewport={"width": 1280, "height": 900})
+    page.goto(server + "/library")
+    page.wait_for_load_state("networkidle")
+    loaded = page.eval_on_selector_all(".library img", "imgs => imgs.map(i => i.complete && i.naturalWidth > 0)")
+    assert loaded == [True] * len(load_reference_set(tiny_library).ensembles)
+    page.screenshot(path=ARTIFACTS / "library-page.png", full_page=True)
