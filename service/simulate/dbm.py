@@ -27,9 +27,8 @@ REGRID_HEADROOM = 1.25
 RELATIVE_TOLERANCE = 1e-4
 #: Half-widths of the windows relaxed around each new site, innermost first.
 LOCAL_WINDOWS = (4, 12, 32)
-#: Sweep caps: per window, per global pass, and after a regrid.
+#: Sweep caps: per window, and after a regrid.
 MAX_LOCAL_SWEEPS = 20
-MAX_GLOBAL_SWEEPS = 2
 MAX_REGRID_SWEEPS = 3000
 #: Every COARSE_EVERY sites the smooth far-field error is removed on blocks of
 #: COARSE_BLOCK x COARSE_BLOCK cells (a two-grid correction), with at most
@@ -154,8 +153,7 @@ def _perimeter_weight(value, eta):
 
 @numba.njit(cache=True)
 def _grow_on_grid(order, kind, phi, k_done, n_total, uniforms, eta, r_limit,
-                  omega_global, windows, max_local, max_global, rel_tol, coarse_every,
-                  block, omega_coarse):
+                  windows, max_local, rel_tol, coarse_every, block, omega_coarse):
     """Add sites ``k_done + 1 .. n_total`` to the cluster until done or it reaches ``r_limit``.
 
     Caller guarantees: square arrays of odd side with the seed at the centre; ``order``
@@ -168,8 +166,9 @@ def _grow_on_grid(order, kind, phi, k_done, n_total, uniforms, eta, r_limit,
     Strategy: the perimeter is a dense list with a position map for O(1) insert and
     swap-remove. Each step draws a perimeter site by a linear scan of phi ** eta, sets it
     to 0, relaxes nested windows around it (the correction is largest next to the new
-    site and decays away from it), then sweeps the whole disc until the relative
-    tolerance is met or the global cap is reached.
+    site and decays away from it), and every ``coarse_every`` sites runs one two-grid
+    cycle over the whole disc (a Gauss-Seidel sweep, the coarse correction, two more
+    sweeps), which carries the change out to the far field.
     """
     side = order.shape[0]
     centre = side // 2
@@ -234,6 +233,8 @@ def _grow_on_grid(order, kind, phi, k_done, n_total, uniforms, eta, r_limit,
                 per_i[n_per] = a
                 per_j[n_per] = b
                 n_per += 1
+        if eta == 0.0:
+            continue  # every perimeter site weighs 1: the potential is never read
         tol = rel_tol * max(phi_top, 1e-12)
         for half in windows:
             a0, a1 = max(lo, i - half), min(hi, i + half + 1)
@@ -246,7 +247,6 @@ def _grow_on_grid(order, kind, phi, k_done, n_total, uniforms, eta, r_limit,
             _sor_window(phi, kind, lo, hi, lo, hi, 1.0, 0.0, 1)
             _coarse_correction(phi, kind, block, omega_coarse, tol, MAX_COARSE_SWEEPS)
             _sor_window(phi, kind, lo, hi, lo, hi, 1.0, 0.0, 2)
-        _sor_window(phi, kind, lo, hi, lo, hi, omega_global, tol, max_global)
     return k, r_cluster
 
 
@@ -302,8 +302,7 @@ def _make_grid(r_out: int, old_order: np.ndarray | None, old_phi: np.ndarray | N
 
 
 def _grow(n_particles: int, eta: float, seed: int, *, windows=LOCAL_WINDOWS,
-          max_global: int = MAX_GLOBAL_SWEEPS, rel_tol: float = RELATIVE_TOLERANCE,
-          coarse_every: int = COARSE_EVERY):
+          rel_tol: float = RELATIVE_TOLERANCE, coarse_every: int = COARSE_EVERY):
     """Grow the cluster; return the full grid ``(order, kind, phi)`` as the solver left it.
 
     The solver settings are exposed for the accuracy tests and the benchmark.
@@ -326,9 +325,9 @@ def _grow(n_particles: int, eta: float, seed: int, *, windows=LOCAL_WINDOWS,
         _sor_window(phi, kind, 1, side - 1, 1, side - 1, _global_omega(r_out),
                     RELATIVE_TOLERANCE * 1e-2, MAX_REGRID_SWEEPS)
         k, r_cluster = _grow_on_grid(order, kind, phi, k, n_particles, uniforms, float(eta),
-                                     _radius_limit(r_out), _global_omega(r_out), windows,
-                                     MAX_LOCAL_SWEEPS, max_global, rel_tol, coarse_every,
-                                     COARSE_BLOCK, _global_omega(r_out // COARSE_BLOCK))
+                                     _radius_limit(r_out), windows, MAX_LOCAL_SWEEPS, rel_tol,
+                                     coarse_every, COARSE_BLOCK,
+                                     _global_omega(r_out // COARSE_BLOCK))
     return order, kind, phi
 
 
@@ -370,21 +369,21 @@ def dbm(n_particles: int, *, eta: float, seed: int) -> np.ndarray:
     Solver: red-black successive over-relaxation of the 5-point Laplace equation, warm
     started from the previous step. After each new site (set to 0) the windows of
     half-width 4, 12 and 32 about it are relaxed (the correction is largest there),
-    then the whole disc, each until the largest correction of a sweep falls below
-    ``RELATIVE_TOLERANCE`` (1e-4) times the largest perimeter potential, with at most
-    ``MAX_LOCAL_SWEEPS`` (20) sweeps per window and ``MAX_GLOBAL_SWEEPS`` (2) global
-    sweeps per step. Over-relaxed sweeps remove the smooth far-field error (the
-    potential lagging behind the growing cluster) only slowly, so every
-    ``COARSE_EVERY`` (4) sites a two-grid correction on 4 x 4 blocks removes it.
+    each until the largest correction of a sweep falls below ``RELATIVE_TOLERANCE``
+    (1e-4) times the largest perimeter potential, at most ``MAX_LOCAL_SWEEPS`` (20)
+    sweeps per window. Fine sweeps remove the smooth far-field error (the potential
+    lagging behind the growing cluster) only slowly, so every ``COARSE_EVERY`` (4)
+    sites one two-grid cycle over the whole disc (Gauss-Seidel smoothing around a
+    correction solved on 4 x 4 blocks) removes it. A step thus costs about one sweep of
+    the disc in all, instead of the hundreds a converged solve from scratch would need.
 
-    Accuracy trade-off: the potential is never fully converged while growing, since a
-    full solve per site would cost hundreds of global sweeps. What decides growth is
+    Accuracy trade-off: the potential is never fully converged while growing. What decides growth is
     the potential at the perimeter. Against a direct sparse solve of the same discrete
     problem, the growth probabilities at the 10 most probable perimeter sites agree to
-    better than 0.1 % at eta = 1 and 0.3 % at eta = 2 (clusters of 250-3,000 sites).
-    Since the probability goes as phi ** eta the relative error grows with eta, to
-    2-3.5 % at eta = 4, where a tip advances far between coarse corrections (tested in
-    ``tests/simulate/test_dbm.py``).
+    about 0.2 % at eta = 1 and 0.6 % at eta = 2 (clusters of 250-3,000 sites). Since
+    the probability goes as phi ** eta the relative error grows with eta, to 1-3 % at
+    eta = 4, where tips advance far between coarse corrections and the far field lags
+    by about 2e-3 (tested in ``tests/simulate/test_dbm.py``).
 
     Cost: each step costs a few sweeps of the whole disc, whose area grows as the
     square of the cluster radius; nearly linear clusters (eta >= 3) therefore cost far
