@@ -663,8 +663,8 @@ def _choose_mode(gray: np.ndarray, rgb: np.ndarray, small: np.ndarray, small_fov
     decision = {"otsu_separability": round(separability, 3), "field": fov_kind}
     if fov_kind != "dark surround" or separability >= 0.6:
         return "threshold", decision
-    # Elongation of what a line measure finds at reduced resolution: vessel networks are
-    # long and thin (perimeter^2 / area large), texture and blobs are not.
+    # Elongation of what a line measure finds at reduced resolution: a network of thin
+    # vessels has a large share of boundary pixels (about 2 / width), texture blobs do not.
     channel, _ = _ridge_channel(gray, rgb)
     response = _line_measure(_block_mean(channel, factor), [1.0, 1.7], dark=True)
     vals = response[small_fov]
