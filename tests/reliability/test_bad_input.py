@@ -236,3 +236,29 @@ def test_pixel_limit_setting_applies_to_uploads(tmp_path):
         response = small.post("/api/specimens", files={"image": ("big.png", png, "image/png")})
     assert response.status_code == 413, response.text
     assert "250,000" in response.json()["detail"]
+
+
+ODD_IMAGES = {
+    "2 x 2": np.array([[0, 255], [255, 0]], np.uint8),
+    "8 x 8 noise": np.random.default_rng(1).integers(0, 256, (8, 8), dtype=np.uint8),
+    "one bright pixel": np.pad(np.full((1, 1), 255, np.uint8), 63),
+    "one dark pixel": np.pad(np.zeros((1, 1), np.uint8), 63, constant_values=255),
+    "1 x 400 strip": np.random.default_rng(2).integers(0, 256, (1, 400), dtype=np.uint8),
+    "400 x 3 strip": np.random.default_rng(3).integers(0, 256, (400, 3), dtype=np.uint8),
+    "half black, half white": np.repeat(np.array([[0, 255]], np.uint8), 128, axis=1).repeat(128, axis=0),
+    "two grey levels": np.where(np.indices((200, 200)).sum(0) % 7 == 0, 120, 121).astype(np.uint8),
+    "noise 256 x 256": np.random.default_rng(4).integers(0, 256, (256, 256), dtype=np.uint8),
+    "checkerboard": (np.indices((256, 256)).sum(0) % 2 * 255).astype(np.uint8),
+    "16-bit ramp": (np.linspace(0, 65535, 256 * 256).reshape(256, 256)).astype(np.uint16),
+}
+
+
+@pytest.mark.parametrize("name", list(ODD_IMAGES))
+def test_odd_but_decodable_images_never_answer_5xx(client, name):
+    """Images that decode but hold little or nothing to measure: 201 or a 4xx reason, never 5xx."""
+    response = client.post("/api/specimens", files={"image": ("odd.png", encode(ODD_IMAGES[name]), "image/png")})
+    assert response.status_code == 201 or 400 <= response.status_code < 500, (name, response.text[:300])
+    if response.status_code == 201:
+        assert client.delete(f"/api/specimens/{response.json()['id']}").status_code == 204
+    else:
+        assert response.json()["detail"]
