@@ -24,9 +24,7 @@ def _photo_bytes(size_px: int, seed: int = 7) -> bytes:
     from service.imaging import render_photo
     from service.simulate import dla
 
-    cluster = dla(20_000, seed=seed) > 0
-    rendered = render_photo(cluster, seed=seed, size_px=size_px)
-    image = rendered[0] if isinstance(rendered, tuple) else getattr(rendered, "image", rendered)
+    image = render_photo(dla(20_000, seed=seed) > 0, seed=seed, size_px=size_px)
     buffer = io.BytesIO()
     Image.fromarray(image).save(buffer, format="PNG")
     return buffer.getvalue()

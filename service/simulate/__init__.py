@@ -7,22 +7,33 @@ order of arrival 1..n, so growth can be replayed. Same seed, same array, bit for
 
 from __future__ import annotations
 
-import importlib
 from collections.abc import Callable
 
 import numpy as np
 
-#: Regime name -> module holding a function of the same name. The library builder and the
-#: matcher iterate over this; a new regime is one module plus one line here. Modules are
-#: imported on first use so that loading one simulator does not compile the others' kernels.
-REGIMES: tuple[str, ...] = ("dla", "eden", "ballistic", "dbm")
+from service.simulate.ballistic import ballistic
+from service.simulate.dbm import dbm
+from service.simulate.dla import dla
+from service.simulate.eden import eden
+
+#: Regime name -> growth function. The library builder and the matcher iterate over this;
+#: a new regime is one module plus one line here. (numba compiles each kernel on first call,
+#: so importing all of them costs nothing.)
+SIMULATORS: dict[str, Callable[..., np.ndarray]] = {
+    "dla": dla,
+    "eden": eden,
+    "ballistic": ballistic,
+    "dbm": dbm,
+}
+REGIMES: tuple[str, ...] = tuple(SIMULATORS)
 
 
 def simulator(regime: str) -> Callable[..., np.ndarray]:
     """The growth function of ``regime``."""
-    if regime not in REGIMES:
-        raise ValueError(f"unknown regime {regime!r}; known: {list(REGIMES)}")
-    return getattr(importlib.import_module(f"service.simulate.{regime}"), regime)
+    try:
+        return SIMULATORS[regime]
+    except KeyError:
+        raise ValueError(f"unknown regime {regime!r}; known: {list(REGIMES)}") from None
 
 
 def grow(regime: str, n_particles: int, *, seed: int, **parameters) -> np.ndarray:
@@ -30,10 +41,4 @@ def grow(regime: str, n_particles: int, *, seed: int, **parameters) -> np.ndarra
     return simulator(regime)(n_particles, seed=seed, **parameters)
 
 
-def __getattr__(name: str):
-    if name in REGIMES:
-        return simulator(name)
-    raise AttributeError(f"module 'service.simulate' has no attribute {name!r}")
-
-
-__all__ = ["REGIMES", "grow", "simulator", *REGIMES]
+__all__ = ["REGIMES", "SIMULATORS", "ballistic", "dbm", "dla", "eden", "grow", "simulator"]
