@@ -24,6 +24,19 @@ _MEDIA_TYPES = {"png": "image/png", "jpg": "image/jpeg", "tif": "image/tiff", "b
                 "svg": "image/svg+xml"}
 
 
+class ErrorBody(BaseModel):
+    detail: str = Field(description="what was wrong, in words")
+
+
+_UPLOAD_ERRORS: dict[int | str, dict[str, Any]] = {
+    413: {"model": ErrorBody, "description": "body over RAMIFORM_MAX_UPLOAD_MB, or more pixels than allowed"},
+    415: {"model": ErrorBody, "description": "not a PNG, JPEG, TIFF or BMP image (decided from the content)"},
+    422: {"model": ErrorBody, "description": "a field is invalid, or the image holds nothing to measure"},
+    503: {"model": ErrorBody, "description": "the analysis worker stopped; try again"},
+}
+_NOT_FOUND: dict[int | str, dict[str, Any]] = {404: {"model": ErrorBody, "description": "no such specimen"}}
+
+
 class SpecimenSummary(BaseModel):
     id: str
     label: str | None
@@ -140,14 +153,17 @@ def _csv(text_: str, filename: str) -> Response:
                     headers={"Content-Disposition": f'attachment; filename="{filename}"'})
 
 
-@router.post("/specimens", status_code=201, response_model=Specimen, summary="Upload and analyse one image")
+@router.post("/specimens", status_code=201, response_model=Specimen, responses=_UPLOAD_ERRORS,
+             summary="Upload and analyse one image")
 async def create_specimen(
     image: Annotated[UploadFile, File(description="PNG, JPEG, TIFF or BMP; the format is read from the content")],
     label: Annotated[str | None, Form(max_length=200, description="free text, e.g. the dish or the series")] = None,
     kind: Annotated[Kind | None, Form(description="what the specimen is; decides the cautions shown")] = None,
     pixel_size_mm: Annotated[float | None, Form(gt=0, description="calibration; overrides TIFF tags")] = None,
-    mode: Annotated[Literal["auto", "threshold", "ridge"], Form()] = "auto",
-    polarity: Annotated[Literal["auto", "dark", "bright"], Form()] = "auto",
+    mode: Annotated[Literal["auto", "threshold", "ridge"],
+                    Form(description="segmentation: auto, threshold, or ridge for thin lines")] = "auto",
+    polarity: Annotated[Literal["auto", "dark", "bright"],
+                        Form(description="specimen darker (dark) or brighter (bright) than its background")] = "auto",
     threshold: Annotated[float | None, Form(ge=0, le=1, description="fixed threshold, 0-1")] = None,
     roi: Annotated[str | None, Form(description="circle to analyse: 'cx,cy,r' in px")] = None,
     page: Annotated[int | None, Form(ge=0, description="TIFF page (0-based)")] = None,
@@ -197,14 +213,16 @@ async def export_all(
     return _csv(specimens_csv(records), "ramiform-specimens.csv")
 
 
-@router.get("/specimens/{specimen_id}", response_model=Specimen, summary="One specimen's analysis")
+@router.get("/specimens/{specimen_id}", response_model=Specimen, responses=_NOT_FOUND,
+            summary="One specimen's analysis")
 async def read_specimen(
     specimen_id: str, store: Store = Depends(get_store), lab: str | None = Depends(current_lab)
 ) -> dict[str, Any]:
     return specimen_body(await _found(store, specimen_id, lab))
 
 
-@router.delete("/specimens/{specimen_id}", status_code=204, response_class=Response, summary="Delete a specimen")
+@router.delete("/specimens/{specimen_id}", status_code=204, response_class=Response, responses=_NOT_FOUND,
+               summary="Delete a specimen")
 async def delete_specimen(
     specimen_id: str, store: Store = Depends(get_store), lab: str | None = Depends(current_lab)
 ) -> Response:
@@ -213,7 +231,8 @@ async def delete_specimen(
     return Response(status_code=204)
 
 
-@router.get("/specimens/{specimen_id}/export.csv", response_class=Response, summary="CSV of one specimen")
+@router.get("/specimens/{specimen_id}/export.csv", response_class=Response, responses=_NOT_FOUND,
+            summary="CSV of one specimen")
 async def export_one(
     specimen_id: str, store: Store = Depends(get_store), lab: str | None = Depends(current_lab)
 ) -> Response:
@@ -221,7 +240,7 @@ async def export_one(
     return _csv(specimens_csv([record]), f"ramiform-{record.id}.csv")
 
 
-@router.get("/specimens/{specimen_id}/files/{name}", response_class=FileResponse,
+@router.get("/specimens/{specimen_id}/files/{name}", response_class=FileResponse, responses=_NOT_FOUND,
             summary="A stored picture, plot or the uploaded image")
 async def specimen_file(
     specimen_id: str, name: str, store: Store = Depends(get_store), lab: str | None = Depends(current_lab)

@@ -61,7 +61,8 @@ def test_upload_read_list_export_delete(client, dla_png):
     assert listed["total"] == 2 and [s["id"] for s in listed["items"]] == [second["id"], body["id"]]
     d = body["features"]["box_dimension"]["value"]
     assert listed["items"][1]["box_dimension"] == d
-    assert [s["id"] for s in client.get("/api/specimens", params={"limit": 1, "offset": 1}).json()["items"]] == [body["id"]]
+    page = client.get("/api/specimens", params={"limit": 1, "offset": 1}).json()["items"]
+    assert [s["id"] for s in page] == [body["id"]]
     assert [s["id"] for s in client.get("/api/specimens", params={"label": "B"}).json()["items"]] == [second["id"]]
 
     # CSV: one specimen, and the whole list (the route is not mistaken for an id)

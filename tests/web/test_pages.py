@@ -43,7 +43,8 @@ def test_report_page_shows_pictures_numbers_and_cautions(client, dla_png):
 
 
 def test_list_compare_library_and_docs_pages(client, dla_png):
-    ids = [_upload(client, data, label=f"dish {i}")["id"] for i, data in enumerate((dla_png, specimen_png(2), specimen_png(3)))]
+    images = (dla_png, specimen_png(2), specimen_png(3))
+    ids = [_upload(client, data, label=f"dish {i}")["id"] for i, data in enumerate(images)]
     listing = client.get("/specimens").text
     assert all(f"/api/specimens/{i}/files/thumbnail.png" in listing for i in ids)
     assert client.get("/specimens", params={"label": "dish 1"}).text.count('name="ids"') == 1

@@ -61,7 +61,8 @@ def _record(i: int, features: dict) -> SpecimenRecord:
 def test_standardised_distance_is_rms_of_z_differences():
     rng = np.random.default_rng(7)
     table = rng.normal(size=(6, 2)) * [0.1, 20.0] + [1.6, 100.0]
-    population = [_record(i, {"box_dimension": {"value": a}, "skeleton": {"tips": b}}) for i, (a, b) in enumerate(table)]
+    population = [_record(i, {"box_dimension": {"value": a}, "skeleton": {"tips": b}})
+                  for i, (a, b) in enumerate(table)]
     matrix, used, n = standardised_distances(population[:3], population)
     assert used == ["box_dimension.value", "skeleton.tips"] and n == 6
     sd = table.std(axis=0, ddof=1)
