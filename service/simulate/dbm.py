@@ -27,9 +27,11 @@ REGRID_HEADROOM = 1.25
 RELATIVE_TOLERANCE = 1e-4
 #: Half-widths of the windows relaxed around each new site, innermost first.
 LOCAL_WINDOWS = (4, 12, 32)
-#: Sweep caps: per window, and after a regrid.
+#: Sweeps per window at most; after a regrid, two-grid cycles (each followed by up to
+#: 20 SOR sweeps) until a sweep corrects less than REGRID_TOLERANCE, at most REGRID_CYCLES.
 MAX_LOCAL_SWEEPS = 20
-MAX_REGRID_SWEEPS = 3000
+REGRID_TOLERANCE = 1e-6
+REGRID_CYCLES = 30
 #: Every COARSE_EVERY sites the smooth far-field error is removed on blocks of
 #: COARSE_BLOCK x COARSE_BLOCK cells (a two-grid correction), with at most
 #: MAX_COARSE_SWEEPS coarse sweeps.
@@ -128,6 +130,20 @@ def _coarse_correction(phi, kind, block, omega, tol, max_sweeps):
             u = min(max(y - b, 0.0), 1.0)
             phi[i, j] += ((1.0 - t) * ((1.0 - u) * err[a, b] + u * err[a, b + 1])
                           + t * ((1.0 - u) * err[a + 1, b] + u * err[a + 1, b + 1]))
+
+
+@numba.njit(cache=True)
+def _two_grid_cycle(phi, kind, block, omega_coarse, tol):
+    """One Gauss-Seidel sweep, a coarse correction, two Gauss-Seidel sweeps, whole grid.
+
+    Caller guarantees the layout of ``_sor_window``. The smoothing is plain Gauss-Seidel
+    (omega = 1): over-relaxed sweeps damp the rough error left by the prolongation too
+    slowly, and repeated cycles can then diverge.
+    """
+    side = phi.shape[0]
+    _sor_window(phi, kind, 1, side - 1, 1, side - 1, 1.0, 0.0, 1)
+    _coarse_correction(phi, kind, block, omega_coarse, tol, MAX_COARSE_SWEEPS)
+    _sor_window(phi, kind, 1, side - 1, 1, side - 1, 1.0, 0.0, 2)
 
 
 @numba.njit(cache=True)
@@ -242,11 +258,7 @@ def _grow_on_grid(order, kind, phi, k_done, n_total, uniforms, eta, r_limit,
             omega = 2.0 / (1.0 + math.sin(math.pi / (2.0 * half + 2.0)))
             _sor_window(phi, kind, a0, a1, b0, b1, omega, tol, max_local)
         if coarse_every > 0 and k % coarse_every == 0:
-            # plain Gauss-Seidel around the correction: over-relaxed sweeps damp the
-            # rough error it leaves behind too slowly, and the cycle can then diverge
-            _sor_window(phi, kind, lo, hi, lo, hi, 1.0, 0.0, 1)
-            _coarse_correction(phi, kind, block, omega_coarse, tol, MAX_COARSE_SWEEPS)
-            _sor_window(phi, kind, lo, hi, lo, hi, 1.0, 0.0, 2)
+            _two_grid_cycle(phi, kind, block, omega_coarse, tol)
     return k, r_cluster
 
 
@@ -312,23 +324,23 @@ def _grow(n_particles: int, eta: float, seed: int, *, windows=LOCAL_WINDOWS,
     order, kind, phi = _make_grid(r_out, None, None, None, 0.0)
     windows = np.array(windows, dtype=np.int64)
     k = 1
-    r_cluster = 0.0
-    first = True
-    while k < n_particles:
-        if not first:
-            new_r_out = _electrode_radius(r_cluster)
-            order, kind, phi = _make_grid(new_r_out, order, phi, r_out, r_cluster)
-            r_out = new_r_out
-        first = False
+    while True:
         side = order.shape[0]
+        omega_fine, omega_coarse = _global_omega(r_out), _global_omega(r_out // COARSE_BLOCK)
         # converge the (re-made) grid before growing on it
-        _sor_window(phi, kind, 1, side - 1, 1, side - 1, _global_omega(r_out),
-                    RELATIVE_TOLERANCE * 1e-2, MAX_REGRID_SWEEPS)
+        for _ in range(REGRID_CYCLES):
+            _two_grid_cycle(phi, kind, COARSE_BLOCK, omega_coarse, REGRID_TOLERANCE)
+            if _sor_window(phi, kind, 1, side - 1, 1, side - 1, omega_fine,
+                           REGRID_TOLERANCE, 20) < 20:
+                break
         k, r_cluster = _grow_on_grid(order, kind, phi, k, n_particles, uniforms, float(eta),
                                      _radius_limit(r_out), windows, MAX_LOCAL_SWEEPS, rel_tol,
-                                     coarse_every, COARSE_BLOCK,
-                                     _global_omega(r_out // COARSE_BLOCK))
-    return order, kind, phi
+                                     coarse_every, COARSE_BLOCK, omega_coarse)
+        if k >= n_particles:
+            return order, kind, phi
+        new_r_out = _electrode_radius(r_cluster)
+        order, kind, phi = _make_grid(new_r_out, order, phi, r_out, r_cluster)
+        r_out = new_r_out
 
 
 def dbm(n_particles: int, *, eta: float, seed: int) -> np.ndarray:
@@ -364,7 +376,7 @@ def dbm(n_particles: int, *, eta: float, seed: int) -> np.ndarray:
     it, the grid is re-made with the radius grown by a factor ``REGRID_HEADROOM`` (1.25),
     so the electrode sits between 2 and 2.5 cluster radii away; the old potential,
     rescaled for the moved electrode, is the warm start of the new grid, which is relaxed
-    until the largest correction is below 1e-6 (or ``MAX_REGRID_SWEEPS`` sweeps).
+    until the largest correction of a sweep is below 1e-6.
 
     Solver: red-black successive over-relaxation of the 5-point Laplace equation, warm
     started from the previous step. After each new site (set to 0) the windows of
