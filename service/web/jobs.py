@@ -21,9 +21,6 @@ import numpy as np
 
 from service.errors import LibraryError, RamiformError
 
-#: File names of a stored specimen (beside ``source.<format>``, the upload itself).
-PICTURES = ("photo.png", "overlay.png", "mask.png", "thumbnail.png")
-PLOTS = ("box_counting.svg", "lacunarity.svg", "references.svg")
 _SOURCE_SUFFIX = {"PNG": "png", "JPEG": "jpg", "TIFF": "tif", "BMP": "bmp"}
 
 
@@ -83,13 +80,6 @@ def _reference_set_or_reason(library_dir: str | None):
         return None, f"not ranked against the reference library: {exc}"
 
 
-def _family_name(match: dict[str, Any] | None) -> str | None:
-    if not match:
-        return None
-    params = ", ".join(f"{k}={v}" for k, v in (match.get("parameters") or {}).items())
-    return f"{match.get('regime')} ({params})" if params else str(match.get("regime"))
-
-
 def matcher_rows(analysis: dict[str, Any]) -> list[dict[str, Any]]:
     """The matcher's per-feature rows (``explanation.all_features``), or [] when unranked."""
     explanation = analysis.get("explanation")
@@ -100,10 +90,15 @@ def matcher_rows(analysis: dict[str, Any]) -> list[dict[str, Any]]:
 def run_analysis(data: bytes, options: AnalysisOptions) -> dict[str, Any]:
     """Analyse one upload; returns ``{"analysis": dict, "files": {name: bytes}}``.
 
+    Files: ``source.<format>`` (the upload), ``photo.png`` and ``overlay.png`` (display
+    size), ``mask.png`` (full size, 1 bit), ``thumbnail.png``, ``box_counting.svg``,
+    ``lacunarity.svg`` and, when ranked, ``references.svg``.
+
     Raises the pipeline's own errors (``RamiformError`` subclasses, ``ValueError``) unchanged.
     """
     from service.analysis import analyze
     from service.web import pictures, plots
+    from service.web.formatting import family_name
 
     reference_set, not_ranked = _reference_set_or_reason(options.library_dir)
     result = analyze(
@@ -139,7 +134,7 @@ def run_analysis(data: bytes, options: AnalysisOptions) -> dict[str, Any]:
     if rows:
         explanation = analysis["explanation"]
         files["references.svg"] = plots.reference_distributions_svg(
-            rows, _family_name(explanation.get("best")) or "best match", _family_name(explanation.get("runner_up"))
+            rows, family_name(explanation.get("best")) or "best match", family_name(explanation.get("runner_up"))
         )
     return {"analysis": analysis, "files": files}
 

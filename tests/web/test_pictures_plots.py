@@ -12,7 +12,7 @@ from scipy import ndimage
 
 from service.store import SpecimenRecord
 from service.web import pictures, plots
-from service.web.pages import standardised_distances
+from service.web.compare import standardised_distances
 
 SVG = "{http://www.w3.org/2000/svg}svg"
 
