@@ -16,6 +16,7 @@ from service.web import api, auth, pages
 from service.web.errors import install_error_handlers
 from service.web.jobs import AnalysisPool
 from service.web.limits import UploadLimitMiddleware
+from service.web.security import SecurityHeadersMiddleware
 from service.web.settings import Settings
 
 STATIC_DIR = Path(__file__).resolve().parents[2] / "static"
@@ -56,6 +57,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     auth.install_login_redirect(app)
     # 413 with a JSON reason while the body streams (FastAPI's own limit answers in plain text)
     app.add_middleware(UploadLimitMiddleware, max_bytes=settings.max_upload_bytes)
+    app.add_middleware(SecurityHeadersMiddleware)  # CSP, nosniff, no framing, on every answer
     app.mount("/static", StaticFiles(directory=STATIC_DIR), name="static")
     app.include_router(api.router)
     app.include_router(pages.router)

@@ -262,3 +262,12 @@ def test_odd_but_decodable_images_never_answer_5xx(client, name):
         assert client.delete(f"/api/specimens/{response.json()['id']}").status_code == 204
     else:
         assert response.json()["detail"]
+
+
+def test_every_answer_forbids_foreign_scripts_framing_and_type_sniffing(client):
+    for path in ("/", "/specimens", "/api/health", "/api/specimens/missing"):
+        headers = client.get(path).headers
+        policy = headers["content-security-policy"]
+        assert "script-src 'self'" in policy and "frame-ancestors 'none'" in policy, path
+        assert "unsafe-inline" not in policy.split("script-src")[1].split(";")[0], path
+        assert headers["x-content-type-options"] == "nosniff", path
