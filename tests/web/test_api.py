@@ -193,13 +193,13 @@ def test_api_keys_scope_specimens_to_a_lab(tmp_path, dla_png):
         assert c.get("/api/health").status_code == 200
 
 
-def test_analyses_run_in_worker_processes_while_the_service_answers(tmp_path):
+def test_analyses_run_in_worker_processes_while_the_service_answers(tmp_path, tiny_library):
     import concurrent.futures
     import threading
     import time
 
     big = specimen_png(4, n_particles=3000, size_px=1400)
-    with make_client(tmp_path, workers=1) as c:
+    with make_client(tmp_path, workers=1, library_dir=tiny_library) as c:
         pool = c.app.state.pool._executor
         assert isinstance(pool, concurrent.futures.ProcessPoolExecutor)
         c.get("/api/health")

@@ -1,18 +1,15 @@
-"""Pictures and plots of the report: nothing lost when downscaled, valid SVG, honest distances."""
+"""Pictures and plots of the report: nothing lost when downscaled, valid SVG documents."""
 
 from __future__ import annotations
 
 import io
 import xml.etree.ElementTree as ET
-from datetime import datetime, timezone
 
 import numpy as np
 from PIL import Image
 from scipy import ndimage
 
-from service.store import SpecimenRecord
 from service.web import pictures, plots
-from service.web.compare import standardised_distances
 
 SVG = "{http://www.w3.org/2000/svg}svg"
 
@@ -50,26 +47,3 @@ def test_plots_are_svg_documents():
     rows = [{"feature": "box_dimension", "value": 1.65, "best": {"mean": 1.7, "sd": 0.05, "z": -1.0},
              "runner_up": {"mean": 1.9, "sd": 0.04, "z": -6.25}}]
     assert ET.fromstring(plots.reference_distributions_svg(rows, "dla", "eden")).tag == SVG
-
-
-def _record(i: int, features: dict) -> SpecimenRecord:
-    return SpecimenRecord(id=f"s{i}", owner=None, label=None, kind=None, filename=None,
-                          created_at=datetime.now(timezone.utc), sha256="", files=(),
-                          analysis={"features": features})
-
-
-def test_standardised_distance_is_rms_of_z_differences():
-    rng = np.random.default_rng(7)
-    table = rng.normal(size=(6, 2)) * [0.1, 20.0] + [1.6, 100.0]
-    population = [_record(i, {"box_dimension": {"value": a}, "skeleton": {"tips": b}})
-                  for i, (a, b) in enumerate(table)]
-    matrix, used, n = standardised_distances(population[:3], population)
-    assert used == ["box_dimension.value", "skeleton.tips"] and n == 6
-    sd = table.std(axis=0, ddof=1)
-    for i in range(3):
-        for j in range(3):
-            expected = np.sqrt(np.mean(((table[i] - table[j]) / sd) ** 2))
-            assert np.isclose(matrix[i][j], expected)
-    assert matrix[0][0] == 0 and np.isclose(matrix[0][1], matrix[1][0])
-    # fewer than three stored specimens: no spread, so no distance is claimed
-    assert standardised_distances(population[:2], population[:2])[1] == []
