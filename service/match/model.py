@@ -21,7 +21,7 @@ from service.errors import LibraryError
 from service.match.cache import ReferenceTable
 
 #: Shrinkage weights tried by the leave-one-out calibration (weight on the pooled covariance).
-SHRINKAGE_GRID = (0.1, 0.25, 0.4, 0.55, 0.7, 0.85)
+SHRINKAGE_GRID = (0.1, 0.25, 0.4, 0.55, 0.7, 0.85, 0.95)
 #: A small ridge (fraction of the pooled variances) keeps every covariance invertible.
 VARIANCE_FLOOR = 1e-3
 #: ``in_library`` is false beyond this quantile of the chi-square law of the squared
@@ -51,6 +51,14 @@ def families_of(reference_set) -> list[Family]:
         found = grouped.get(family.key, family)
         grouped[family.key] = Family(e.regime, parameters, (*found.ensembles, index))
     return list(grouped.values())
+
+
+def family_index(families: list[Family], n_ensembles: int) -> np.ndarray:
+    """The family of each ensemble, as indices into ``families``."""
+    index = np.empty(n_ensembles, dtype=np.int64)
+    for f, family in enumerate(families):
+        index[list(family.ensembles)] = f
+    return index
 
 
 @dataclass(frozen=True, eq=False)
@@ -196,9 +204,7 @@ def held_out_scores(
     """
     full = _statistics(table, families, n_ensembles, shrinkage)
     counts, means, log_sizes, scatter = _scatter(table, n_ensembles)
-    family_of = np.empty(n_ensembles, dtype=np.int64)
-    for f, family in enumerate(families):
-        family_of[list(family.ensembles)] = f
+    family_of = family_index(families, n_ensembles)
     family_scatter = np.stack([scatter[list(fam.ensembles)].sum(axis=0) for fam in families])
     family_dof = np.array([(counts[list(fam.ensembles)] - 1).sum() for fam in families])
     pooled_scatter, pooled_dof = family_scatter.sum(axis=0), family_dof.sum()
@@ -234,7 +240,7 @@ def held_out_scores(
     return d2_all, ll_all
 
 
-def _fit_temperature(loglik: np.ndarray, truth: np.ndarray) -> tuple[float, float]:
+def fit_temperature(loglik: np.ndarray, truth: np.ndarray) -> tuple[float, float]:
     """Temperature minimising the held-out negative log-likelihood of the true families."""
 
     def nll(log_t: float) -> float:
@@ -245,14 +251,24 @@ def _fit_temperature(loglik: np.ndarray, truth: np.ndarray) -> tuple[float, floa
     return float(np.exp(best.x)), float(best.fun)
 
 
+def novelty_threshold(own_d2: np.ndarray, n_features: int) -> float:
+    """Squared distance beyond which a specimen is out of library.
+
+    The chi-square quantile ``NOVELTY_QUANTILE`` for ``n_features`` degrees of freedom,
+    raised to 1.05 times the largest held-out distance of a reference to its own family
+    (``own_d2``) when that is farther: the references' features are not exactly Gaussian,
+    and no reference should be called foreign to its own library.
+    """
+    return max(float(stats.chi2.ppf(NOVELTY_QUANTILE, n_features)), 1.05 * float(np.max(own_d2)))
+
+
 def fit_model(reference_set, table: ReferenceTable) -> ReferenceModel:
     """Fit the statistics and calibrate them by leaving one realisation out at a time.
 
     The shrinkage weight and the temperature are the pair that minimises the held-out
     negative log-likelihood of each cluster's true family (temperature scaling,
-    Guo et al. 2017). The novelty threshold is the chi-square quantile ``NOVELTY_QUANTILE``
-    for the number of features, raised to the largest held-out distance to a cluster's own
-    family if that is farther, so that no reference would be called out of library.
+    Guo et al. 2017). The novelty threshold is :func:`novelty_threshold` of the held-out
+    distances of the references to their own families.
 
     References
     ----------
@@ -263,24 +279,21 @@ def fit_model(reference_set, table: ReferenceTable) -> ReferenceModel:
     """
     families = families_of(reference_set)
     n_ensembles = len(reference_set.ensembles)
-    family_of = np.empty(n_ensembles, dtype=np.int64)
-    for f, family in enumerate(families):
-        family_of[list(family.ensembles)] = f
-    truth = family_of[table.ensemble]
+    truth = family_index(families, n_ensembles)[table.ensemble]
     trials = []
     for shrinkage in SHRINKAGE_GRID:
         d2, ll = held_out_scores(table, families, n_ensembles, shrinkage)
-        temperature, nll = _fit_temperature(ll, truth)
-        trials.append((nll, shrinkage, temperature, d2))
-    nll, shrinkage, temperature, d2 = min(trials, key=lambda t: t[0])
+        temperature, nll = fit_temperature(ll, truth)
+        trials.append((nll, shrinkage, temperature, d2, ll))
+    nll, shrinkage, temperature, d2, ll = min(trials, key=lambda t: t[0])
     k = table.values.shape[1]
-    nominal = float(stats.chi2.ppf(NOVELTY_QUANTILE, k))
     own = d2[np.arange(truth.size), truth]
-    novelty = max(nominal, float(own.max()) * 1.05)
-    sizes = np.exp(np.concatenate(_statistics(table, families, n_ensembles, shrinkage).knots))
+    novelty = novelty_threshold(own, k)
+    statistics = _statistics(table, families, n_ensembles, shrinkage)
+    sizes = np.exp(np.concatenate(statistics.knots))
     return ReferenceModel(
         families=families,
-        statistics=_statistics(table, families, n_ensembles, shrinkage),
+        statistics=statistics,
         feature_names=table.feature_names,
         temperature=temperature,
         shrinkage=shrinkage,
@@ -291,9 +304,10 @@ def fit_model(reference_set, table: ReferenceTable) -> ReferenceModel:
             "temperature": temperature,
             "shrinkage": shrinkage,
             "novelty_quantile": NOVELTY_QUANTILE,
-            "novelty_chi2_d2": nominal,
+            "novelty_chi2_d2": float(stats.chi2.ppf(NOVELTY_QUANTILE, k)),
             "novelty_d2": novelty,
             "held_out_own_family_d2_max": float(own.max()),
+            "held_out_family_accuracy": float(np.mean(ll.argmax(axis=1) == truth)),
             "n_references": int(truth.size),
         },
         size_range=(float(sizes.min()), float(sizes.max())),
