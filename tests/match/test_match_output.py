@@ -1,0 +1,80 @@
+"""What match_features returns: stable keys, numbers traceable to the references."""
+
+from __future__ import annotations
+
+import json
+from types import SimpleNamespace
+
+import numpy as np
+import pytest
+
+from service.match import FEATURE_NAMES, match_features, reference_photo_mask
+from service.simulate import grow
+
+
+@pytest.fixture(scope="module")
+def dla_result(reference_set):
+    mask = reference_photo_mask(grow("dla", 2500, seed=424_242), seed=8)
+    return match_features(SimpleNamespace(mask=mask), reference_set=reference_set)
+
+
+def test_keys_and_matches_are_stable(reference_set, dla_result):
+    assert set(dla_result) == {"matches", "in_library", "parameter_estimates", "explanation", "warnings"}
+    json.dumps(dla_result, allow_nan=False)
+    matches = dla_result["matches"]
+    probabilities = [m["probability"] for m in matches]
+    assert probabilities == sorted(probabilities, reverse=True)
+    assert sum(probabilities) == pytest.approx(1.0, abs=1e-9)
+    listed = {(m["regime"], json.dumps(m["parameters"], sort_keys=True)) for m in matches}
+    assert listed == {(e.regime, json.dumps(dict(e.parameters), sort_keys=True)) for e in reference_set.ensembles}
+    for m in matches:
+        assert {"regime", "parameters", "probability", "distance"} <= set(m)
+        assert m["distance"] >= 0
+        ids = {e.id for e in reference_set.ensembles}
+        assert all(e["id"] in ids for e in m["ensembles"])
+        assert sum(e["weight"] for e in m["ensembles"]) == pytest.approx(1.0)
+
+
+def test_a_fresh_dla_cluster_is_dla_class_and_the_explanation_says_why(dla_result):
+    top = dla_result["matches"][0]
+    assert top["regime"] == "dla" or (top["regime"] == "dbm" and top["parameters"]["eta"] == 1.0)
+    assert dla_result["in_library"]
+    explanation = dla_result["explanation"]
+    assert "universality class" in explanation["universality_note"]
+    assert explanation["best"]["regime"] == top["regime"]
+    assert len(explanation["deciding_features"]) >= 1
+    for row in explanation["all_features"]:
+        assert row["feature"] in FEATURE_NAMES
+        for side in ("best", "runner_up"):
+            ref = row[side]
+            # Exact: z is the value's distance from the reference mean in reference spreads.
+            assert ref["z"] == pytest.approx((row["value"] - ref["mean"]) / ref["sd"], rel=1e-9)
+        assert row["weight_of_evidence"] == pytest.approx(0.5 * (row["runner_up"]["z"] ** 2 - row["best"]["z"] ** 2))
+    weights = [r["weight_of_evidence"] for r in explanation["deciding_features"]]
+    assert weights == sorted(weights, reverse=True)
+    assert explanation["novelty"]["nearest_distance"] <= explanation["novelty"]["threshold_distance"]
+    assert explanation["references"]["calibration"]["temperature"] > 0
+
+
+def test_continuous_parameters_are_estimated_with_a_spread(dla_result):
+    estimates = dla_result["parameter_estimates"]
+    for regime, parameters in estimates.items():
+        for name, estimate in parameters.items():
+            grid = estimate["values_in_library"]
+            assert min(grid) <= estimate["value"] <= max(grid)
+            assert estimate["std"] >= 0
+            assert 0 <= estimate["regime_probability"] <= 1
+    assert "eta" in estimates["dbm"]
+
+
+def test_a_specimen_too_small_to_compare_is_reported_not_ranked(reference_set):
+    mask = np.zeros((40, 40), dtype=bool)
+    mask[10:13, 10:18] = True  # 24 px: fewer than MIN_SITES
+    result = match_features(None, reference_set=reference_set, mask=mask)
+    assert result["matches"] == [] and result["in_library"] is False
+    assert any("at least" in w for w in result["warnings"])
+
+
+def test_no_mask_is_a_clear_error(reference_set):
+    with pytest.raises(ValueError, match="mask"):
+        match_features(SimpleNamespace(), reference_set=reference_set)
