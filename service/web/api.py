@@ -141,6 +141,12 @@ def _roi(value: str | None) -> tuple[float, float, float] | None:
     return cx, cy, r
 
 
+def _display_name(filename: str | None) -> str | None:
+    """The client's file name as data: printable characters only, at most 255 of them."""
+    cleaned = "".join(c for c in filename or "" if c.isprintable())[:255]
+    return cleaned or None
+
+
 async def _found(store: Store, specimen_id: str, lab: str | None) -> SpecimenRecord:
     record = await run_in_threadpool(store.get, specimen_id, owner=lab)
     if record is None:
@@ -173,9 +179,12 @@ async def create_specimen(
     lab: str | None = Depends(current_lab),
 ) -> dict[str, Any]:
     """Analyse the image and store it; answers 201 only once record and files are on disk."""
+    if label is not None and not label.isprintable():  # PostgreSQL text cannot hold NUL, for one
+        raise HTTPException(422, "label must be plain text on one line (no control characters)")
+    filename = _display_name(image.filename)
     data = await image.read()
     options = AnalysisOptions(
-        filename=image.filename, pixel_size_mm=pixel_size_mm, mode=mode, polarity=polarity,
+        filename=filename, pixel_size_mm=pixel_size_mm, mode=mode, polarity=polarity,
         threshold=threshold, roi=_roi(roi), page=page,
         library_dir=str(settings.library_dir) if settings.library_dir else None,
         max_pixels=settings.max_pixels,
@@ -185,7 +194,7 @@ async def create_specimen(
     except ValueError as exc:  # the pipeline's message says what was wrong with the input
         raise HTTPException(422, str(exc)) from exc
     record = await run_in_threadpool(
-        store.add, result["analysis"], result["files"], label=label, kind=kind, filename=image.filename, owner=lab
+        store.add, result["analysis"], result["files"], label=label, kind=kind, filename=filename, owner=lab
     )
     return specimen_body(record)
 

@@ -70,3 +70,22 @@ class UploadLimitMiddleware:
             if exc.status_code != 413 or started:
                 raise
             await JSONResponse({"detail": self.reason}, status_code=413)(scope, receive, send)
+
+
+class NulGuardMiddleware:
+    """Refuse URLs carrying NUL characters (``%00``) with 400.
+
+    No id, label or file name holds one, and PostgreSQL text cannot store or compare one: such
+    a value would otherwise reach the database and fail there, as a server error.
+    """
+
+    reason = "URLs must not contain NUL characters (%00)"
+
+    def __init__(self, app: ASGIApp) -> None:
+        self.app = app
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] == "http" and ("\x00" in scope.get("path", "") or b"%00" in scope.get("query_string", b"")):
+            await JSONResponse({"detail": self.reason}, status_code=400)(scope, receive, send)
+            return
+        await self.app(scope, receive, send)

@@ -10,6 +10,7 @@ from __future__ import annotations
 import contextlib
 import io
 import os
+import secrets
 import signal
 import socket
 import subprocess
@@ -57,6 +58,37 @@ def make_settings(tmp_path: Path, **overrides) -> Settings:
               "api_keys": "", "secret_key": None, "library_dir": None}
     values.update(overrides)
     return Settings(**values)
+
+
+PG_URL = os.environ.get("RAMIFORM_TEST_DATABASE_URL")
+PG_SKIP = "RAMIFORM_TEST_DATABASE_URL is not set: the PostgreSQL run of these checks is skipped"
+#: Backends every in-process check runs on; PostgreSQL only when a server is given.
+BACKENDS = ["sqlite", pytest.param("postgresql", marks=pytest.mark.postgres)]
+
+
+@contextlib.contextmanager
+def database_url(backend: str) -> Iterator[str | None]:
+    """``None`` (the default SQLite file) or a PostgreSQL URL in a fresh schema, dropped afterwards."""
+    if backend == "sqlite":
+        yield None
+        return
+    if not PG_URL:
+        pytest.skip(PG_SKIP)
+    from sqlalchemy import text
+
+    from service.store import make_engine
+
+    schema = f"ramiform_reliability_{secrets.token_hex(6)}"
+    admin = make_engine(PG_URL)
+    with admin.begin() as conn:
+        conn.execute(text(f'CREATE SCHEMA "{schema}"'))
+    separator = "&" if "?" in PG_URL else "?"
+    try:
+        yield f"{PG_URL}{separator}options=-csearch_path%3D{schema}"
+    finally:
+        with admin.begin() as conn:
+            conn.execute(text(f'DROP SCHEMA "{schema}" CASCADE'))
+        admin.dispose()
 
 
 @contextlib.contextmanager

@@ -18,7 +18,7 @@ import zlib
 import numpy as np
 import pytest
 
-from tests.reliability.conftest import LOOPBACK, app_client, encode, specimen_rgb
+from tests.reliability.conftest import BACKENDS, LOOPBACK, app_client, database_url, encode, specimen_rgb
 
 
 def _png_chunk(kind: bytes, data: bytes) -> bytes:
@@ -75,9 +75,9 @@ def bad_uploads() -> dict[str, tuple[bytes, set[int]]]:
 CORPUS = bad_uploads()
 
 
-@pytest.fixture(scope="module")
-def client(tmp_path_factory):
-    with app_client(tmp_path_factory.mktemp("bad-input")) as c:
+@pytest.fixture(scope="module", params=BACKENDS)
+def client(request, tmp_path_factory):
+    with database_url(request.param) as url, app_client(tmp_path_factory.mktemp("bad-input"), database_url=url) as c:
         yield c
 
 
@@ -128,6 +128,20 @@ def test_bad_form_fields_answer_422(client, fields):
     assert response.json()["detail"]
 
 
+@pytest.mark.parametrize("label", ["dish\x003", "two\nlines", "bell\x07"])
+def test_labels_with_control_characters_answer_422(client, label):
+    png = encode(np.zeros((64, 64, 3), np.uint8))
+    response = client.post("/api/specimens", files={"image": ("a.png", png, "image/png")}, data={"label": label})
+    assert response.status_code == 422 and "label" in response.json()["detail"]
+
+
+@pytest.mark.parametrize("path", ["/api/specimens/%00", "/api/specimens?label=%00", "/specimens?label=dish%003",
+                                  "/api/specimens/a%00b/export.csv"])
+def test_nul_characters_in_urls_answer_400(client, path):
+    response = client.get(path)
+    assert response.status_code == 400 and "NUL" in response.json()["detail"]
+
+
 def test_missing_image_field_answers_422(client):
     response = client.post("/api/specimens", data={"label": "no image"})
     assert response.status_code == 422 and "image" in response.json()["detail"]
@@ -145,7 +159,7 @@ def test_format_is_read_from_content_not_name_or_type(client):
 
 
 @pytest.mark.parametrize("filename", ["../../etc/passwd", "<script>alert(1)</script>.png", "/tmp/x.png",
-                                      "..\\..\\boot.ini"])
+                                      "..\\..\\boot.ini", "long " * 120 + ".png"])
 def test_client_filename_is_data_never_a_path(client, filename):
     store = client.app.state.store
     png = encode(specimen_rgb())
@@ -158,7 +172,7 @@ def test_client_filename_is_data_never_a_path(client, filename):
     assert stored == sorted(body["files"]) and "source.png" in stored
     assert all(name.isascii() and "/" not in name and ".." not in name for name in stored)
     assert [p for p in store.data_dir.rglob("*") if "passwd" in p.name or "script" in p.name] == []
-    assert body["source"]["filename"] == filename
+    assert body["source"]["filename"] == filename[:255]  # kept as data, shortened to 255 characters
     assert client.delete(f"/api/specimens/{body['id']}").status_code == 204
 
 
