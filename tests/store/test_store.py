@@ -100,6 +100,19 @@ def test_schema_creation_is_idempotent(store):
     assert store.list()[1] == 1
 
 
+def test_instances_starting_together_create_the_schema_once(store):
+    # Several service instances starting at the same moment on an empty database.
+    from concurrent.futures import ThreadPoolExecutor
+
+    from service.store import Store
+    from service.store.models import Base
+
+    Base.metadata.drop_all(store.engine)
+    with ThreadPoolExecutor(4) as pool:
+        list(pool.map(lambda _: Store(store.engine, store.data_dir).create_schema(), range(4)))
+    assert store.add(_analysis(0), {"a.png": b"x"}).id in {r.id for r in store.list()[0]}
+
+
 def test_failed_commit_leaves_no_files(store):
     first = store.add(_analysis(0), {"a.png": b"x"})
     with pytest.raises(FileExistsError):
