@@ -13,6 +13,7 @@ from pathlib import Path
 from typing import Any
 
 from service import __version__
+from service.errors import LibraryError
 from service.features import Features, measure
 from service.imaging import LoadedImage, Segmentation, load_image, segment
 from service.imaging.load import DEFAULT_MAX_PIXELS
@@ -132,8 +133,13 @@ def analyze(
     if match:
         from service.match import match_features
 
-        matching = match_features(features, reference_set=reference_set, mask=seg.mask)
-        warnings.extend(matching.pop("warnings", []))
+        try:
+            matching = match_features(features, reference_set=reference_set, mask=seg.mask)
+        except LibraryError as exc:
+            # A missing or damaged reference set must not cost the user the measurements.
+            warnings.append(f"not ranked against the reference library: {exc}")
+        else:
+            warnings.extend(matching.pop("warnings", []))
     source_info = {
         "filename": filename,
         "sha256": hashlib.sha256(data).hexdigest(),
