@@ -202,7 +202,7 @@ async def create_specimen(
 @router.get("/specimens", response_model=SpecimenPage, summary="List specimens, newest first")
 async def list_specimens(
     limit: Annotated[int, Query(ge=1, le=500)] = 50,
-    offset: Annotated[int, Query(ge=0)] = 0,
+    offset: Annotated[int, Query(ge=0, le=2**31 - 1)] = 0,  # bounded: the database's integer
     label: Annotated[str | None, Query(max_length=200, description="only specimens with this label")] = None,
     store: Store = Depends(get_store),
     lab: str | None = Depends(current_lab),

@@ -62,7 +62,7 @@ async def demo_image(settings: Settings = Depends(get_settings), pool: AnalysisP
 @router.get("/specimens", response_class=HTMLResponse)
 async def specimens_page(
     request: Request,
-    offset: Annotated[int, Query(ge=0)] = 0,
+    offset: Annotated[int, Query(ge=0, le=2**31 - 1)] = 0,  # bounded: the database's integer
     label: Annotated[str | None, Query(max_length=200)] = None,
     store: Store = Depends(get_store),
     lab: str | None = Depends(current_lab),

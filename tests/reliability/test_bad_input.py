@@ -142,6 +142,29 @@ def test_nul_characters_in_urls_answer_400(client, path):
     assert response.status_code == 400 and "NUL" in response.json()["detail"]
 
 
+@pytest.mark.parametrize("path", ["/api/specimens?offset=99999999999999999999999", "/specimens?offset=2147483648",
+                                  "/api/specimens?limit=abc", "/api/specimens?limit=0", "/compare?ids=" + "&ids=".join("a" * 13)])
+def test_out_of_range_queries_answer_422(client, path):
+    response = client.get(path)
+    assert response.status_code == 422, (path, response.status_code)
+    assert response.json()["detail"]
+
+
+@pytest.mark.parametrize(("name", "request_kwargs", "status"), [
+    ("JSON instead of a form", {"json": {"image": "x"}}, 422),
+    ("multipart without boundary", {"content": b"abc", "headers": {"content-type": "multipart/form-data"}}, 400),
+    ("image sent as a text field", {"content": b'--b\r\nContent-Disposition: form-data; name="image"\r\n\r\nhi\r\n--b--\r\n',
+                                    "headers": {"content-type": "multipart/form-data; boundary=b"}}, 422),
+    ("1,200 form fields", {"content": b"".join(b'--b\r\nContent-Disposition: form-data; name="f%d"\r\n\r\nx\r\n' % i
+                                               for i in range(1200)) + b"--b--\r\n",
+                           "headers": {"content-type": "multipart/form-data; boundary=b"}}, 400),
+])
+def test_malformed_requests_answer_4xx(client, name, request_kwargs, status):
+    response = client.post("/api/specimens", **request_kwargs)
+    assert response.status_code == status, (name, response.text)
+    assert response.json()["detail"]
+
+
 def test_missing_image_field_answers_422(client):
     response = client.post("/api/specimens", data={"label": "no image"})
     assert response.status_code == 422 and "image" in response.json()["detail"]
