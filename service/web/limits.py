@@ -1,9 +1,10 @@
-"""The upload size limit (``RAMIFORM_MAX_UPLOAD_MB``), enforced while the body streams.
+"""Limits on what a request may carry, checked before any route sees it (pure ASGI middleware).
 
-A pure ASGI middleware: a request whose ``Content-Length`` is over the limit is answered 413
-before a byte of its body is read; one without it (chunked) is counted as it arrives and
-refused the moment the running count passes the limit. Either way the answer is the usual
-``{"detail": "..."}`` and the rest of the body is never read into memory.
+The upload size limit (``RAMIFORM_MAX_UPLOAD_MB``) is enforced while the body streams: a
+request whose ``Content-Length`` is over the limit is answered 413 before a byte of its body
+is read; one without it (chunked) is counted as it arrives and refused the moment the running
+count passes the limit. Either way the answer is the usual ``{"detail": "..."}`` and the rest
+of the body is never read into memory. URLs carrying NUL characters are refused with 400.
 """
 
 from __future__ import annotations
