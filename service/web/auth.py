@@ -70,11 +70,16 @@ def lab_from_cookie(request: Request, settings: Settings) -> str | None:
     key = settings.keys_by_lab.get(lab) if isinstance(lab, str) else None
     if key is None or not hmac.compare_digest(str(data.get("key", "")), _fingerprint(settings, key)):
         return None
-    origin = request.headers.get("origin")
-    if request.method not in _SAFE_METHODS and origin and urlsplit(origin).netloc != request.headers.get("host"):
+    if request.method not in _SAFE_METHODS and not _same_origin(request):
         log.warning("refused a cross-site %s %s carrying a page cookie", request.method, request.url.path)
         return None
     return lab
+
+
+def _same_origin(request: Request) -> bool:
+    """False when the browser says the request comes from a page of another host."""
+    origin = request.headers.get("origin")
+    return not origin or urlsplit(origin).netloc == request.headers.get("host")
 
 
 def _safe_next(target: str | None) -> str:
@@ -108,7 +113,8 @@ async def login(
     from service.web.deps import lab_for_key  # here, since deps imports this module
 
     settings: Settings = request.app.state.settings
-    lab = lab_for_key(settings, key.strip()) if settings.keys_by_lab else None
+    # Another site's form must not sign this browser in (to a lab of the attacker's choosing).
+    lab = lab_for_key(settings, key.strip()) if settings.keys_by_lab and _same_origin(request) else None
     if lab is None:
         log.info("page sign-in refused: unknown key")
         return _login_page(request, next_path=_safe_next(next), error="That key is not valid here.",

@@ -164,6 +164,12 @@ def test_forged_stale_and_cross_site_cookies_are_refused(labs, tmp_path):
     assert (cross.status_code, same.status_code) == (401, 404)
 
 
+def test_another_sites_form_cannot_sign_a_browser_in(labs):
+    client, _ = labs
+    response = browser(client).post("/login", data={"key": KEY_A, "next": "/"}, headers={"Origin": "http://evil.example"})
+    assert response.status_code == 401 and "set-cookie" not in response.headers
+
+
 @pytest.mark.parametrize("target", ["//evil.example/x", "https://evil.example", "/\\evil.example", "specimens"])
 def test_sign_in_never_redirects_off_the_service(labs, target):
     client, _ = labs
