@@ -136,6 +136,12 @@ def _family_entry(model: ReferenceModel, f: int, probability: float, d2: float, 
     }
 
 
+def _label(match: dict[str, Any]) -> str:
+    parameters = ", ".join(f"{k}={v}" for k, v in match["parameters"].items())
+    return (f"{match['regime']}{f' ({parameters})' if parameters else ''}: probability "
+            f"{match['probability']:.2f}, Mahalanobis distance {match['distance']:.2f}")
+
+
 def _feature_row(model, values, mu, f: int, name_index: int) -> dict[str, float]:
     sd = float(np.sqrt(model.statistics.covariance[f, name_index, name_index]))
     mean = float(mu[f, name_index])
@@ -230,32 +236,36 @@ def match_features(features, *, reference_set=None, mask: np.ndarray | None = No
             row["weight_of_evidence"] = 0.5 * (row["runner_up"]["z"] ** 2 - row["best"]["z"] ** 2)
         rows.append(row)
     deciding = sorted(rows, key=lambda r: -r.get("weight_of_evidence", 0.0))[:N_DECIDING]
-    classes = {universality_class(model.families[f].regime, model.families[f].parameters)
-               for f in (best, runner) if f is not None}
     best_class = universality_class(model.families[best].regime, model.families[best].parameters)
     note = _class_note(best_class)
     outliers = [name for n, (name, _) in enumerate(FEATURES)
                 if abs(_feature_row(model, values, mu, nearest, n)["z"]) > OUTLIER_Z]
-    b = matches[0]
-    summary = (
-        f"best match {b['regime']} {b['parameters']} (probability {b['probability']:.2f}, "
-        f"Mahalanobis distance {b['distance']:.2f})"
-    )
+    summary = f"best match {_label(matches[0])}"
     if runner is not None:
-        r = matches[1]
-        summary += f"; runner-up {r['regime']} {r['parameters']} ({r['probability']:.2f})"
-        if len(classes) == 1 and None not in classes:
+        summary += f"; runner-up {_label(matches[1])}"
+        if best_class is not None and best_class == universality_class(
+            model.families[runner].regime, model.families[runner].parameters
+        ):
             summary += f"; both belong to one universality class ({best_class})"
     if not in_library:
         summary = "outside the library: " + summary
+    regime_probability: dict[str, float] = {}
+    for f, family in enumerate(model.families):
+        regime_probability[family.regime] = regime_probability.get(family.regime, 0.0) + float(probability[f])
     explanation = {
         "summary": summary,
         "best": matches[0],
         "runner_up": matches[1] if runner is not None else None,
+        "log_probability_ratio": float(scaled[best] - scaled[runner]) if runner is not None else None,
+        "regime_probabilities": dict(sorted(regime_probability.items(), key=lambda kv: -kv[1])),
         "deciding_features": deciding,
+        "weight_of_evidence": (
+            "half the runner-up's squared z-score minus the best's: each feature's share of the "
+            "log-likelihood ratio if features were uncorrelated (the ratio itself uses the full covariance)"
+        ),
         "all_features": rows,
         "universality_note": note,
-        "specimen": {**normalisation, "n_sites": int(vector.n_sites), "log_sites": log_sites},
+        "specimen": {**normalisation, "log_sites": log_sites},
         "novelty": {
             "nearest": {"regime": model.families[nearest].regime, "parameters": dict(model.families[nearest].parameters)},
             "nearest_distance": float(np.sqrt(d2[nearest])),
