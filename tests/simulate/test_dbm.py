@@ -179,7 +179,6 @@ def test_eta_zero_is_compact_like_eden():
     assert np.mean([mass_radius_dimension(grown(1200, 0.0, s)) for s in SEEDS[:2]]) >= 1.85
 
 
-@pytest.mark.slow
 def test_eta_one_is_in_the_dla_class():
     # Niemeyer, Pietronero & Wiesmann, PRL 52, 1033 (1984): D about 1.75 at eta = 1, the
     # DLA class (Witten & Sander 1981: about 1.70); from memory. 1,500 sites, 3 seeds.
