@@ -6,6 +6,7 @@ a filled region has dimension 2 and a smooth curve 1.
 
 import numpy as np
 import pytest
+from scipy import stats
 
 from service.errors import SpecimenError
 from service.features import box_counting, mass_radius, sandbox
@@ -31,6 +32,50 @@ def test_box_dimension_of_exact_fractals(name):
     assert fit.ci95[0] < fit.value < fit.ci95[1]
     assert fit.fit_range_px[1] / fit.fit_range_px[0] >= 10  # a decade of box sizes
     assert fit.warnings == ()
+
+
+INTERVAL_CASES = {
+    # name: (drawing, exact dimension): a filled region 2, a smooth curve 1 (exact).
+    "filled_disk": (lambda: shapes.filled_disk(801), 2.0),
+    **{
+        f"line_{angle:g}deg": (lambda angle=angle: shapes.straight_line(1000, angle), 1.0)
+        for angle in (0.0, 20.0, 30.0, 37.0, 45.0, 60.0, 90.0, 135.0)
+    },
+    **EXACT_FRACTALS,
+}
+#: Widest 95% interval accepted on these drawings. One pixel per smallest copy is the
+#: hardest case for a box count: redrawing the Vicsek cross at 1-4 px per cell moves
+#: the estimate over about 0.13, so an honest interval there is about 0.27 wide. 0.3
+#: still tells DLA (1.71) from compact growth (2) and from a curve (1).
+MAX_INTERVAL_WIDTH = 0.3
+
+
+@pytest.mark.parametrize("name", sorted(INTERVAL_CASES))
+def test_box_interval_holds_the_exact_dimension(name):
+    draw, exact = INTERVAL_CASES[name]
+    fit = box_counting(draw())
+    low, high = fit.ci95
+    # Exact dimension (CHECK_VALUES.md "Exact (mathematics)") inside the 95% interval.
+    assert low <= exact <= high, (name, fit.value, fit.ci95)
+    assert high - low < MAX_INTERVAL_WIDTH, (name, fit.ci95)
+    # Never narrower than the plain regression t-interval on the fitted points (scipy).
+    in_fit = (fit.sizes_px >= fit.fit_range_px[0]) & (fit.sizes_px <= fit.fit_range_px[1])
+    line = stats.linregress(np.log(fit.sizes_px[in_fit]), np.log(fit.counts[in_fit]))
+    assert line.slope == pytest.approx(-fit.value)
+    assert (high - low) / 2 >= stats.t.ppf(0.975, in_fit.sum() - 2) * line.stderr
+
+
+def test_mass_radius_interval_holds_the_exact_dimension():
+    # Exact: M(r) = pi r^2 in a disk, 2 r along a line; about its centre the Vicsek cross
+    # has 5^k cells within 3^k / 2 (log 5 / log 3, CHECK_VALUES.md).
+    cases = [
+        (mass_radius(shapes.filled_disk(801)), 2.0),
+        (mass_radius(shapes.straight_line(1000, 30.0)), 1.0),
+        (mass_radius(shapes.vicsek(6), center_rc=(364, 364)), shapes.VICSEK_DIMENSION),
+    ]
+    for fit, exact in cases:
+        assert fit.ci95[0] <= exact <= fit.ci95[1], (fit.value, fit.ci95, exact)
+        assert fit.ci95[1] - fit.ci95[0] < MAX_INTERVAL_WIDTH
 
 
 def test_box_sizes_are_finer_than_octaves():
