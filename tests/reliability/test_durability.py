@@ -10,6 +10,8 @@ moments of a store write: after the files, before the commit; and right after th
 from __future__ import annotations
 
 import hashlib
+import os
+import signal
 import sqlite3
 import subprocess
 import sys
@@ -154,3 +156,40 @@ def test_writer_killed_at_the_critical_moments(tmp_path, moment):
             assert not list(Path(store.folder(specimen_id)).glob(".*.tmp")), "temporary files left behind"
     finally:
         store.close()
+
+
+def _analysis_workers(server_pid: int) -> list[int]:
+    """Pids of the server's analysis processes (spawned children running multiprocessing's entry)."""
+    workers = []
+    for stat in Path("/proc").glob("[0-9]*/stat"):
+        try:
+            fields = stat.read_text().rsplit(")", 1)[1].split()
+            cmdline = (stat.parent / "cmdline").read_bytes()
+        except (OSError, IndexError):
+            continue  # the process ended while we looked
+        if int(fields[1]) == server_pid and b"spawn_main" in cmdline:
+            workers.append(int(stat.parent.name))
+    return workers
+
+
+def test_an_analysis_process_killed_mid_upload_costs_one_answer_only(server_factory, tmp_path):
+    """The worker dies (as under the out-of-memory killer): that upload gets 503, the next one 201."""
+    server = server_factory(tmp_path / "data", RAMIFORM_WORKERS="1", RAMIFORM_MAX_UPLOAD_MB="20")
+    small, large = encode(specimen_rgb(size_px=256)), encode(specimen_rgb(n_particles=3000, size_px=1400))
+    with httpx.Client(base_url=server.url, timeout=300) as http:
+        assert http.post("/api/specimens", files={"image": ("warm.png", small, "image/png")}).status_code == 201
+        workers = _analysis_workers(server.process.pid)
+        assert len(workers) == 1, workers
+        answer: list[httpx.Response] = []
+        upload = threading.Thread(target=lambda: answer.append(
+            http.post("/api/specimens", files={"image": ("large.png", large, "image/png")})))
+        upload.start()
+        time.sleep(1.0)  # the large analysis takes several seconds; kill the worker in the middle of it
+        os.kill(workers[0], signal.SIGKILL)
+        upload.join(timeout=120)
+        assert answer and answer[0].status_code == 503, answer and answer[0].text
+        assert "worker" in answer[0].json()["detail"]
+        assert http.get("/api/health").json()["status"] == "ok"
+        again = http.post("/api/specimens", files={"image": ("again.png", small, "image/png")})
+        assert again.status_code == 201, again.text
+        assert http.get("/api/specimens").json()["total"] == 2  # the lost upload left no record
