@@ -5,6 +5,7 @@ uploads; it is killed without warning while some are in flight, restarted on the
 folder, and must then serve every upload it had answered 201, with all its files, and list
 no record whose files are missing. Two further checks stop a writer at the two critical
 moments of a store write: after the files, before the commit; and right after the commit.
+A last one kills an analysis process mid-upload: only that upload fails, and says so.
 """
 
 from __future__ import annotations
