@@ -179,7 +179,7 @@ def _window_slopes(log_x: np.ndarray, log_y: np.ndarray) -> np.ndarray:
     ``O(n^2)`` runs cost no more than a handful of array operations.
     """
     n = log_x.size
-    if n < MIN_WINDOW_POINTS + 1:
+    if n < MIN_WINDOW_POINTS + 1 or log_x[-1] <= log_x[0]:
         return np.empty(0)
     zero = np.zeros(1)
     sx, sy = np.concatenate([zero, np.cumsum(log_x)]), np.concatenate([zero, np.cumsum(log_y)])
