@@ -14,6 +14,7 @@ import hashlib
 import os
 import signal
 import sqlite3
+import stat
 import subprocess
 import sys
 import threading
@@ -22,6 +23,7 @@ from pathlib import Path
 
 import httpx
 import pytest
+from sqlalchemy import event
 
 from service.store import Store
 from tests.reliability.conftest import ROOT, encode, specimen_rgb
@@ -194,3 +196,34 @@ def test_an_analysis_process_killed_mid_upload_costs_one_answer_only(server_fact
         again = http.post("/api/specimens", files={"image": ("again.png", small, "image/png")})
         assert again.status_code == 201, again.text
         assert http.get("/api/specimens").json()["total"] == 2  # the lost upload left no record
+
+
+def test_files_are_synced_and_renamed_before_the_record_commits(tmp_path, monkeypatch):
+    """The order a power cut cannot undo: each file fsynced then renamed, the folder fsynced, then commit."""
+    events: list[str] = []
+    real_fsync, real_replace = os.fsync, os.replace
+
+    def fsync(fd: int) -> None:
+        events.append("fsync folder" if stat.S_ISDIR(os.fstat(fd).st_mode) else "fsync file")
+        real_fsync(fd)
+
+    def replace(src, dst) -> None:
+        events.append(f"rename {Path(dst).name}")
+        real_replace(src, dst)
+
+    store = Store.open(f"sqlite:///{tmp_path / 'store.db'}", tmp_path / "data")
+    try:
+        event.listen(store.engine, "commit", lambda conn: events.append("commit"))
+        monkeypatch.setattr(os, "fsync", fsync)
+        monkeypatch.setattr(os, "replace", replace)
+        store.add({"source": {"sha256": "0" * 64}}, {"source.png": b"a" * 100, "thumbnail.png": b"b" * 10})
+    finally:
+        monkeypatch.undo()
+        store.close()
+    commit = events.index("commit")
+    assert events.count("commit") == 1
+    before = events[:commit]
+    for name in ("source.png", "thumbnail.png"):
+        renamed = before.index(f"rename {name}")
+        assert before[renamed - 1] == "fsync file", events  # the data reached the disk before its name did
+    assert before[-1] == "fsync folder", events  # and the renames themselves, before the commit
