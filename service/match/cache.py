@@ -33,6 +33,8 @@ class ReferenceTable:
         Natural log of the lattice sites ``N_eq`` after normalisation.
     scale_px : ndarray, shape (n_clusters,)
         Pixels per site the normalisation found on each cluster's drawing.
+    connected_fraction : ndarray, shape (n_clusters,)
+        Share of each cluster's sites in its largest connected piece after normalisation.
     ensemble : ndarray of int, shape (n_clusters,)
         Index of each cluster's ensemble in ``reference_set.ensembles``.
     realisation : ndarray of int, shape (n_clusters,)
@@ -43,19 +45,19 @@ class ReferenceTable:
     values: np.ndarray
     log_sites: np.ndarray
     scale_px: np.ndarray
+    connected_fraction: np.ndarray
     ensemble: np.ndarray
     realisation: np.ndarray
-    feature_names: tuple[str, ...]
+    feature_names: tuple[str, ...] = FEATURE_NAMES
 
-    def subset(self, keep: np.ndarray) -> ReferenceTable:
-        """The rows where ``keep`` (bool or index array) selects."""
-        return ReferenceTable(
-            self.values[keep], self.log_sites[keep], self.scale_px[keep],
-            self.ensemble[keep], self.realisation[keep], self.feature_names,
-        )
+    def arrays(self) -> dict[str, np.ndarray]:
+        return {name: getattr(self, name) for name in _COLUMNS}
 
 
-def _task(arrival_order: np.ndarray, ensemble) -> tuple[np.ndarray, int, float]:
+_COLUMNS = ("values", "log_sites", "scale_px", "connected_fraction", "ensemble", "realisation")
+
+
+def _task(arrival_order: np.ndarray, ensemble):
     return reference_vector(arrival_order)
 
 
@@ -72,17 +74,17 @@ def compute_reference_table(
     else:
         results = reference_set.map_clusters(_task, scheduler=scheduler, workers=workers, progress=progress)
     rows = [
-        (index, realisation, result)
+        (index, realisation, vector)
         for index, e in enumerate(reference_set.ensembles)
-        for realisation, result in enumerate(results[e.id])
+        for realisation, vector in enumerate(results[e.id])
     ]
     return ReferenceTable(
-        values=np.array([r[2][0] for r in rows], dtype=np.float64).reshape(len(rows), len(FEATURE_NAMES)),
-        log_sites=np.log(np.array([r[2][1] for r in rows], dtype=np.float64)),
-        scale_px=np.array([r[2][2] for r in rows], dtype=np.float64),
-        ensemble=np.array([r[0] for r in rows], dtype=np.int64),
-        realisation=np.array([r[1] for r in rows], dtype=np.int64),
-        feature_names=FEATURE_NAMES,
+        values=np.array([v.values for _, _, v in rows], dtype=np.float64).reshape(len(rows), len(FEATURE_NAMES)),
+        log_sites=np.log(np.array([v.n_sites for _, _, v in rows], dtype=np.float64)),
+        scale_px=np.array([v.scale_px for _, _, v in rows], dtype=np.float64),
+        connected_fraction=np.array([v.connected_fraction for _, _, v in rows], dtype=np.float64),
+        ensemble=np.array([e for e, _, _ in rows], dtype=np.int64),
+        realisation=np.array([r for _, r, _ in rows], dtype=np.int64),
     )
 
 
@@ -120,16 +122,7 @@ def build_feature_cache(
 
 def _write(reference_set, table: ReferenceTable, wall_s: float) -> None:
     reference_set.write_cache(
-        CACHE_NAME,
-        {
-            "values": table.values,
-            "log_sites": table.log_sites,
-            "scale_px": table.scale_px,
-            "ensemble": table.ensemble,
-            "realisation": table.realisation,
-            "feature_names": np.array(FEATURE_NAMES),
-            "wall_s": np.array(wall_s),
-        },
+        CACHE_NAME, {**table.arrays(), "feature_names": np.array(FEATURE_NAMES), "wall_s": np.array(wall_s)}
     )
 
 
@@ -149,20 +142,17 @@ def load_reference_table(reference_set, *, build_if_missing: bool | None = None)
         If there is no valid cache and it is not to be built here.
     """
     cached = reference_set.read_cache(CACHE_NAME)
-    if cached is not None and tuple(str(n) for n in cached["feature_names"]) == FEATURE_NAMES:
+    if (
+        cached is not None
+        and all(name in cached for name in (*_COLUMNS, "feature_names"))
+        and tuple(str(n) for n in cached["feature_names"]) == FEATURE_NAMES
+    ):
         n = len(cached["ensemble"])
         if np.array_equal(
             np.bincount(cached["ensemble"], minlength=len(reference_set.ensembles)),
             [e.n_realisations for e in reference_set.ensembles],
         ) and cached["values"].shape == (n, len(FEATURE_NAMES)):
-            return ReferenceTable(
-                values=cached["values"].astype(np.float64),
-                log_sites=cached["log_sites"].astype(np.float64),
-                scale_px=cached["scale_px"].astype(np.float64),
-                ensemble=cached["ensemble"].astype(np.int64),
-                realisation=cached["realisation"].astype(np.int64),
-                feature_names=FEATURE_NAMES,
-            )
+            return ReferenceTable(**{name: cached[name] for name in _COLUMNS})
     n_clusters = sum(e.n_realisations for e in reference_set.ensembles)
     if build_if_missing is None:
         build_if_missing = n_clusters <= AUTO_BUILD_MAX_CLUSTERS

@@ -27,6 +27,13 @@ VARIANCE_FLOOR = 1e-3
 #: ``in_library`` is false beyond this quantile of the chi-square law of the squared
 #: Mahalanobis distance (widened if held-out references reach farther, see ``fit_model``).
 NOVELTY_QUANTILE = 0.999
+#: The threshold is at least this widening of this quantile of the held-out references'
+#: distances to their own family.
+NOVELTY_REFERENCE_QUANTILE = 0.99
+NOVELTY_WIDENING = 1.1
+#: A specimen is out of library when its largest connected piece holds a share of its sites
+#: this much below the least connected reference (every reference is one aggregate).
+CONNECTED_MARGIN = 0.02
 
 
 @dataclass(frozen=True)
@@ -138,6 +145,9 @@ class ReferenceModel:
         How the temperature, shrinkage and threshold were chosen (for reports).
     size_range : (float, float)
         Smallest and largest mean ``N_eq`` of the reference ensembles.
+    min_connected_fraction : float
+        The least connected reference: a specimen whose largest piece holds a clearly
+        smaller share of its sites than this (``CONNECTED_MARGIN``) is out of library.
     """
 
     families: list[Family]
@@ -148,6 +158,7 @@ class ReferenceModel:
     novelty_d2: float
     calibration: dict
     size_range: tuple[float, float]
+    min_connected_fraction: float
 
     def evaluate(self, values: np.ndarray, log_sites: float):
         """Squared Mahalanobis distances and log-likelihoods of one vector under every family.
@@ -255,11 +266,14 @@ def novelty_threshold(own_d2: np.ndarray, n_features: int) -> float:
     """Squared distance beyond which a specimen is out of library.
 
     The chi-square quantile ``NOVELTY_QUANTILE`` for ``n_features`` degrees of freedom,
-    raised to 1.05 times the largest held-out distance of a reference to its own family
-    (``own_d2``) when that is farther: the references' features are not exactly Gaussian,
-    and no reference should be called foreign to its own library.
+    raised to ``NOVELTY_WIDENING`` times the ``NOVELTY_REFERENCE_QUANTILE`` quantile of the
+    held-out distances of references to their own family (``own_d2``) when that is farther:
+    the references' features have heavier tails than a Gaussian, and about one reference in
+    a hundred should be called foreign to its own library, not more. A quantile, not the
+    largest distance, so one odd realisation does not open the library to everything.
     """
-    return max(float(stats.chi2.ppf(NOVELTY_QUANTILE, n_features)), 1.05 * float(np.max(own_d2)))
+    empirical = NOVELTY_WIDENING * float(np.quantile(own_d2, NOVELTY_REFERENCE_QUANTILE))
+    return max(float(stats.chi2.ppf(NOVELTY_QUANTILE, n_features)), empirical)
 
 
 def fit_model(reference_set, table: ReferenceTable) -> ReferenceModel:
@@ -306,9 +320,10 @@ def fit_model(reference_set, table: ReferenceTable) -> ReferenceModel:
             "novelty_quantile": NOVELTY_QUANTILE,
             "novelty_chi2_d2": float(stats.chi2.ppf(NOVELTY_QUANTILE, k)),
             "novelty_d2": novelty,
-            "held_out_own_family_d2_max": float(own.max()),
+            "held_out_own_family_d2_quantile": float(np.quantile(own, NOVELTY_REFERENCE_QUANTILE)),
             "held_out_family_accuracy": float(np.mean(ll.argmax(axis=1) == truth)),
             "n_references": int(truth.size),
         },
         size_range=(float(sizes.min()), float(sizes.max())),
+        min_connected_fraction=float(table.connected_fraction.min()),
     )

@@ -16,7 +16,7 @@ from scipy import special
 
 from service.errors import SpecimenError
 from service.match.cache import _as_reference_set, load_reference_table
-from service.match.model import ReferenceModel, fit_model
+from service.match.model import CONNECTED_MARGIN, ReferenceModel, fit_model
 from service.match.vector import FEATURE_SCHEMA, FEATURES, specimen_vector
 
 #: Families that belong to one universality class, so either answer is right for either.
@@ -177,7 +177,8 @@ def match_features(features, *, reference_set=None, mask: np.ndarray | None = No
     ``log N_eq``; each family's likelihood is Gaussian with its shrunk covariance; the
     posterior (uniform prior over families) is tempered by the temperature fitted on held-
     out references. ``in_library`` is false when even the nearest family is farther than
-    the novelty threshold (``ReferenceModel.novelty_d2``).
+    the novelty threshold (``ReferenceModel.novelty_d2``), or when the specimen is in pieces
+    while every reference is one connected aggregate.
 
     References
     ----------
@@ -207,7 +208,8 @@ def match_features(features, *, reference_set=None, mask: np.ndarray | None = No
     probability = special.softmax(scaled)
     order = np.argsort(-probability, kind="stable")
     nearest = int(np.argmin(d2))
-    in_library = bool(d2[nearest] <= model.novelty_d2)
+    connected = vector.connected_fraction >= model.min_connected_fraction - CONNECTED_MARGIN
+    in_library = bool(d2[nearest] <= model.novelty_d2 and connected)
     matches = [_family_entry(model, int(f), probability[f], d2[f], where[f]) for f in order]
     for entry in matches:
         for e in entry["ensembles"]:
@@ -220,7 +222,12 @@ def match_features(features, *, reference_set=None, mask: np.ndarray | None = No
             f"matching: the specimen spans {vector.n_sites} branch widths squared, outside the library's sizes "
             f"{lo:.0f}-{hi:.0f}; references are compared at their nearest size"
         )
-    if not in_library:
+    if not connected:
+        warnings.append(
+            f"matching: the specimen is in pieces (the largest holds {vector.connected_fraction:.0%} of it), "
+            f"while every reference is one aggregate (at least {model.min_connected_fraction:.0%})"
+        )
+    elif not in_library:
         warnings.append(
             f"matching: the specimen lies outside every reference ensemble (nearest Mahalanobis distance "
             f"{np.sqrt(d2[nearest]):.1f} > {np.sqrt(model.novelty_d2):.1f}); the ranking is only relative"
@@ -272,6 +279,8 @@ def match_features(features, *, reference_set=None, mask: np.ndarray | None = No
             "threshold_distance": float(np.sqrt(model.novelty_d2)),
             "n_features": len(FEATURES),
             "features_beyond_3_sd": outliers,
+            "connected_fraction": float(vector.connected_fraction),
+            "min_reference_connected_fraction": model.min_connected_fraction,
         },
         "references": {
             "path": str(reference_set.path),

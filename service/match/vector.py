@@ -22,7 +22,7 @@ from service.match.normalise import normalise
 
 #: Bump when a feature, its definition or the reference rendering changes: cached
 #: reference vectors of another version are recomputed.
-FEATURE_SCHEMA = 1
+FEATURE_SCHEMA = 3
 
 #: (name, what it measures). The order is the order of the vector.
 FEATURES: tuple[tuple[str, str], ...] = (
@@ -55,17 +55,23 @@ class LatticeVector:
         Occupied lattice sites ``N_eq`` (the size the references are interpolated to).
     scale_px : float
         Pixels per lattice site of the normalisation (1 for a lattice cluster).
+    connected_fraction : float
+        Share of the sites in the largest piece (pieces less than a site apart joined). Every library cluster is one
+        aggregate grown from one seed, so this is not compared as a Gaussian feature (its
+        reference spread is nil) but checked against the references' own range.
     """
 
     values: np.ndarray
     n_sites: int
     scale_px: float
+    connected_fraction: float
 
     def to_dict(self) -> dict:
         return {
             "features": {name: float(v) for name, v in zip(FEATURE_NAMES, self.values)},
             "n_sites": int(self.n_sites),
             "scale_px": float(self.scale_px),
+            "connected_fraction": float(self.connected_fraction),
         }
 
 
@@ -162,22 +168,30 @@ def lattice_features(lattice: np.ndarray) -> LatticeVector:
         ],
         dtype=np.float64,
     )
-    return LatticeVector(values=values, n_sites=n, scale_px=1.0)
+    # Pieces less than one site apart count as one: a drawing or a photograph may part two
+    # sites that touch only at a corner.
+    labels, n_pieces = ndimage.label(ndimage.binary_dilation(lattice, np.ones((3, 3))), structure=np.ones((3, 3)))
+    connected = float(np.bincount(labels[lattice])[1:].max() / n) if n_pieces > 1 else 1.0
+    return LatticeVector(values=values, n_sites=n, scale_px=1.0, connected_fraction=connected)
 
 
 def specimen_vector(mask: np.ndarray) -> tuple[LatticeVector, dict]:
     """Normalise a specimen mask and measure it; also returns the normalisation's record."""
     normalised = normalise(mask)
     vector = lattice_features(normalised.lattice)
-    return LatticeVector(vector.values, vector.n_sites, normalised.scale_px), normalised.to_dict()
+    return (
+        LatticeVector(vector.values, vector.n_sites, normalised.scale_px, vector.connected_fraction),
+        normalised.to_dict(),
+    )
 
 
 def reference_photo_mask(lattice: np.ndarray, *, seed: int) -> np.ndarray:
     """A lattice cluster drawn as a segmented photograph of it would show it.
 
     Each site becomes a block of ``s`` pixels (``s`` uniform in 3-6), branches are widened
-    to ``s`` times 1-1.4, a centre electrode disc of radius 0-2.5 sites is added at the seed
-    half of the time, and the outline is softened by a Gaussian blur (sigma 0.5-1.5 px)
+    to ``s`` times 1-1.4, a centre electrode disc (radius 1-8 sites, log-uniform; a photograph
+    at 3 px per site with the electrode 1.5% of its side shows one of 8 sites) is added at
+    the seed in 60% of the drawings, and the outline is softened by a Gaussian blur (sigma 0.5-1.5 px)
     thresholded at one half, as optics and a threshold soften it. The same recipe as
     :func:`service.imaging.render_specimen` draws its truth mask, with its settings varied.
 
@@ -192,7 +206,7 @@ def reference_photo_mask(lattice: np.ndarray, *, seed: int) -> np.ndarray:
     rng = np.random.default_rng(seed)
     scale = rng.uniform(3.0, 6.0)
     thickness = scale * rng.uniform(1.0, 1.4)
-    electrode_sites = rng.uniform(1.0, 2.5) if rng.random() < 0.5 else 0.0
+    electrode_sites = float(np.exp(rng.uniform(0.0, np.log(8.0)))) if rng.random() < 0.6 else 0.0
     blur = rng.uniform(0.5, 1.5)
     h, w = occupied.shape
     pad = int(np.ceil(thickness + 3 * blur)) + 2
@@ -213,7 +227,7 @@ def reference_photo_mask(lattice: np.ndarray, *, seed: int) -> np.ndarray:
     return ndimage.gaussian_filter(drawn.astype(np.float32), blur) >= 0.5
 
 
-def reference_vector(arrival_order: np.ndarray, ensemble=None) -> tuple[np.ndarray, int, float]:
+def reference_vector(arrival_order: np.ndarray, ensemble=None) -> LatticeVector:
     """Features of one library cluster through the specimens' path (the feature-cache task).
 
     The drawing's seed is the CRC-32 of the cluster's arrival-order lattice mixed with
@@ -221,9 +235,9 @@ def reference_vector(arrival_order: np.ndarray, ensemble=None) -> tuple[np.ndarr
 
     Returns
     -------
-    (values, n_sites, scale_px)
+    LatticeVector
     """
     lattice = np.ascontiguousarray(arrival_order, dtype=np.int32)
     seed = zlib.crc32(lattice.tobytes()) ^ FEATURE_SCHEMA
     vector, _ = specimen_vector(reference_photo_mask(lattice, seed=seed))
-    return vector.values, vector.n_sites, vector.scale_px
+    return vector
