@@ -7,6 +7,7 @@ existing scheduler. The two must agree bit for bit.
 
 import io
 import json
+import shutil
 
 import numpy as np
 import pytest
@@ -94,8 +95,6 @@ def test_map_clusters_returns_results_in_manifest_order(tiny_sets, dask_cluster)
 
 
 def test_rebuild_replaces_the_set_and_keeps_its_cache(tiny_sets, dask_cluster, tmp_path):
-    import shutil
-
     target = tmp_path / "set"
     shutil.copytree(tiny_sets[0], target)
     load_reference_set(target).write_cache("sizes", {"n": np.arange(3)})
