@@ -15,7 +15,7 @@ from service.store import Store
 from service.web import api, auth, pages
 from service.web.errors import install_error_handlers
 from service.web.jobs import AnalysisPool
-from service.web.limits import NulGuardMiddleware, UploadLimitMiddleware
+from service.web.limits import NulGuardMiddleware, UploadLimitMiddleware, UploadQueueMiddleware
 from service.web.security import SecurityHeadersMiddleware
 from service.web.settings import Settings
 
@@ -57,6 +57,9 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     auth.install_login_redirect(app)
     # 413 with a JSON reason while the body streams (FastAPI's own limit answers in plain text)
     app.add_middleware(UploadLimitMiddleware, max_bytes=settings.max_upload_bytes)
+    # A burst beyond what the analysis processes can work through gets 503 and Retry-After.
+    app.add_middleware(UploadQueueMiddleware, max_in_flight=max(16, 8 * settings.worker_count))
+    app.add_middleware(auth.KeyBeforeBodyMiddleware)  # 401 before an unauthenticated body is read
     app.add_middleware(NulGuardMiddleware)  # 400 before a NUL in a URL reaches the database
     app.add_middleware(SecurityHeadersMiddleware)  # CSP, nosniff, no framing, on every answer
     app.mount("/static", StaticFiles(directory=STATIC_DIR), name="static")

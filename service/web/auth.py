@@ -17,9 +17,10 @@ from urllib.parse import quote, urlsplit
 
 from fastapi import APIRouter, FastAPI, Form, Query, Request
 from fastapi.exception_handlers import http_exception_handler
-from fastapi.responses import HTMLResponse, RedirectResponse, Response
+from fastapi.responses import HTMLResponse, JSONResponse, RedirectResponse, Response
 from itsdangerous import BadSignature, URLSafeTimedSerializer
 from starlette.exceptions import HTTPException as StarletteHTTPException
+from starlette.types import ASGIApp, Receive, Scope, Send
 
 from service.web.settings import Settings
 
@@ -144,3 +145,32 @@ def install_login_redirect(app: FastAPI) -> None:
             target = path + (f"?{request.url.query}" if request.url.query else "")
             return RedirectResponse(f"/login?next={quote(target, safe='')}", status_code=303)
         return await http_exception_handler(request, exc)
+
+
+class KeyBeforeBodyMiddleware:
+    """With keys on, check an API request's credentials before its body is read.
+
+    The routes check the key too, but only after the framework has parsed the whole body:
+    without this, anyone could make the service read uploads up to the size limit before
+    being told 401. Requests without a body, and the pages, pass straight through.
+    """
+
+    def __init__(self, app: ASGIApp) -> None:
+        self.app = app
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] == "http" and scope["path"].startswith("/api/") and _carries_body(scope):
+            from service.web.deps import current_lab  # here, since deps imports this module
+
+            try:
+                current_lab(Request(scope))
+            except StarletteHTTPException as exc:
+                response = JSONResponse({"detail": exc.detail}, status_code=exc.status_code, headers=exc.headers)
+                await response(scope, receive, send)
+                return
+        await self.app(scope, receive, send)
+
+
+def _carries_body(scope: Scope) -> bool:
+    headers = dict(scope.get("headers", ()))
+    return b"transfer-encoding" in headers or headers.get(b"content-length", b"0") not in (b"0", b"")

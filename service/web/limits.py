@@ -90,3 +90,39 @@ class NulGuardMiddleware:
             await JSONResponse({"detail": self.reason}, status_code=400)(scope, receive, send)
             return
         await self.app(scope, receive, send)
+
+
+class UploadQueueMiddleware:
+    """Answer 503 (with ``Retry-After``) when ``max_in_flight`` uploads are already being handled.
+
+    Each waiting upload holds its body in memory and a place in the analysis queue; past a
+    bound, a burst would only grow both until the process fails. Refusing early keeps the
+    service answering everyone else, and a client can retry later. Counted per process.
+    """
+
+    retry_after_s = 30
+
+    def __init__(self, app: ASGIApp, max_in_flight: int, path: str = "/api/specimens") -> None:
+        if max_in_flight < 1:
+            raise ValueError(f"max_in_flight must be positive, got {max_in_flight}")
+        self.app = app
+        self.max_in_flight = max_in_flight
+        self.path = path
+        self.in_flight = 0
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http" or scope["method"] != "POST" or scope["path"].rstrip("/") != self.path:
+            await self.app(scope, receive, send)
+            return
+        if self.in_flight >= self.max_in_flight:
+            detail = (f"the service is already handling {self.in_flight} uploads; "
+                      f"try again in {self.retry_after_s} s")
+            response = JSONResponse({"detail": detail}, status_code=503,
+                                    headers={"Retry-After": str(self.retry_after_s)})
+            await response(scope, receive, send)
+            return
+        self.in_flight += 1  # one event loop per process: no lock needed between awaits
+        try:
+            await self.app(scope, receive, send)
+        finally:
+            self.in_flight -= 1

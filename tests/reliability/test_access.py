@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import logging
 import secrets
+import socket
 from urllib.parse import unquote
 
 import httpx
@@ -245,3 +246,14 @@ def test_open_service_warns_when_bound_beyond_localhost(monkeypatch, caplog, tmp
         server.serve(host=host, port=8000)
     warned = [r for r in caplog.records if r.levelno >= logging.WARNING and "RAMIFORM_API_KEYS" in r.getMessage()]
     assert bool(warned) == warns, caplog.text
+
+
+def test_an_unauthenticated_upload_is_refused_before_its_body_is_read(server_factory, tmp_path):
+    """Headers announcing 500 kB and no body at all: the real server answers 401 without waiting for it."""
+    server = server_factory(tmp_path / "data", RAMIFORM_API_KEYS=KEYS, RAMIFORM_WORKERS="0")
+    head = (f"POST /api/specimens HTTP/1.1\r\nHost: 127.0.0.1\r\nAuthorization: Bearer {WRONG_KEY}\r\n"
+            "Content-Type: multipart/form-data; boundary=b\r\nContent-Length: 500000\r\n\r\n")
+    with socket.create_connection(("127.0.0.1", server.port)) as sock:
+        sock.sendall(head.encode())
+        sock.settimeout(10.0)
+        assert sock.recv(4096).startswith(b"HTTP/1.1 401 ")
