@@ -6,6 +6,7 @@ name and declared type ("specimen.png", image/png), so only the content can refu
 
 from __future__ import annotations
 
+import csv
 import gzip
 import io
 import resource
@@ -201,11 +202,12 @@ def test_client_filename_is_data_never_a_path(client, filename):
 
 def test_labels_and_filenames_are_escaped_on_pages(client):
     hostile = '<script>alert("label")</script><img src=x onerror=alert(2)>'
+    formula = '=HYPERLINK("http://evil.example","open")' + hostile  # would run in a spreadsheet
     png = encode(specimen_rgb())
     ids = []
-    for _ in range(2):  # two, so the compare page shows them side by side
+    for label in (hostile, formula):  # two, so the compare page shows them side by side
         response = client.post("/api/specimens", files={"image": (f"{hostile}.png", png, "image/png")},
-                               data={"label": hostile})
+                               data={"label": label})
         assert response.status_code == 201, response.text
         ids.append(response.json()["id"])
     specimen_id = ids[0]
@@ -214,8 +216,10 @@ def test_labels_and_filenames_are_escaped_on_pages(client):
         assert page.status_code == 200, (path, page.status_code)
         assert "<script>alert" not in page.text and "<img src=x" not in page.text, path
         assert "&lt;script&gt;" in page.text, f"{path} does not show the label at all"
-    csv = client.get(f"/api/specimens/{specimen_id}/export.csv")
-    assert csv.status_code == 200 and csv.headers["content-type"].startswith("text/csv")
+    export = client.get("/api/specimens/export.csv")
+    assert export.status_code == 200 and export.headers["content-type"].startswith("text/csv")
+    cells = [cell for row in csv.reader(io.StringIO(export.text)) for cell in row]
+    assert "'" + formula in cells and formula not in cells  # a text cell, never a formula
     for i in ids:
         assert client.delete(f"/api/specimens/{i}").status_code == 204
 
