@@ -168,6 +168,23 @@ def load_reference_table(reference_set, *, build_if_missing: bool | None = None)
     return table
 
 
+def cache_discrepancy(reference_set, table: ReferenceTable, n_checks: int = 3) -> float:
+    """Largest difference between cached vectors and the same clusters measured afresh.
+
+    The first realisation of ``n_checks`` ensembles spread through the set is recomputed;
+    a difference means the measurement code changed since the cache was built (rebuild it
+    with :func:`build_feature_cache`). Costs a fraction of a second.
+    """
+    picks = np.unique(np.linspace(0, len(reference_set.ensembles) - 1, n_checks).round().astype(int))
+    worst = 0.0
+    for index in picks:
+        row = int(np.flatnonzero((table.ensemble == index) & (table.realisation == 0))[0])
+        fresh = reference_vector(reference_set.arrival_order(reference_set.ensembles[index], 0))
+        worst = max(worst, float(np.max(np.abs(fresh.values - table.values[row]))),
+                    abs(float(np.log(fresh.n_sites)) - float(table.log_sites[row])))
+    return worst
+
+
 def _as_reference_set(reference_set):
     if reference_set is None or isinstance(reference_set, (str, bytes)) or hasattr(reference_set, "__fspath__"):
         from service.library.load import load_reference_set

@@ -15,7 +15,7 @@ import numpy as np
 from scipy import special
 
 from service.errors import SpecimenError
-from service.match.cache import _as_reference_set, load_reference_table
+from service.match.cache import _as_reference_set, cache_discrepancy, load_reference_table
 from service.match.model import CONNECTED_MARGIN, ReferenceModel, fit_model
 from service.match.vector import FEATURE_SCHEMA, FEATURES, specimen_vector
 
@@ -46,6 +46,9 @@ UNIVERSALITY_CLASSES: tuple[dict[str, Any], ...] = (
 N_DECIDING = 4
 #: Features of a specimen beyond this many reference spreads are named when it is out of library.
 OUTLIER_Z = 3.0
+
+#: Cached reference vectors may differ from fresh ones by rounding only.
+CACHE_TOLERANCE = 1e-9
 
 _MODELS: dict[tuple[str, str], ReferenceModel] = {}
 _DEFAULT_SET: list = []
@@ -79,14 +82,17 @@ def _resolve(reference_set):
 def reference_model(reference_set=None) -> ReferenceModel:
     """The fitted and calibrated model of a reference set (default: the bundled one).
 
-    Fitted once per set and process (a few seconds), then kept in memory; keyed by the set's
-    folder and fingerprint, so a rebuilt set is refitted.
+    Fitted once per set and process (well under a second for a few hundred clusters), then
+    kept in memory; keyed by the set's folder and fingerprint, so a rebuilt set is refitted.
     """
     reference_set = _resolve(reference_set)
     key = (str(Path(reference_set.path).resolve()), reference_set.fingerprint)
     with _LOCK:
         if key not in _MODELS:
-            _MODELS[key] = fit_model(reference_set, load_reference_table(reference_set))
+            table = load_reference_table(reference_set)
+            model = fit_model(reference_set, table)
+            model.calibration["cache_discrepancy"] = cache_discrepancy(reference_set, table)
+            _MODELS[key] = model
         return _MODELS[key]
 
 
@@ -95,44 +101,45 @@ def _numeric(value: Any) -> bool:
 
 
 def _parameter_estimates(model: ReferenceModel, scaled_loglik: np.ndarray) -> dict[str, Any]:
-    """Posterior-weighted mean and spread of every numeric parameter that varies in a regime."""
+    """Posterior-weighted mean and spread of every numeric parameter that varies in a regime.
+
+    Within a regime the family posteriors are renormalised, so the mean interpolates between
+    the library's values (e.g. eta between 2 and 3) and the spread says how sharply the
+    references decide.
+    """
     regime_probability = special.softmax(scaled_loglik)
     out: dict[str, Any] = {}
-    regimes = dict.fromkeys(f.regime for f in model.families)
-    for regime in regimes:
+    for regime in dict.fromkeys(f.regime for f in model.families):
         members = [i for i, f in enumerate(model.families) if f.regime == regime]
         weights = special.softmax(scaled_loglik[members])
         names = dict.fromkeys(n for i in members for n, v in model.families[i].parameters.items() if _numeric(v))
         for name in names:
-            rows = [(w, float(model.families[i].parameters[name])) for w, i in zip(weights, members)
-                    if name in model.families[i].parameters]
-            grid = sorted({v for _, v in rows})
-            if len(grid) < 2:
+            having = [k for k, i in enumerate(members) if name in model.families[members[k]].parameters]
+            values = np.array([float(model.families[members[k]].parameters[name]) for k in having])
+            if np.unique(values).size < 2:
                 continue
-            w = np.array([r[0] for r in rows])
-            v = np.array([r[1] for r in rows])
-            w = w / w.sum()
-            mean = float(w @ v)
+            w = weights[having] / weights[having].sum()
+            mean = float(w @ values)
             out.setdefault(regime, {})[name] = {
                 "value": mean,
-                "std": float(np.sqrt(max(w @ (v - mean) ** 2, 0.0))),
-                "values_in_library": grid,
+                "std": float(np.sqrt(max(float(w @ (values - mean) ** 2), 0.0))),
+                "values_in_library": sorted(set(values.tolist())),
                 "regime_probability": float(regime_probability[members].sum()),
                 "method": "posterior-weighted mean over the regime's families (interpolates between library values)",
             }
     return out
 
 
-def _family_entry(model: ReferenceModel, f: int, probability: float, d2: float, where) -> dict[str, Any]:
+def _family_entry(model: ReferenceModel, reference_set, f: int, probability: float, d2: float, where) -> dict[str, Any]:
     family = model.families[f]
     i, j, t = where
-    ids = model.statistics.ensemble_ids[f]
+    ids = [reference_set.ensembles[int(e)].id for e in model.statistics.ensemble_ids[f]]
     return {
         "regime": family.regime,
         "parameters": dict(family.parameters),
         "probability": float(probability),
         "distance": float(np.sqrt(max(d2, 0.0))),
-        "ensembles": [{"index": int(ids[i]), "weight": 1.0 - t}] + ([{"index": int(ids[j]), "weight": t}] if j != i else []),
+        "ensembles": [{"id": ids[i], "weight": 1.0 - t}] + ([{"id": ids[j], "weight": t}] if j != i else []),
     }
 
 
@@ -210,12 +217,15 @@ def match_features(features, *, reference_set=None, mask: np.ndarray | None = No
     nearest = int(np.argmin(d2))
     connected = vector.connected_fraction >= model.min_connected_fraction - CONNECTED_MARGIN
     in_library = bool(d2[nearest] <= model.novelty_d2 and connected)
-    matches = [_family_entry(model, int(f), probability[f], d2[f], where[f]) for f in order]
-    for entry in matches:
-        for e in entry["ensembles"]:
-            e["id"] = reference_set.ensembles[e.pop("index")].id
+    matches = [_family_entry(model, reference_set, int(f), probability[f], d2[f], where[f]) for f in order]
 
     warnings: list[str] = []
+    if model.calibration["cache_discrepancy"] > CACHE_TOLERANCE:
+        warnings.append(
+            "matching: the reference feature cache was computed by other measurement code than this one "
+            f"(difference {model.calibration['cache_discrepancy']:.3g}); rebuild it with "
+            "service.match.build_feature_cache"
+        )
     lo, hi = model.size_range
     if not lo / 1.5 <= vector.n_sites <= hi * 1.5:
         warnings.append(

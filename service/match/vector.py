@@ -149,7 +149,7 @@ def lattice_features(lattice: np.ndarray) -> LatticeVector:
     eigen = np.linalg.eigvalsh(np.cov(offsets.T, bias=True))
     aspect = float(np.sqrt(max(eigen[0], 0.0) / eigen[1])) if eigen[1] > 0 else 1.0
 
-    filled = ndimage.binary_fill_holes(lattice)
+    filled = np.pad(ndimage.binary_fill_holes(lattice), 1)
     outline = int(np.count_nonzero(np.diff(filled, axis=0)) + np.count_nonzero(np.diff(filled, axis=1)))
     filled_area = int(filled.sum())
     roughness = outline / (2.0 * np.sqrt(np.pi * filled_area))

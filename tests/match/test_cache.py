@@ -8,7 +8,7 @@ import pytest
 from service.errors import LibraryError
 from service.library import load_reference_set
 from service.match import build_feature_cache, load_reference_table
-from service.match.cache import CACHE_NAME, compute_reference_table
+from service.match.cache import CACHE_NAME, cache_discrepancy, compute_reference_table
 from tests.match.subsets import smallest_of_three_regimes, write_subset
 
 
@@ -36,3 +36,10 @@ def test_the_bundled_cache_covers_every_cluster(reference_set, table):
     # Every reference drawing is normalised to 1.5-20 px per site (drawn at 3-6 px per site,
     # compact clusters capped at a 25-site radius).
     assert table.scale_px.min() >= 1.5
+
+
+def test_the_bundled_cache_was_computed_by_this_measurement_code(reference_set, table):
+    # Fails when the normalisation, the features or the measurement building blocks change
+    # without a rebuild of the cache (build_feature_cache), which would compare specimens
+    # measured one way with references measured another.
+    assert cache_discrepancy(reference_set, table, n_checks=5) <= 1e-9
