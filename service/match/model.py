@@ -2,10 +2,11 @@
 
 A *family* is one regime with one parameter set (``dbm`` with ``eta = 2``, ``dla`` with
 ``sticking = 0.3`` on the Moore neighbourhood, ...), grown at several sizes. Each size is an
-ensemble: a mean feature vector at the ensemble's mean ``log N_eq``. For a specimen of size
-``N_eq`` a family's mean is interpolated linearly in ``log N_eq`` between its sizes, and its
-covariance is the family's pooled within-ensemble covariance shrunk towards the covariance
-pooled over every family. Everything here reads the families from the reference set's
+ensemble: a mean feature vector and per-feature variances at the ensemble's mean
+``log N_eq``. For a specimen of size ``N_eq`` a family's means and variances are
+interpolated linearly in ``log N_eq`` between its sizes (small clusters fluctuate more than
+large ones), and combined with the family's within-ensemble correlations shrunk towards
+those pooled over every family. Everything here reads the families from the reference set's
 manifest: no regime or parameter value is named.
 """
 
@@ -20,10 +21,13 @@ from scipy import optimize, special, stats
 from service.errors import LibraryError
 from service.match.cache import ReferenceTable
 
-#: Shrinkage weights tried by the leave-one-out calibration (weight on the pooled covariance).
+#: Shrinkage weights tried by the leave-one-out calibration (weight on the pooled correlations).
 SHRINKAGE_GRID = (0.1, 0.25, 0.4, 0.55, 0.7, 0.85, 0.95)
 #: A small ridge (fraction of the pooled variances) keeps every covariance invertible.
 VARIANCE_FLOOR = 1e-3
+#: Each ensemble's variances are pulled this far towards its family's (sixteen realisations
+#: estimate a variance to about 35%).
+VARIANCE_POOLING = 0.3
 #: ``in_library`` is false beyond this quantile of the chi-square law of the squared
 #: Mahalanobis distance (widened if held-out references reach farther, see ``fit_model``).
 NOVELTY_QUANTILE = 0.999
@@ -69,59 +73,182 @@ def family_index(families: list[Family], n_ensembles: int) -> np.ndarray:
 
 
 @dataclass(frozen=True, eq=False)
+class FamilyStatistics:
+    """One family's ensembles in order of size, and its correlation matrix.
+
+    Attributes
+    ----------
+    knots : ndarray, shape (n_sizes,)
+        Mean ``log N_eq`` of each ensemble, ascending.
+    means, variances : ndarray, shape (n_sizes, k)
+        Each ensemble's mean vector and per-feature variance (pulled a little towards the
+        family's, ``VARIANCE_POOLING``).
+    correlation : ndarray, shape (k, k)
+        Within-ensemble correlations of the family, shrunk towards those pooled over
+        every family.
+    ensemble_ids : ndarray of int
+        The ensembles (indices into the set's ensembles) in knot order.
+    """
+
+    knots: np.ndarray
+    means: np.ndarray
+    variances: np.ndarray
+    correlation: np.ndarray
+    ensemble_ids: np.ndarray
+
+
+@dataclass(frozen=True, eq=False)
 class Statistics:
-    """Per-ensemble means and per-family covariances (shrunk), ready to evaluate."""
+    """Every family's statistics, and what is pooled over all of them."""
 
-    knots: list[np.ndarray]  # per family: mean log N_eq of each ensemble, ascending
-    means: list[np.ndarray]  # per family: (n_sizes, k) mean vectors in knot order
-    ensemble_ids: list[np.ndarray]  # per family: ensemble indices in knot order
-    covariance: np.ndarray  # (n_families, k, k)
-    inverse: np.ndarray
-    logdet: np.ndarray
+    families: list[FamilyStatistics]
+    pooled_correlation: np.ndarray
+    floor: np.ndarray  # (k,) variance ridge, VARIANCE_FLOOR of the pooled variances
+
+    @property
+    def knots(self) -> list[np.ndarray]:
+        return [f.knots for f in self.families]
+
+    @property
+    def ensemble_ids(self) -> list[np.ndarray]:
+        return [f.ensemble_ids for f in self.families]
 
 
-def _scatter(table: ReferenceTable, n_ensembles: int):
-    """Counts, means, mean log-sizes and within-ensemble scatter matrices per ensemble."""
+def _correlation(covariance: np.ndarray) -> np.ndarray:
+    sd = np.sqrt(np.diag(covariance))
+    return covariance / np.outer(sd, sd)
+
+
+def _family_statistics(values, log_sites, ensemble, members, pooled_correlation, shrinkage) -> FamilyStatistics:
+    """Statistics of one family from its own rows (``values``, ``log_sites``, ``ensemble``)."""
+    knots, means, variances = [], [], []
+    k = values.shape[1]
+    scatter, dof = np.zeros((k, k)), 0
+    for e in members:
+        rows = ensemble == e
+        if rows.sum() < 2:
+            raise LibraryError("every reference ensemble needs at least two realisations with features")
+        x = values[rows]
+        mean = x.mean(axis=0)
+        residual = x - mean
+        scatter += residual.T @ residual
+        dof += rows.sum() - 1
+        knots.append(log_sites[rows].mean())
+        means.append(mean)
+        variances.append((residual**2).sum(axis=0) / (rows.sum() - 1))
+    order = np.argsort(knots, kind="stable")
+    family_covariance = scatter / dof
+    variances = (1.0 - VARIANCE_POOLING) * np.array(variances) + VARIANCE_POOLING * np.diag(family_covariance)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        own = np.nan_to_num(_correlation(family_covariance), nan=0.0)
+    np.fill_diagonal(own, 1.0)
+    return FamilyStatistics(
+        knots=np.array(knots)[order],
+        means=np.array(means)[order],
+        variances=variances[order],
+        correlation=(1.0 - shrinkage) * own + shrinkage * pooled_correlation,
+        ensemble_ids=np.asarray(members)[order],
+    )
+
+
+def _statistics(table: ReferenceTable, families: list[Family], shrinkage: float) -> Statistics:
+    """Fit every family; the pooled correlations are those of all within-ensemble residuals."""
     k = table.values.shape[1]
-    counts = np.bincount(table.ensemble, minlength=n_ensembles).astype(float)
-    if np.any(counts < 2):
-        raise LibraryError("every reference ensemble needs at least two realisations with features")
-    sums = np.zeros((n_ensembles, k))
-    np.add.at(sums, table.ensemble, table.values)
-    means = sums / counts[:, None]
-    log_sizes = np.bincount(table.ensemble, weights=table.log_sites, minlength=n_ensembles) / counts
-    residual = table.values - means[table.ensemble]
-    scatter = np.zeros((n_ensembles, k, k))
-    np.add.at(scatter, table.ensemble, residual[:, :, None] * residual[:, None, :])
-    return counts, means, log_sizes, scatter
+    scatter, dof = np.zeros((k, k)), 0
+    for e in np.unique(table.ensemble):
+        x = table.values[table.ensemble == e]
+        residual = x - x.mean(axis=0)
+        scatter += residual.T @ residual
+        dof += x.shape[0] - 1
+    pooled = scatter / dof
+    pooled_correlation = _correlation(pooled)
+    stats_ = [
+        _family_statistics(table.values, table.log_sites, table.ensemble, list(f.ensembles), pooled_correlation, shrinkage)
+        for f in families
+    ]
+    return Statistics(stats_, pooled_correlation, VARIANCE_FLOOR * np.diag(pooled))
 
 
-def _covariances(family_scatter: np.ndarray, family_dof: np.ndarray, shrinkage: float):
-    """Family covariances shrunk towards the pooled one, their inverses and log-determinants."""
-    pooled = family_scatter.sum(axis=0) / family_dof.sum()
-    own = family_scatter / np.maximum(family_dof, 1.0)[:, None, None]
-    own[family_dof < 1] = pooled
-    covariance = (1.0 - shrinkage) * own + shrinkage * pooled
-    covariance += VARIANCE_FLOOR * np.diag(np.diag(pooled))[None]
+def interpolate(knots: np.ndarray, log_sites: float) -> tuple[int, int, float]:
+    """Where ``log_sites`` falls among a family's sizes: knots ``i``, ``j`` and the weight
+    ``t`` of ``j`` (linear in ``log N_eq`` between neighbouring sizes, held beyond the ends)."""
+    if knots.size == 1 or log_sites <= knots[0]:
+        return 0, 0, 0.0
+    if log_sites >= knots[-1]:
+        return knots.size - 1, knots.size - 1, 0.0
+    j = int(np.searchsorted(knots, log_sites))
+    gap = knots[j] - knots[j - 1]
+    return j - 1, j, (0.0 if gap <= 1e-9 else float((log_sites - knots[j - 1]) / gap))
+
+
+@dataclass(frozen=True, eq=False)
+class Evaluation:
+    """One feature vector against every family, at the vector's size.
+
+    ``d2`` squared Mahalanobis distances, ``loglik`` Gaussian log-likelihoods, ``mean`` and
+    ``sd`` (n_families, k) the interpolated reference means and spreads, ``where`` the
+    ``(i, j, t)`` interpolation of each family (see :func:`interpolate`).
+    """
+
+    d2: np.ndarray
+    loglik: np.ndarray
+    mean: np.ndarray
+    sd: np.ndarray
+    where: list[tuple[int, int, float]]
+
+
+def _evaluate(statistics: Statistics, values: np.ndarray, log_sites: float,
+              replace: tuple[int, FamilyStatistics] | None = None) -> Evaluation:
+    """Evaluate ``values`` against every family (``replace`` swaps one family's statistics)."""
+    families = list(statistics.families)
+    if replace is not None:
+        families[replace[0]] = replace[1]
+    k = values.size
+    mean, variance, where = np.empty((len(families), k)), np.empty((len(families), k)), []
+    for f, fam in enumerate(families):
+        i, j, t = interpolate(fam.knots, log_sites)
+        mean[f] = (1 - t) * fam.means[i] + t * fam.means[j]
+        variance[f] = (1 - t) * fam.variances[i] + t * fam.variances[j]
+        where.append((i, j, t))
+    sd = np.sqrt(variance)
+    covariance = np.stack([fam.correlation for fam in families]) * sd[:, :, None] * sd[:, None, :]
+    covariance += np.diag(statistics.floor)[None]
     sign, logdet = np.linalg.slogdet(covariance)
     if np.any(sign <= 0):
         raise LibraryError("a reference covariance is not positive definite: a feature does not vary in the library")
-    return covariance, np.linalg.inv(covariance), logdet
+    diff = values[None, :] - mean
+    d2 = np.einsum("fi,fi->f", diff, np.linalg.solve(covariance, diff[:, :, None])[:, :, 0])
+    loglik = -0.5 * d2 - 0.5 * logdet - 0.5 * k * np.log(2 * np.pi)
+    spread = np.sqrt(np.diagonal(covariance, axis1=1, axis2=2))
+    return Evaluation(d2, loglik, mean, spread, where)
 
 
-def interpolate(knots: np.ndarray, means: np.ndarray, log_sites: float) -> tuple[np.ndarray, tuple[int, int, float]]:
-    """Family mean at ``log_sites``: linear between neighbouring sizes, held beyond the ends.
+def held_out_scores(
+    table: ReferenceTable, families: list[Family], n_ensembles: int, shrinkage: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """Leave-one-realisation-out squared distances and log-likelihoods, (n_clusters, n_families).
 
-    Returns the mean and ``(i, j, t)``: the knots used and the weight ``t`` of knot ``j``.
+    Strategy: removing one cluster changes only its own family's statistics, so for each
+    held-out cluster that family is refitted from its other clusters (a few dozen rows) and
+    every other family is used as fitted on everything; the pooled correlations, one
+    cluster in hundreds, are kept.
     """
-    if knots.size == 1 or log_sites <= knots[0]:
-        return means[0], (0, 0, 0.0)
-    if log_sites >= knots[-1]:
-        return means[-1], (knots.size - 1, knots.size - 1, 0.0)
-    j = int(np.searchsorted(knots, log_sites))
-    gap = knots[j] - knots[j - 1]
-    t = 0.0 if gap <= 1e-9 else float((log_sites - knots[j - 1]) / gap)
-    return (1 - t) * means[j - 1] + t * means[j], (j - 1, j, t)
+    full = _statistics(table, families, shrinkage)
+    family_of = family_index(families, n_ensembles)
+    n = table.values.shape[0]
+    d2_all = np.empty((n, len(families)))
+    ll_all = np.empty((n, len(families)))
+    for row in range(n):
+        f = int(family_of[table.ensemble[row]])
+        keep = np.flatnonzero(family_of[table.ensemble] == f)
+        keep = keep[keep != row]
+        refit = _family_statistics(
+            table.values[keep], table.log_sites[keep], table.ensemble[keep], list(families[f].ensembles),
+            full.pooled_correlation, shrinkage,
+        )
+        evaluation = _evaluate(full, table.values[row], float(table.log_sites[row]), replace=(f, refit))
+        d2_all[row], ll_all[row] = evaluation.d2, evaluation.loglik
+    return d2_all, ll_all
 
 
 @dataclass(frozen=True, eq=False)
@@ -137,7 +264,7 @@ class ReferenceModel:
         Log-likelihoods are divided by this before normalising (fitted on held-out
         references; 1 would trust the Gaussian model as it is).
     shrinkage : float
-        Weight of the pooled covariance in each family's covariance.
+        Weight of the pooled correlations in each family's correlations.
     novelty_d2 : float
         Squared Mahalanobis distance to the nearest family beyond which a specimen is
         outside the library.
@@ -160,95 +287,9 @@ class ReferenceModel:
     size_range: tuple[float, float]
     min_connected_fraction: float
 
-    def evaluate(self, values: np.ndarray, log_sites: float):
-        """Squared Mahalanobis distances and log-likelihoods of one vector under every family.
-
-        Returns ``(d2, loglik, means, interpolation)`` per family.
-        """
+    def evaluate(self, values: np.ndarray, log_sites: float) -> Evaluation:
+        """Distances and log-likelihoods of one vector under every family, at its size."""
         return _evaluate(self.statistics, values, log_sites)
-
-    def posterior(self, loglik: np.ndarray) -> np.ndarray:
-        """Tempered posterior over families (uniform prior) from their log-likelihoods."""
-        return special.softmax(loglik / self.temperature)
-
-
-def _statistics(table: ReferenceTable, families: list[Family], n_ensembles: int, shrinkage: float) -> Statistics:
-    counts, means, log_sizes, scatter = _scatter(table, n_ensembles)
-    knots, family_means, ids = [], [], []
-    family_scatter = np.zeros((len(families), table.values.shape[1], table.values.shape[1]))
-    family_dof = np.zeros(len(families))
-    for f, family in enumerate(families):
-        members = np.array(family.ensembles)
-        order = members[np.argsort(log_sizes[members], kind="stable")]
-        knots.append(log_sizes[order])
-        family_means.append(means[order])
-        ids.append(order)
-        family_scatter[f] = scatter[members].sum(axis=0)
-        family_dof[f] = (counts[members] - 1).sum()
-    covariance, inverse, logdet = _covariances(family_scatter, family_dof, shrinkage)
-    return Statistics(knots, family_means, ids, covariance, inverse, logdet)
-
-
-def _evaluate(statistics: Statistics, values: np.ndarray, log_sites: float):
-    n_families = len(statistics.knots)
-    mu = np.empty((n_families, values.size))
-    where = []
-    for f in range(n_families):
-        mu[f], used = interpolate(statistics.knots[f], statistics.means[f], log_sites)
-        where.append(used)
-    diff = values[None, :] - mu
-    d2 = np.einsum("fi,fij,fj->f", diff, statistics.inverse, diff)
-    loglik = -0.5 * d2 - 0.5 * statistics.logdet - 0.5 * values.size * np.log(2 * np.pi)
-    return d2, loglik, mu, where
-
-
-def held_out_scores(
-    table: ReferenceTable, families: list[Family], n_ensembles: int, shrinkage: float
-) -> tuple[np.ndarray, np.ndarray]:
-    """Leave-one-realisation-out squared distances and log-likelihoods, (n_clusters, n_families).
-
-    Strategy: removing one cluster changes only its own ensemble's mean and its family's
-    scatter, by the exact rank-one downdate ``W' = W - c/(c-1) r r^T`` (``r`` its residual
-    from the ensemble mean, ``c`` the ensemble's count); the pooled covariance of the other
-    families changes by one cluster in hundreds and is kept. So each held-out cluster costs
-    one ``k x k`` inverse instead of a refit.
-    """
-    full = _statistics(table, families, n_ensembles, shrinkage)
-    counts, means, log_sizes, scatter = _scatter(table, n_ensembles)
-    family_of = family_index(families, n_ensembles)
-    family_scatter = np.stack([scatter[list(fam.ensembles)].sum(axis=0) for fam in families])
-    family_dof = np.array([(counts[list(fam.ensembles)] - 1).sum() for fam in families])
-    pooled_scatter, pooled_dof = family_scatter.sum(axis=0), family_dof.sum()
-
-    n = table.values.shape[0]
-    d2_all = np.empty((n, len(families)))
-    ll_all = np.empty((n, len(families)))
-    for row in range(n):
-        e = int(table.ensemble[row])
-        f = int(family_of[e])
-        c = counts[e]
-        x = table.values[row]
-        r = x - means[e]
-        down = (c / (c - 1.0)) * np.outer(r, r)
-        pooled = (pooled_scatter - down) / (pooled_dof - 1)
-        own_dof = family_dof[f] - 1
-        own = (family_scatter[f] - down) / own_dof if own_dof >= 1 else pooled
-        cov = (1.0 - shrinkage) * own + shrinkage * pooled + VARIANCE_FLOOR * np.diag(np.diag(pooled))
-        sign, logdet = np.linalg.slogdet(cov)
-        inverse = np.linalg.inv(cov)
-        position = int(np.flatnonzero(full.ensemble_ids[f] == e)[0])
-        family_means = full.means[f].copy()
-        family_means[position] = (c * means[e] - x) / (c - 1.0)
-        knots = full.knots[f].copy()
-        knots[position] = (c * log_sizes[e] - table.log_sites[row]) / (c - 1.0)
-        order = np.argsort(knots, kind="stable")
-        d2, ll, _, _ = _evaluate(full, x, float(table.log_sites[row]))
-        mu, _ = interpolate(knots[order], family_means[order], float(table.log_sites[row]))
-        diff = x - mu
-        d2[f] = diff @ inverse @ diff
-        ll[f] = -0.5 * d2[f] - 0.5 * logdet - 0.5 * x.size * np.log(2 * np.pi)
-        d2_all[row], ll_all[row] = d2, ll
-    return d2_all, ll_all
 
 
 def fit_temperature(loglik: np.ndarray, truth: np.ndarray) -> tuple[float, float]:
@@ -303,7 +344,7 @@ def fit_model(reference_set, table: ReferenceTable) -> ReferenceModel:
     k = table.values.shape[1]
     own = d2[np.arange(truth.size), truth]
     novelty = novelty_threshold(own, k)
-    statistics = _statistics(table, families, n_ensembles, shrinkage)
+    statistics = _statistics(table, families, shrinkage)
     sizes = np.exp(np.concatenate(statistics.knots))
     return ReferenceModel(
         families=families,

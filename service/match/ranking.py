@@ -149,10 +149,9 @@ def _label(match: dict[str, Any]) -> str:
             f"{match['probability']:.2f}, Mahalanobis distance {match['distance']:.2f}")
 
 
-def _feature_row(model, values, mu, f: int, name_index: int) -> dict[str, float]:
-    sd = float(np.sqrt(model.statistics.covariance[f, name_index, name_index]))
-    mean = float(mu[f, name_index])
-    return {"mean": mean, "sd": sd, "z": float((values[name_index] - mean) / sd)}
+def _feature_row(evaluation, values, f: int, n: int) -> dict[str, float]:
+    mean, sd = float(evaluation.mean[f, n]), float(evaluation.sd[f, n])
+    return {"mean": mean, "sd": sd, "z": float((values[n] - mean) / sd)}
 
 
 def match_features(features, *, reference_set=None, mask: np.ndarray | None = None) -> dict[str, Any]:
@@ -210,14 +209,15 @@ def match_features(features, *, reference_set=None, mask: np.ndarray | None = No
             "warnings": [f"matching: {exc}"],
         }
     values, log_sites = vector.values, float(np.log(vector.n_sites))
-    d2, loglik, mu, where = model.evaluate(values, log_sites)
-    scaled = loglik / model.temperature
+    evaluation = model.evaluate(values, log_sites)
+    d2 = evaluation.d2
+    scaled = evaluation.loglik / model.temperature
     probability = special.softmax(scaled)
     order = np.argsort(-probability, kind="stable")
     nearest = int(np.argmin(d2))
     connected = vector.connected_fraction >= model.min_connected_fraction - CONNECTED_MARGIN
     in_library = bool(d2[nearest] <= model.novelty_d2 and connected)
-    matches = [_family_entry(model, reference_set, int(f), probability[f], d2[f], where[f]) for f in order]
+    matches = [_family_entry(model, reference_set, int(f), probability[f], d2[f], evaluation.where[f]) for f in order]
 
     warnings: list[str] = []
     if model.calibration["cache_discrepancy"] > CACHE_TOLERANCE:
@@ -247,16 +247,16 @@ def match_features(features, *, reference_set=None, mask: np.ndarray | None = No
     rows = []
     for n, (name, description) in enumerate(FEATURES):
         row = {"feature": name, "description": description, "value": float(values[n]),
-               "best": _feature_row(model, values, mu, best, n)}
+               "best": _feature_row(evaluation, values, best, n)}
         if runner is not None:
-            row["runner_up"] = _feature_row(model, values, mu, runner, n)
+            row["runner_up"] = _feature_row(evaluation, values, runner, n)
             row["weight_of_evidence"] = 0.5 * (row["runner_up"]["z"] ** 2 - row["best"]["z"] ** 2)
         rows.append(row)
     deciding = sorted(rows, key=lambda r: -r.get("weight_of_evidence", 0.0))[:N_DECIDING]
     best_class = universality_class(model.families[best].regime, model.families[best].parameters)
     note = _class_note(best_class)
     outliers = [name for n, (name, _) in enumerate(FEATURES)
-                if abs(_feature_row(model, values, mu, nearest, n)["z"]) > OUTLIER_Z]
+                if abs(_feature_row(evaluation, values, nearest, n)["z"]) > OUTLIER_Z]
     summary = f"best match {_label(matches[0])}"
     if runner is not None:
         summary += f"; runner-up {_label(matches[1])}"
