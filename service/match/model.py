@@ -163,7 +163,9 @@ def _statistics(table: ReferenceTable, families: list[Family], shrinkage: float)
     pooled = scatter / dof
     pooled_correlation = _correlation(pooled)
     stats_ = [
-        _family_statistics(table.values, table.log_sites, table.ensemble, list(f.ensembles), pooled_correlation, shrinkage)
+        _family_statistics(
+            table.values, table.log_sites, table.ensemble, list(f.ensembles), pooled_correlation, shrinkage
+        )
         for f in families
     ]
     return Statistics(stats_, pooled_correlation, VARIANCE_FLOOR * np.diag(pooled))

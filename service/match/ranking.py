@@ -284,7 +284,10 @@ def match_features(features, *, reference_set=None, mask: np.ndarray | None = No
         "universality_note": note,
         "specimen": {**normalisation, "log_sites": log_sites},
         "novelty": {
-            "nearest": {"regime": model.families[nearest].regime, "parameters": dict(model.families[nearest].parameters)},
+            "nearest": {
+                "regime": model.families[nearest].regime,
+                "parameters": dict(model.families[nearest].parameters),
+            },
             "nearest_distance": float(np.sqrt(d2[nearest])),
             "threshold_distance": float(np.sqrt(model.novelty_d2)),
             "n_features": len(FEATURES),

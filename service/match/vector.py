@@ -56,9 +56,10 @@ class LatticeVector:
     scale_px : float
         Pixels per lattice site of the normalisation (1 for a lattice cluster).
     connected_fraction : float
-        Share of the sites in the largest piece (pieces less than a site apart joined). Every library cluster is one
-        aggregate grown from one seed, so this is not compared as a Gaussian feature (its
-        reference spread is nil) but checked against the references' own range.
+        Share of the sites in the largest piece (pieces less than a site apart joined).
+        Every library cluster is one aggregate grown from one seed, so this is not compared
+        as a Gaussian feature (its reference spread is nil) but checked against the
+        references' own range.
     """
 
     values: np.ndarray
@@ -130,7 +131,9 @@ def lattice_features(lattice: np.ndarray) -> LatticeVector:
     points = np.argwhere(lattice)
     n = points.shape[0]
     if n < MIN_SITES:
-        raise SpecimenError(f"the specimen covers {n} branch widths squared; at least {MIN_SITES} are needed to compare it")
+        raise SpecimenError(
+            f"the specimen covers {n} branch widths squared; at least {MIN_SITES} are needed to compare it"
+        )
     center = points.mean(axis=0)
     offsets = points - center
     radius = float(np.sqrt((offsets**2).sum(axis=1).max())) + 0.5
@@ -189,11 +192,12 @@ def reference_photo_mask(lattice: np.ndarray, *, seed: int) -> np.ndarray:
     """A lattice cluster drawn as a segmented photograph of it would show it.
 
     Each site becomes a block of ``s`` pixels (``s`` uniform in 3-6), branches are widened
-    to ``s`` times 1-1.4, a centre electrode disc (radius 1-8 sites, log-uniform; a photograph
-    at 3 px per site with the electrode 1.5% of its side shows one of 8 sites) is added at
-    the seed in 60% of the drawings, and the outline is softened by a Gaussian blur (sigma 0.5-1.5 px)
-    thresholded at one half, as optics and a threshold soften it. The same recipe as
-    :func:`service.imaging.render_specimen` draws its truth mask, with its settings varied.
+    to ``s`` times 1-1.4, a centre electrode disc (radius 1-8 sites, log-uniform; a
+    photograph at 3 px per site with the electrode 1.5% of its side shows one of 8 sites)
+    is added at the seed in 60% of the drawings, and the outline is softened by a Gaussian
+    blur (sigma 0.5-1.5 px) thresholded at one half, as optics and a threshold soften it.
+    The same recipe as :func:`service.imaging.render_specimen` draws its truth mask, with
+    its settings varied.
 
     Parameters
     ----------
@@ -227,7 +231,7 @@ def reference_photo_mask(lattice: np.ndarray, *, seed: int) -> np.ndarray:
     return ndimage.gaussian_filter(drawn.astype(np.float32), blur) >= 0.5
 
 
-def reference_vector(arrival_order: np.ndarray, ensemble=None) -> LatticeVector:
+def reference_vector(arrival_order: np.ndarray) -> LatticeVector:
     """Features of one library cluster through the specimens' path (the feature-cache task).
 
     The drawing's seed is the CRC-32 of the cluster's arrival-order lattice mixed with

@@ -93,7 +93,8 @@ def test_fresh_photographs_are_ranked_to_their_regime(analysed):
         lines.append(f"{regime} {parameters} n={n} {size_px}px -> {top['regime']} {top['parameters']} "
                      f"p={top['probability']:.2f} in_library={result['in_library']} "
                      f"d={result['explanation']['novelty']['nearest_distance']:.1f} "
-                     f"connected={result['explanation']['novelty']['connected_fraction']:.3f} {'ok' if ok else 'WRONG'}")
+                     f"connected={result['explanation']['novelty']['connected_fraction']:.3f} "
+                     f"{'ok' if ok else 'WRONG'}")
     print("\n".join(lines))
     assert right >= MIN_RIGHT_SHARE * len(SPECIMENS), "\n".join(lines)
 
