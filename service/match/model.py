@@ -102,7 +102,7 @@ class Statistics:
     """Every family's statistics, and what is pooled over all of them."""
 
     families: list[FamilyStatistics]
-    pooled_correlation: np.ndarray
+    pooled: np.ndarray  # (k, k) within-ensemble covariance pooled over every family
     floor: np.ndarray  # (k,) variance ridge, VARIANCE_FLOOR of the pooled variances
 
     @property
@@ -119,40 +119,47 @@ def _correlation(covariance: np.ndarray) -> np.ndarray:
     return covariance / np.outer(sd, sd)
 
 
-def _family_statistics(values, log_sites, ensemble, members, pooled_correlation, shrinkage) -> FamilyStatistics:
-    """Statistics of one family from its own rows (``values``, ``log_sites``, ``ensemble``)."""
-    knots, means, variances = [], [], []
+def _family_statistics(values, log_sites, ensemble, members, pooled, shrinkage) -> FamilyStatistics:
+    """Statistics of one family from its own rows (``values``, ``log_sites``, ``ensemble``).
+
+    An ensemble left with one realisation (when another is held out of a two-realisation
+    ensemble) borrows its family's variances, or the pooled ones if the family has no other.
+    """
     k = values.shape[1]
+    knots, means, variances, counts = [], [], [], []
     scatter, dof = np.zeros((k, k)), 0
     for e in members:
-        rows = ensemble == e
-        if rows.sum() < 2:
-            raise LibraryError("every reference ensemble needs at least two realisations with features")
-        x = values[rows]
+        x = values[ensemble == e]
         mean = x.mean(axis=0)
         residual = x - mean
         scatter += residual.T @ residual
-        dof += rows.sum() - 1
-        knots.append(log_sites[rows].mean())
+        dof += x.shape[0] - 1
+        knots.append(log_sites[ensemble == e].mean())
         means.append(mean)
-        variances.append((residual**2).sum(axis=0) / (rows.sum() - 1))
-    order = np.argsort(knots, kind="stable")
-    family_covariance = scatter / dof
-    variances = (1.0 - VARIANCE_POOLING) * np.array(variances) + VARIANCE_POOLING * np.diag(family_covariance)
+        variances.append((residual**2).sum(axis=0) / max(x.shape[0] - 1, 1))
+        counts.append(x.shape[0])
+    family_covariance = scatter / dof if dof > 0 else pooled
+    family_variance = np.diag(family_covariance)
+    variances = np.array([v if c > 1 else family_variance for v, c in zip(variances, counts)])
+    variances = (1.0 - VARIANCE_POOLING) * variances + VARIANCE_POOLING * family_variance
     with np.errstate(invalid="ignore", divide="ignore"):
         own = np.nan_to_num(_correlation(family_covariance), nan=0.0)
     np.fill_diagonal(own, 1.0)
+    order = np.argsort(knots, kind="stable")
     return FamilyStatistics(
         knots=np.array(knots)[order],
         means=np.array(means)[order],
         variances=variances[order],
-        correlation=(1.0 - shrinkage) * own + shrinkage * pooled_correlation,
+        correlation=(1.0 - shrinkage) * own + shrinkage * _correlation(pooled),
         ensemble_ids=np.asarray(members)[order],
     )
 
 
 def _statistics(table: ReferenceTable, families: list[Family], shrinkage: float) -> Statistics:
     """Fit every family; the pooled correlations are those of all within-ensemble residuals."""
+    counts = np.bincount(table.ensemble)
+    if np.any(counts[np.unique(table.ensemble)] < 2):
+        raise LibraryError("every reference ensemble needs at least two realisations with features")
     k = table.values.shape[1]
     scatter, dof = np.zeros((k, k)), 0
     for e in np.unique(table.ensemble):
@@ -161,14 +168,11 @@ def _statistics(table: ReferenceTable, families: list[Family], shrinkage: float)
         scatter += residual.T @ residual
         dof += x.shape[0] - 1
     pooled = scatter / dof
-    pooled_correlation = _correlation(pooled)
-    stats_ = [
-        _family_statistics(
-            table.values, table.log_sites, table.ensemble, list(f.ensembles), pooled_correlation, shrinkage
-        )
+    fitted = [
+        _family_statistics(table.values, table.log_sites, table.ensemble, list(f.ensembles), pooled, shrinkage)
         for f in families
     ]
-    return Statistics(stats_, pooled_correlation, VARIANCE_FLOOR * np.diag(pooled))
+    return Statistics(fitted, pooled, VARIANCE_FLOOR * np.diag(pooled))
 
 
 def interpolate(knots: np.ndarray, log_sites: float) -> tuple[int, int, float]:
@@ -246,7 +250,7 @@ def held_out_scores(
         keep = keep[keep != row]
         refit = _family_statistics(
             table.values[keep], table.log_sites[keep], table.ensemble[keep], list(families[f].ensembles),
-            full.pooled_correlation, shrinkage,
+            full.pooled, shrinkage,
         )
         evaluation = _evaluate(full, table.values[row], float(table.log_sites[row]), replace=(f, refit))
         d2_all[row], ll_all[row] = evaluation.d2, evaluation.loglik
