@@ -56,13 +56,26 @@ def _add_library(sub: argparse._SubParsersAction) -> None:
     b.add_argument("--scheduler", default=None, metavar="ADDRESS", help="address of an existing Dask scheduler")
     b.add_argument("--workers", type=int, default=None, help="LocalCluster workers (default: one per core)")
     b.add_argument("--preset", default="default", help="which ensemble to grow (default, tiny, ...)")
+    b.add_argument("--skip-features", action="store_true",
+                   help="grow and store the clusters only; the matcher's feature cache is left unbuilt")
     b.set_defaults(func=_run_library_build)
 
 
 def _run_library_build(args: argparse.Namespace) -> int:
+    from pathlib import Path
+
     from service.library.build import run_build_command
 
-    return run_build_command(args)
+    args.out = args.out or str(Path(__file__).resolve().parents[1] / "reference_sets" / args.preset)
+    status = run_build_command(args)
+    if status or args.skip_features:
+        return status
+    # A set is usable for ranking only with the matcher's features of every cluster beside it.
+    from service.match import build_feature_cache
+
+    build_feature_cache(args.out, scheduler=args.scheduler, workers=args.workers)
+    print(f"matcher features cached in {args.out}/cache")
+    return 0
 
 
 def build_parser() -> argparse.ArgumentParser:

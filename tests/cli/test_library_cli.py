@@ -1,0 +1,31 @@
+"""`ramiform library build`: one command leaves a set the matcher can rank against."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from service.cli import main
+from service.errors import LibraryError
+from service.library import load_reference_set
+from service.match.cache import load_reference_table
+
+
+def test_build_command_grows_the_set_and_caches_the_matcher_features(tmp_path, capsys):
+    out = tmp_path / "tiny"
+    assert main(["library", "build", "--preset", "tiny", "--out", str(out), "--workers", "2"]) == 0
+    printed = capsys.readouterr().out
+    assert str(out) in printed and "features cached" in printed
+    refs = load_reference_set(out)
+    table = load_reference_table(refs, build_if_missing=False)  # raises if the cache were missing
+    counts = np.bincount(table.ensemble, minlength=len(refs.ensembles))
+    assert counts.tolist() == [e.n_realisations for e in refs.ensembles]
+    assert np.isfinite(table.values).all()
+
+
+def test_skip_features_leaves_the_cache_unbuilt(tmp_path):
+
+    out = tmp_path / "tiny"
+    assert main(["library", "build", "--preset", "tiny", "--out", str(out), "--workers", "1", "--skip-features"]) == 0
+    with pytest.raises(LibraryError, match="no matcher feature cache"):
+        load_reference_table(load_reference_set(out), build_if_missing=False)
