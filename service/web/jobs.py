@@ -142,13 +142,15 @@ def run_analysis(data: bytes, options: AnalysisOptions) -> dict[str, Any]:
 def matcher_distances(vectors: list[list[float]], library_dir: str | None) -> list[list[float]]:
     """Mahalanobis distances between specimens in the matcher's feature space.
 
-    The metric is the reference model's within-ensemble covariance averaged over its
-    families: the spread the matcher itself expects between clusters grown alike.
+    The metric is the reference model's within-ensemble covariance pooled over its
+    families, with the matcher's own variance ridge: the spread the matcher itself expects
+    between clusters grown alike.
     """
     from service.match import reference_model
 
     model = reference_model(_reference_set(library_dir))
-    inverse = np.linalg.inv(model.statistics.covariance.mean(axis=0))
+    statistics = model.statistics
+    inverse = np.linalg.inv(statistics.pooled + np.diag(statistics.floor))
     x = np.asarray(vectors, dtype=float)
     diff = x[:, None, :] - x[None, :, :]
     d2 = np.einsum("ijk,kl,ijl->ij", diff, inverse, diff)

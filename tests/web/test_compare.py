@@ -43,7 +43,7 @@ def test_matcher_distances_are_mahalanobis_under_the_library_covariance(tiny_lib
     rng = np.random.default_rng(11)
     vectors = rng.normal(size=(3, len(FEATURE_NAMES)))
     matrix = np.array(matcher_distances(vectors.tolist(), str(tiny_library)))
-    inverse = np.linalg.inv(model.statistics.covariance.mean(axis=0))
+    inverse = np.linalg.inv(model.statistics.pooled + np.diag(model.statistics.floor))
     for i in range(3):
         for j in range(3):
             # scipy.spatial.distance.mahalanobis: sqrt((u - v) VI (u - v)^T)
