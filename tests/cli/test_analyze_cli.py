@@ -89,3 +89,26 @@ def test_table_output_names_each_image(images):
     body = [r for r in rows[1:] if not r.startswith("    ")]
     assert [r.split()[0] for r in body] == [p.name for p in images]
     assert "error" in body[1]
+
+
+def test_a_dask_cluster_gives_the_same_lines_in_the_same_order(images, capsys):
+    from distributed import LocalCluster
+
+    main(["analyze", *map(str, images), "--json", "--workers", "1"])
+    local = [json.loads(line) for line in capsys.readouterr().out.splitlines()]
+    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as cluster:
+        status = main(["analyze", *map(str, images), "--json", "--scheduler", cluster.scheduler_address])
+    remote = [json.loads(line) for line in capsys.readouterr().out.splitlines()]
+    assert status == 1
+    assert [r["path"] for r in remote] == [str(p) for p in images]
+    assert remote[1]["error"] == local[1]["error"]
+    # Same seeds and same code on the workers: the same numbers, up to the last bits of
+    # floating-point sums whose order depends on the process's thread settings.
+    for r, l in ((remote[0], local[0]), (remote[2], local[2])):
+        fr, fl = r["features"], l["features"]
+        assert fr["box_dimension"]["value"] == pytest.approx(fl["box_dimension"]["value"], rel=1e-9)
+        assert fr["box_dimension"]["ci95"] == pytest.approx(fl["box_dimension"]["ci95"], rel=1e-9)
+        assert fr["mass_radius_dimension"]["value"] == pytest.approx(fl["mass_radius_dimension"]["value"], rel=1e-9)
+        assert fr["lacunarity"]["values"] == pytest.approx(fl["lacunarity"]["values"], rel=1e-9)
+        assert fr["skeleton"] == fl["skeleton"]
+        assert [m["regime"] for m in r["matches"]] == [m["regime"] for m in l["matches"]]
