@@ -12,6 +12,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from service import __version__
 from service.errors import LibraryError
 from service.features import Features, measure
@@ -59,13 +61,19 @@ class Analysis:
 
 
 def json_safe(value: Any) -> Any:
-    """Plain JSON values: non-finite floats become None (JSON has no NaN), tuples become lists."""
-    if isinstance(value, float):
-        return value if math.isfinite(value) else None
+    """``value`` as plain JSON: numpy scalars and arrays made Python ones, tuples made lists,
+    NaN and infinities made ``None`` (JSON has no NaN; PostgreSQL's ``json`` type and strict
+    clients refuse it)."""
     if isinstance(value, dict):
         return {str(k): json_safe(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
         return [json_safe(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return json_safe(value.tolist())
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
     return value
 
 

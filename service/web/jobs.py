@@ -10,7 +10,6 @@ from __future__ import annotations
 import asyncio
 import concurrent.futures
 import concurrent.futures.process  # BrokenProcessPool, also when the pool runs threads
-import math
 import multiprocessing
 import os
 from dataclasses import asdict, dataclass
@@ -40,24 +39,6 @@ class AnalysisOptions:
 
     def to_dict(self) -> dict[str, Any]:
         return asdict(self)
-
-
-def json_safe(value: Any) -> Any:
-    """``value`` with numpy scalars made Python ones and NaN or infinities made ``None``.
-
-    JSON has no NaN; PostgreSQL's ``json`` type and strict clients refuse it.
-    """
-    if isinstance(value, dict):
-        return {str(k): json_safe(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [json_safe(v) for v in value]
-    if isinstance(value, np.ndarray):
-        return json_safe(value.tolist())
-    if isinstance(value, np.generic):
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
 
 
 @lru_cache(maxsize=4)
@@ -114,7 +95,7 @@ def run_analysis(data: bytes, options: AnalysisOptions) -> dict[str, Any]:
         reference_set=reference_set,
         match=not_ranked is None,
     )
-    analysis = json_safe(result.to_dict())
+    analysis = result.to_dict()
     if not_ranked is not None:
         analysis["warnings"].append(not_ranked)
     rgb = result.image.rgb

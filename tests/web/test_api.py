@@ -13,7 +13,7 @@ from PIL import Image
 
 from service.analysis import analyze
 from service.simulate import REGIMES
-from service.web.jobs import json_safe
+
 from tests.web.conftest import make_client, specimen_png
 
 
@@ -32,7 +32,7 @@ def test_upload_read_list_export_delete(client, dla_png):
     # The analysis object is the one `ramiform analyze --json` prints for the same file
     # (same pipeline, same numbers); only the matching section may depend on the library.
     direct = analyze(dla_png, filename="dish.png", pixel_size_mm=0.02, match=False)
-    expected = json_safe(direct.to_dict())
+    expected = direct.to_dict()
     for key in ("ramiform_version", "source", "image", "calibration", "segmentation", "features"):
         assert body[key] == expected[key], key
     assert body["calibration"] == {"pixel_size_mm": 0.02, "source": "user", "calibrated": True}
