@@ -164,14 +164,14 @@ def test_writer_killed_at_the_critical_moments(tmp_path, moment):
 def _analysis_workers(server_pid: int) -> list[int]:
     """Pids of the server's analysis processes (spawned children running multiprocessing's entry)."""
     workers = []
-    for stat in Path("/proc").glob("[0-9]*/stat"):
+    for stat_file in Path("/proc").glob("[0-9]*/stat"):
         try:
-            fields = stat.read_text().rsplit(")", 1)[1].split()
-            cmdline = (stat.parent / "cmdline").read_bytes()
+            fields = stat_file.read_text().rsplit(")", 1)[1].split()
+            cmdline = (stat_file.parent / "cmdline").read_bytes()
         except (OSError, IndexError):
             continue  # the process ended while we looked
         if int(fields[1]) == server_pid and b"spawn_main" in cmdline:
-            workers.append(int(stat.parent.name))
+            workers.append(int(stat_file.parent.name))
     return workers
 
 
