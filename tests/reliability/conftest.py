@@ -10,7 +10,6 @@ from __future__ import annotations
 import contextlib
 import io
 import os
-import secrets
 import signal
 import socket
 import subprocess
@@ -26,6 +25,7 @@ from PIL import Image
 
 from service.web.app import create_app
 from service.web.settings import Settings
+from tests.postgres import postgres_schema, url_in_schema
 
 ROOT = Path(__file__).resolve().parents[2]
 RAMIFORM = ROOT / ".venv" / "bin" / "ramiform"
@@ -60,8 +60,6 @@ def make_settings(tmp_path: Path, **overrides) -> Settings:
     return Settings(**values)
 
 
-PG_URL = os.environ.get("RAMIFORM_TEST_DATABASE_URL")
-PG_SKIP = "RAMIFORM_TEST_DATABASE_URL is not set: the PostgreSQL run of these checks is skipped"
 #: Backends every in-process check runs on; PostgreSQL only when a server is given.
 BACKENDS = ["sqlite", pytest.param("postgresql", marks=pytest.mark.postgres)]
 
@@ -72,23 +70,8 @@ def database_url(backend: str) -> Iterator[str | None]:
     if backend == "sqlite":
         yield None
         return
-    if not PG_URL:
-        pytest.skip(PG_SKIP)
-    from sqlalchemy import text
-
-    from service.store import make_engine
-
-    schema = f"ramiform_reliability_{secrets.token_hex(6)}"
-    admin = make_engine(PG_URL)
-    with admin.begin() as conn:
-        conn.execute(text(f'CREATE SCHEMA "{schema}"'))
-    separator = "&" if "?" in PG_URL else "?"
-    try:
-        yield f"{PG_URL}{separator}options=-csearch_path%3D{schema}"
-    finally:
-        with admin.begin() as conn:
-            conn.execute(text(f'DROP SCHEMA "{schema}" CASCADE'))
-        admin.dispose()
+    with postgres_schema("ramiform_reliability") as schema:
+        yield url_in_schema(schema)
 
 
 @contextlib.contextmanager

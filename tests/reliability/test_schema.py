@@ -18,7 +18,8 @@ import schemathesis
 from hypothesis import HealthCheck, settings
 
 from service.web.app import create_app
-from tests.reliability.conftest import PG_SKIP, PG_URL, ROOT, database_url, make_settings
+from tests.postgres import PG_SKIP, PG_URL
+from tests.reliability.conftest import ROOT, database_url, make_settings
 
 # The schemas are needed when the module is collected, so their data folders (and the
 # PostgreSQL schema) are made here and removed when the module's tests end.

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import csv
 import io
-import secrets
 import xml.etree.ElementTree as ET
 
 import numpy as np
@@ -14,6 +13,7 @@ from PIL import Image
 from service.analysis import analyze
 from service.simulate import REGIMES
 
+from tests.postgres import postgres_schema, url_in_schema
 from tests.web.conftest import make_client, specimen_png
 
 
@@ -149,22 +149,8 @@ def shared_database(request, tmp_path):
     if request.param == "sqlite":
         yield None
         return
-    from tests.store.conftest import PG_SKIP, PG_URL
-
-    if not PG_URL:
-        pytest.skip(PG_SKIP)
-    from sqlalchemy import create_engine, text
-
-    schema = f"ramiform_web_{secrets.token_hex(6)}"
-    admin = create_engine(PG_URL)
-    with admin.begin() as conn:
-        conn.execute(text(f'CREATE SCHEMA "{schema}"'))
-    try:
-        yield f"{PG_URL}?options=-csearch_path%3D{schema}"
-    finally:
-        with admin.begin() as conn:
-            conn.execute(text(f'DROP SCHEMA "{schema}" CASCADE'))
-        admin.dispose()
+    with postgres_schema("ramiform_web") as schema:
+        yield url_in_schema(schema)
 
 
 def test_two_instances_share_one_store(tmp_path, dla_png, shared_database):
