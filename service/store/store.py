@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import secrets
 import shutil
+import time
 from collections.abc import Mapping
 from dataclasses import dataclass
 from datetime import datetime, timezone
@@ -220,6 +221,27 @@ class Store:
             session.delete(row)
         shutil.rmtree(self.folder(specimen_id), ignore_errors=True)
         return True
+
+    def sweep_orphans(self, *, older_than_s: float = 3600.0) -> list[str]:
+        """Remove specimen folders that no record names, once they are ``older_than_s`` old.
+
+        A server killed between writing a specimen's files and committing its record leaves
+        such a folder; it was never acknowledged, so nothing is lost by removing it. The age
+        guard spares the folders of uploads another instance is committing right now.
+        Returns the ids removed.
+        """
+        if not self.specimens_dir.is_dir():
+            return []
+        cutoff = time.time() - older_than_s
+        candidates = [p for p in self.specimens_dir.iterdir() if p.is_dir() and p.stat().st_mtime < cutoff]
+        if not candidates:
+            return []
+        with Session(self.engine) as session:
+            known = set(session.scalars(select(SpecimenRow.id).where(SpecimenRow.id.in_([p.name for p in candidates]))))
+        removed = [p.name for p in candidates if p.name not in known]
+        for specimen_id in removed:
+            shutil.rmtree(self.folder(specimen_id), ignore_errors=True)
+        return removed
 
     def file_path(self, record: SpecimenRecord, name: str) -> Path | None:
         """Path of one of the record's stored files, or ``None`` if it has no such file."""

@@ -35,6 +35,9 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         app.state.store = Store.open(settings.resolved_database_url, settings.data_dir)
+        swept = app.state.store.sweep_orphans()
+        if swept:
+            log.info("removed %d specimen folders that no record names (left by an interrupted upload)", len(swept))
         app.state.pool = AnalysisPool(settings.worker_count)
         log.info("ramiform %s: database %s, data folder %s, %d analysis processes", __version__,
                  app.state.store.engine.dialect.name, settings.data_dir.resolve(), settings.worker_count)

@@ -148,3 +148,20 @@ def test_durable_writes_leave_whole_files_only(tmp_path: Path):
     for bad in ("../escape.png", ".hidden", "a/b.png", ""):
         with pytest.raises(ValueError, match="plain names"):
             write_folder_durably(tmp_path / "other", {bad: b"x"})
+
+
+def test_sweep_removes_only_old_folders_without_a_record(store):
+    kept = store.add({"source": {"sha256": "ab"}}, {"overlay.png": b"x"}, label="kept")
+    orphan, fresh = new_specimen_id(), new_specimen_id()
+    write_folder_durably(store.folder(orphan), {"overlay.png": b"never committed"})
+    write_folder_durably(store.folder(fresh), {"overlay.png": b"being committed elsewhere"})
+    two_hours_ago = os.path.getmtime(store.folder(orphan)) - 7200
+    for specimen_id in (orphan, kept.id):
+        os.utime(store.folder(specimen_id), (two_hours_ago, two_hours_ago))
+
+    assert store.sweep_orphans(older_than_s=3600) == [orphan]
+    assert not store.folder(orphan).exists()
+    # The acknowledged specimen keeps its files, however old; a young folder may be another
+    # instance's upload between its files and its commit, so it is left alone.
+    assert store.folder(kept.id).is_dir() and store.get(kept.id) is not None
+    assert store.folder(fresh).is_dir()
