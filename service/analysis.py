@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import hashlib
 import math
-from dataclasses import dataclass, field
+from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -19,6 +19,25 @@ from service.errors import LibraryError
 from service.features import Features, measure
 from service.imaging import LoadedImage, Segmentation, load_image, segment
 from service.imaging.load import DEFAULT_MAX_PIXELS
+
+
+@dataclass(frozen=True)
+class AnalysisOptions:
+    """What the user chose for one image (CLI flags or upload fields); picklable, so it
+    travels to worker processes. ``library_dir`` None means the bundled reference set."""
+
+    filename: str | None = None
+    pixel_size_mm: float | None = None
+    mode: str = "auto"
+    polarity: str = "auto"
+    threshold: float | None = None
+    roi: tuple[float, float, float] | None = None
+    page: int | None = None
+    library_dir: str | None = None
+    max_pixels: int | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        return asdict(self)
 
 
 @dataclass(frozen=True)
@@ -161,4 +180,26 @@ def analyze(
         calibration=calibration,
         matching=matching,
         warnings=tuple(warnings),
+    )
+
+
+def analyze_with(source: bytes | str | Path, options: AnalysisOptions, *, reference_set=None,
+                 match: bool = True) -> Analysis:
+    """:func:`analyze` with the user's choices gathered in one :class:`AnalysisOptions`.
+
+    ``options.library_dir`` is not opened here: the caller passes the ``reference_set`` it
+    loaded (and may cache), or None for the bundled one.
+    """
+    return analyze(
+        source,
+        filename=options.filename,
+        pixel_size_mm=options.pixel_size_mm,
+        mode=options.mode,
+        polarity=options.polarity,
+        threshold=options.threshold,
+        roi=options.roi,
+        page=options.page,
+        max_pixels=options.max_pixels,
+        reference_set=reference_set,
+        match=match,
     )

@@ -12,44 +12,24 @@ import os
 import sys
 from collections.abc import Iterable, Iterator
 from concurrent.futures import ProcessPoolExecutor
-from dataclasses import dataclass
 from functools import partial
 from typing import Any, TextIO
 
+from service.analysis import AnalysisOptions
 from service.errors import RamiformError
 
 
-@dataclass(frozen=True)
-class AnalyzeOptions:
-    """The per-image options of one batch; picklable, so it travels to the workers."""
-
-    pixel_size_mm: float | None = None
-    mode: str = "auto"
-    polarity: str = "auto"
-    threshold: float | None = None
-    page: int | None = None
-    library: str | None = None
-
-
-def analyze_path(path: str, options: AnalyzeOptions) -> dict[str, Any]:
+def analyze_path(path: str, options: AnalysisOptions) -> dict[str, Any]:
     """Analyse one file; never raises for a bad image, answers an error object instead."""
-    from service.analysis import analyze
+    from service.analysis import analyze_with
 
     try:
         reference_set = None
-        if options.library is not None:
+        if options.library_dir is not None:
             from service.library import load_reference_set
 
-            reference_set = load_reference_set(options.library)
-        result = analyze(
-            path,
-            pixel_size_mm=options.pixel_size_mm,
-            mode=options.mode,
-            polarity=options.polarity,
-            threshold=options.threshold,
-            page=options.page,
-            reference_set=reference_set,
-        )
+            reference_set = load_reference_set(options.library_dir)
+        result = analyze_with(path, options, reference_set=reference_set)
         return {"path": path, **result.to_dict()}
     except (RamiformError, ValueError, OSError) as exc:
         return {"path": path, "error": {"type": type(exc).__name__, "detail": str(exc)}}
@@ -57,7 +37,7 @@ def analyze_path(path: str, options: AnalyzeOptions) -> dict[str, Any]:
 
 def analyze_many(
     paths: Iterable[str],
-    options: AnalyzeOptions,
+    options: AnalysisOptions,
     *,
     workers: int | None = None,
     scheduler: str | None = None,
@@ -142,13 +122,13 @@ def write_results(results: Iterable[dict[str, Any]], *, as_json: bool, out: Text
 
 def run_analyze_command(args) -> int:
     """Entry point of ``ramiform analyze``; exit status 1 if any image failed."""
-    options = AnalyzeOptions(
+    options = AnalysisOptions(
         pixel_size_mm=args.pixel_size,
         mode=args.mode,
         polarity=args.polarity,
         threshold=args.threshold,
         page=args.page,
-        library=args.library,
+        library_dir=args.library,
     )
     results = analyze_many(args.images, options, workers=args.workers, scheduler=args.scheduler)
     failures = write_results(results, as_json=args.json, out=sys.stdout)

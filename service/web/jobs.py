@@ -12,33 +12,15 @@ import concurrent.futures
 import concurrent.futures.process  # BrokenProcessPool, also when the pool runs threads
 import multiprocessing
 import os
-from dataclasses import asdict, dataclass
 from functools import lru_cache
 from typing import Any
 
 import numpy as np
 
+from service.analysis import AnalysisOptions
 from service.errors import LibraryError, RamiformError
 
 _SOURCE_SUFFIX = {"PNG": "png", "JPEG": "jpg", "TIFF": "tif", "BMP": "bmp"}
-
-
-@dataclass(frozen=True)
-class AnalysisOptions:
-    """What the client chose for one upload; picklable, so it travels to the workers."""
-
-    filename: str | None = None
-    pixel_size_mm: float | None = None
-    mode: str = "auto"
-    polarity: str = "auto"
-    threshold: float | None = None
-    roi: tuple[float, float, float] | None = None
-    page: int | None = None
-    library_dir: str | None = None
-    max_pixels: int | None = None
-
-    def to_dict(self) -> dict[str, Any]:
-        return asdict(self)
 
 
 @lru_cache(maxsize=4)
@@ -77,24 +59,12 @@ def run_analysis(data: bytes, options: AnalysisOptions) -> dict[str, Any]:
 
     Raises the pipeline's own errors (``RamiformError`` subclasses, ``ValueError``) unchanged.
     """
-    from service.analysis import analyze
+    from service.analysis import analyze_with
     from service.web import pictures, plots
     from service.web.formatting import family_name
 
     reference_set, not_ranked = _reference_set_or_reason(options.library_dir)
-    result = analyze(
-        data,
-        filename=options.filename,
-        pixel_size_mm=options.pixel_size_mm,
-        mode=options.mode,
-        polarity=options.polarity,
-        threshold=options.threshold,
-        roi=options.roi,
-        page=options.page,
-        max_pixels=options.max_pixels,
-        reference_set=reference_set,
-        match=not_ranked is None,
-    )
+    result = analyze_with(data, options, reference_set=reference_set, match=not_ranked is None)
     analysis = result.to_dict()
     if not_ranked is not None:
         analysis["warnings"].append(not_ranked)
