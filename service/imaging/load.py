@@ -17,7 +17,7 @@ from typing import Any
 import numpy as np
 from PIL import BmpImagePlugin, Image, ImageOps, JpegImagePlugin, PngImagePlugin
 
-from service.errors import ImageTooLargeError, SpecimenError, UnsupportedFormatError
+from service.errors import ImageTooLargeError, RamiformError, SpecimenError, UnsupportedFormatError
 
 __all__ = ["ACCEPTED_FORMATS", "DEFAULT_MAX_PIXELS", "MIN_SIDE_PX", "LoadedImage", "load_image", "sniff_format"]
 
@@ -335,18 +335,20 @@ def _load_tiff(data: bytes, page: int | None, max_pixels: int) -> LoadedImage:
             tp = pages[index]
             if hasattr(tp, "aspage"):
                 tp = tp.aspage()
-        except SpecimenError:
+            # A damaged header can hold anything in these tags (a tuple of differing sample
+            # depths, say), so reading them belongs to the guarded part too.
+            width, height = int(tp.imagewidth), int(tp.imagelength)
+            _check_pixels(width, height, max_pixels, "TIFF")
+            if int(getattr(tp, "imagedepth", 1)) > 1:
+                raise UnsupportedFormatError("TIFF page is a volume (image depth > 1); 2-D pages only")
+            notes: list[str] = []
+            pixel_size_mm = _tiff_pixel_size_mm(tp, notes)
+            bits = int(tp.bitspersample)
+            photometric = int(tp.photometric)
+        except RamiformError:
             raise
         except Exception as exc:
-            raise SpecimenError(f"damaged TIFF page table: {exc}") from None
-        width, height = int(tp.imagewidth), int(tp.imagelength)
-        _check_pixels(width, height, max_pixels, "TIFF")
-        if int(getattr(tp, "imagedepth", 1)) > 1:
-            raise UnsupportedFormatError("TIFF page is a volume (image depth > 1); 2-D pages only")
-        notes: list[str] = []
-        pixel_size_mm = _tiff_pixel_size_mm(tp, notes)
-        bits = int(tp.bitspersample)
-        photometric = int(tp.photometric)
+            raise SpecimenError(f"damaged TIFF page table or header: {exc}") from None
         try:
             arr = tp.asarray()
         except Exception as exc:

@@ -252,6 +252,19 @@ def _seed_files() -> list[bytes]:
     return [_encode(picture, "PNG"), _encode(picture, "JPEG"), _encode(picture, "BMP"), tiff.getvalue()]
 
 
+def test_tiff_with_differing_sample_depths_is_refused_with_our_error():
+    # Found by the fuzz below: a header whose BitsPerSample values differ per sample
+    # (8, 8, 16) made reading the page raise a bare TypeError.
+    buffer = io.BytesIO()
+    tifffile.imwrite(buffer, np.zeros((32, 32, 3), np.uint8), photometric="rgb")
+    data = bytearray(buffer.getvalue())
+    with tifffile.TiffFile(io.BytesIO(bytes(data))) as tif:
+        offset = tif.pages[0].tags["BitsPerSample"].valueoffset
+    data[offset + 4:offset + 6] = struct.pack("<H", 16)
+    with pytest.raises(SpecimenError, match="damaged TIFF"):
+        load_image(bytes(data))
+
+
 @settings(max_examples=200, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(
     which=st.integers(0, 3),
