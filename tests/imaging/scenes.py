@@ -37,7 +37,7 @@ from PIL import Image, ImageDraw, ImageFont
 from scipy import ndimage
 
 __all__ = ["CLUSTER_KINDS", "Scene", "box_dimension", "cluster", "iou", "judge", "random_deposit", "random_scene",
-           "render_scene", "report", "summary"]
+           "render_scene", "report", "scene_switches", "summary"]
 
 #: Cluster families the scenes draw from: (regime, parameters, particle counts). DBM is slow
 #: (a Laplace solve per site) and grows ever more linear with eta, so its clusters stay small.
@@ -122,8 +122,8 @@ def _smooth_field(rng: np.random.Generator, shape: tuple[int, int], scale_px: fl
     return field / max(float(field.std()), 1e-9)
 
 
-def _thick_deposit(rng: np.random.Generator, sites: np.ndarray, scale: float, dense: bool,
-                   dish_radius_px: float) -> tuple[np.ndarray, tuple[float, float], dict[str, Any]]:
+def _thick_deposit(rng: np.random.Generator, sites: np.ndarray, scale: float,
+                   dense: bool) -> tuple[np.ndarray, tuple[float, float], dict[str, Any]]:
     """The deposit drawn in the dish plane at ``scale`` px per site, thickened by a random law.
 
     Returns the mask (1 unit = 1 dish-plane px), the position of the seed site in it, and a
@@ -161,13 +161,14 @@ def _thick_deposit(rng: np.random.Generator, sites: np.ndarray, scale: float, de
     else:
         thickness = base + extra * np.clip(0.5 + 0.35 * _smooth_field(rng, (out_h, out_w), 6.0 * scale), 0.0, 1.0)
     if dense:
-        # Thicken until the deposit covers about half the dish area (or until the branches
-        # have merged into a solid body, for compact clusters).
-        target_px = rng.uniform(0.4, 0.6) * math.pi * dish_radius_px**2
-        inside = distance[radius <= reach + 1.0]
-        order = np.sort(inside)
+        # Thicken until the deposit covers 50-70% of the disc it spans (its envelope), the
+        # branches staying branches (at most 2.5 sites thicker each side): a dense deposit
+        # spread over most of the dish, with fjords between its arms.
+        envelope = radius <= reach
+        target_px = rng.uniform(0.5, 0.7) * np.count_nonzero(envelope)
+        order = np.sort(distance[envelope])
         k = min(order.size - 1, int(target_px))
-        thickness = np.maximum(thickness, float(order[k]))
+        thickness = np.maximum(thickness, min(float(order[k]), 2.5 * scale + 1.5))
         law = law + "+dense"
     mask = distance <= thickness
     rows = np.nonzero(mask.any(axis=1))[0]
@@ -220,7 +221,7 @@ def _soft(signed_inside_px: np.ndarray, width_px: float = 0.7) -> np.ndarray:
 
 def _arc_window(angle: np.ndarray, centre: float, half_width: float, soft: float = 0.15) -> np.ndarray:
     """1 on the arc of angles within ``half_width`` of ``centre`` (radians), soft at the ends."""
-    d = np.abs(np.angle(np.exp(1j * (angle - centre))))
+    d = np.abs((angle - centre + math.pi) % (2 * math.pi) - math.pi)
     return np.clip((half_width - d) / soft + 0.5, 0.0, 1.0)
 
 
@@ -234,6 +235,31 @@ def _text_mask(shape: tuple[int, int], boxes: list[tuple[str, Any]]) -> np.ndarr
             xy, text, size = item
             draw.text(xy, text, fill=255, font=ImageFont.load_default(size=size))
     return np.asarray(canvas, dtype=np.float64) / 255.0
+
+
+#: Each nuisance and the chance that a scene draws it; drawn one after the other from the
+#: scene's generator, so every switch is independent of the others.
+SWITCH_ODDS: dict[str, float] = {
+    "slant": 0.6, "off_centre": 0.6, "cut_by_frame": 0.25, "rim_band": 0.8, "light_ring": 0.5,
+    "copper_tape": 0.4, "electrode": 0.7, "wire": 0.5, "wire_shadow": 0.5, "glass_highlight": 0.4,
+    "shadow_arc": 0.4, "shadow": 0.3, "glare": 0.35, "uneven_light": 0.6, "soft_edges": 0.7,
+    "deposit_texture": 0.6, "noise": 0.8, "jpeg": 0.75, "scale_bar": 0.4, "label": 0.4,
+}
+
+
+def _switches(rng: np.random.Generator) -> tuple[dict[str, bool], str, str]:
+    on = {name: bool(rng.random() < p) for name, p in SWITCH_ODDS.items()}
+    polarity = "dark" if rng.random() < 0.5 else "bright"
+    solution_vs_bench = "lighter" if rng.random() < 0.5 else "darker"
+    on["light_ring"] = on["light_ring"] and polarity == "bright"  # a lighter ring around a dark solution
+    on["wire"] = on["wire"] and on["electrode"]  # the wire runs to the electrode
+    on["wire_shadow"] = on["wire_shadow"] and on["wire"]
+    return on, polarity, solution_vs_bench
+
+
+def scene_switches(seed: int) -> tuple[dict[str, bool], str, str]:
+    """The nuisances scene ``seed`` switches on, its polarity and solution-vs-bench, without drawing it."""
+    return _switches(np.random.default_rng([seed, 2]))
 
 
 def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
@@ -256,25 +282,14 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
     if deposit.ndim != 2 or not deposit.any():
         raise ValueError("deposit must be a non-empty 2-D mask")
     rng = np.random.default_rng([seed, 2])
-    on = {name: bool(rng.random() < p) for name, p in (
-        ("slant", 0.6), ("off_centre", 0.6), ("cut_by_frame", 0.25), ("rim_band", 0.8),
-        ("light_ring", 0.5), ("copper_tape", 0.4), ("electrode", 0.7), ("wire", 0.5),
-        ("wire_shadow", 0.5), ("glass_highlight", 0.4), ("shadow_arc", 0.4), ("shadow", 0.3),
-        ("glare", 0.35), ("uneven_light", 0.6), ("soft_edges", 0.7), ("deposit_texture", 0.6),
-        ("noise", 0.8), ("jpeg", 0.75), ("scale_bar", 0.4), ("label", 0.4),
-    )}
-    polarity = "dark" if rng.random() < 0.5 else "bright"
-    solution_vs_bench = "lighter" if rng.random() < 0.5 else "darker"
-    on["light_ring"] = on["light_ring"] and polarity == "bright"  # a lighter ring around a dark solution
-    on["wire"] = on["wire"] and on["electrode"]
-    on["wire_shadow"] = on["wire_shadow"] and on["wire"]
+    on, polarity, solution_vs_bench = _switches(rng)
 
     # --- geometry: frame, dish, deposit scale -------------------------------------------
     sites_radius = _cluster_radius_sites(deposit)
     aspect = float(rng.choice([1.0, 4.0 / 3.0, 1.5]))
     portrait = bool(rng.random() < 0.3)
     dish_fill = rng.uniform(0.78, 1.05) if on["cut_by_frame"] else rng.uniform(0.62, 0.92)
-    extent = rng.uniform(0.65, 0.82) if dense else rng.uniform(0.38, 0.85)
+    extent = rng.uniform(0.72, 0.88) if dense else rng.uniform(0.38, 0.85)
     scale = rng.uniform(*_SCALE_PX_PER_SITE)
     # Long side from the scale; then bring the long side into range by moving the scale
     # (within 1-4 px per site) and, last, the deposit's extent within the dish.
@@ -327,7 +342,7 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
     psi = np.arctan2(qb, qa)
 
     # --- the deposit in the dish plane -----------------------------------------------------
-    local, seed_local, thick_info = _thick_deposit(rng, deposit, scale, dense, radius_px)
+    local, seed_local, thick_info = _thick_deposit(rng, deposit, scale, dense)
     spin = rng.uniform(0.0, 2 * math.pi)
     shift = rng.uniform(0.0, 0.08) * radius_px
     shift_angle = rng.uniform(0.0, 2 * math.pi)
@@ -383,6 +398,7 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
         "colours": {"solution": [round(v, 3) for v in solution], "deposit": [round(v, 3) for v in deposit_colour],
                     "bench": [round(v, 3) for v in bench], "deposit_tint": tint, "bench_tone": bench_tone},
         "nuisances": {},
+        "switches": dict(on),
     }
     nuis = description["nuisances"]
 
@@ -542,10 +558,12 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
                 gy = cy + r * (math.sin(tilt) * math.cos(a) + math.cos(tilt) * math.sin(a) * axes_ratio)
                 if not (0 <= gx < w and 0 <= gy < h):
                     continue
-                core = (xx - gx) ** 2 + (yy - gy) ** 2 <= (1.3 * spot_r) ** 2
-                if not (core & near_deposit).any():
-                    blob = np.exp(-0.5 * ((xx - gx) ** 2 + (yy - gy) ** 2) / (0.6 * spot_r) ** 2)
-                    img += 1.6 * blob[..., None]
+                # Work in a window around the spot: the blob is negligible beyond 5 radii.
+                r0, r1 = max(0, int(gy - 5 * spot_r)), min(h, int(gy + 5 * spot_r) + 1)
+                c0, c1 = max(0, int(gx - 5 * spot_r)), min(w, int(gx + 5 * spot_r) + 1)
+                d2 = (xx[r0:r1, c0:c1] - gx) ** 2 + (yy[r0:r1, c0:c1] - gy) ** 2
+                if not (near_deposit[r0:r1, c0:c1] & (d2 <= (1.3 * spot_r) ** 2)).any():
+                    img[r0:r1, c0:c1] += 1.6 * np.exp(-0.5 * d2 / (0.6 * spot_r) ** 2)[..., None]
                     spots.append([round(gx, 1), round(gy, 1), round(spot_r, 1)])
                     break
         nuis["glare"] = {"spots_xyr": spots}
@@ -567,7 +585,10 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
         rho[0, :].min() < radius_px or rho[-1, :].min() < radius_px or rho[:, 0].min() < radius_px
         or rho[:, -1].min() < radius_px)
     description["truth_area_px"] = int(truth.sum())
-    description["deposit"]["fill_of_dish"] = round(float(deposit_img.sum()) / (math.pi * radius_px**2 * axes_ratio), 3)
+    dish_area = math.pi * radius_px**2 * axes_ratio
+    description["deposit"]["fill_of_dish"] = round(float(deposit_img.sum()) / dish_area, 3)
+    description["deposit"]["envelope_of_dish"] = round(
+        float(np.count_nonzero(seed_rho <= float(seed_rho[deposit_img].max()))) / dish_area, 3)
     return Scene(photo=photo, truth=truth, description=description)
 
 
