@@ -8,7 +8,7 @@ worst as PNGs: photo | photo with the reading (white: right, red: missed, green:
 
     python scripts/scene_check.py 100
     python scripts/scene_check.py 300 --dimension --save-worst 12 --out /tmp/worst
-    python scripts/scene_check.py 1 --start 57 --save-worst 1 --out /tmp/one
+    python scripts/scene_check.py --seeds 7,28 --describe --save-worst 2 --out /tmp/two
 
 The slow test ``tests/imaging/test_scenes.py`` uses the same scenes (seeds from 0).
 """
@@ -16,6 +16,7 @@ The slow test ``tests/imaging/test_scenes.py`` uses the same scenes (seeds from 
 from __future__ import annotations
 
 import argparse
+import json
 import sys
 import time
 from pathlib import Path
@@ -39,11 +40,13 @@ def _picture(photo: np.ndarray, truth: np.ndarray, mask: np.ndarray | None) -> n
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    parser.add_argument("n", type=int, help="number of scenes")
+    parser.add_argument("n", type=int, nargs="?", default=50, help="number of scenes (default 50)")
     parser.add_argument("--start", type=int, default=0, help="first seed (default 0)")
     parser.add_argument("--dimension", action="store_true", help="also compare box dimensions (slower)")
     parser.add_argument("--save-worst", type=int, default=0, metavar="K", help="save the K worst scenes as PNG")
     parser.add_argument("--out", type=Path, default=Path("scene_check_worst"), help="folder for the PNGs")
+    parser.add_argument("--seeds", default=None, metavar="S1,S2,...", help="these seeds instead of N from --start")
+    parser.add_argument("--describe", action="store_true", help="print the full description of the worst scenes")
     parser.add_argument("--quiet", action="store_true", help="only the summary, not one line per scene")
     args = parser.parse_args(argv)
 
@@ -52,7 +55,8 @@ def main(argv: list[str] | None = None) -> int:
     records, descriptions = [], {}
     kept: list[tuple[float, int, np.ndarray]] = []
     t0 = time.perf_counter()
-    for seed in range(args.start, args.start + args.n):
+    seeds = [int(v) for v in args.seeds.split(",")] if args.seeds else range(args.start, args.start + args.n)
+    for seed in seeds:
         scene = random_scene(seed)
         t = time.perf_counter()
         record = judge(scene, dimension=args.dimension)
@@ -77,6 +81,9 @@ def main(argv: list[str] | None = None) -> int:
     seconds = np.array([r["seconds"] for r in records])
     print(f"segment{' + measure' if args.dimension else ''}: median {np.median(seconds):.2f}s, "
           f"total {time.perf_counter() - t0:.0f}s with rendering")
+    if args.describe:
+        for record in sorted(records, key=lambda r: r["iou"])[:10]:
+            print(f"IoU {record['iou']:.3f}: {json.dumps(descriptions[record['seed']])}")
     if kept:
         args.out.mkdir(parents=True, exist_ok=True)
         for value, seed, picture in kept:
