@@ -360,7 +360,8 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
         tint = str(rng.choice(["dark_grey", "brown"]))
         deposit_colour = _with_luma(_DARK_GREY if tint == "dark_grey" else _BROWN, rng.uniform(0.06, 0.3))
     else:
-        solution = _with_luma(_SOLUTION_BLUE * 0.5 if rng.random() < 0.5 else _grey(0.2, 0.03, rng), rng.uniform(0.04, 0.22))
+        dark_solution = _SOLUTION_BLUE * 0.5 if rng.random() < 0.5 else _grey(0.2, 0.03, rng)
+        solution = _with_luma(dark_solution, rng.uniform(0.04, 0.22))
         tint = str(rng.choice(["copper", "orange", "shiny"]))
         deposit_colour = _with_luma({"copper": _COPPER_BRIGHT, "orange": _COPPER_ORANGE, "shiny": _SHINY}[tint],
                                     rng.uniform(0.5, 0.85))
@@ -376,7 +377,8 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
     bench_l = (sol_l - rng.uniform(0.08, min(0.5, sol_l - 0.02)) if solution_vs_bench == "lighter"
                else sol_l + rng.uniform(0.08, min(0.5, 0.97 - sol_l)))
     bench_tone = str(rng.choice(["grey", "wood", "blue"]))
-    bench_base = {"grey": np.ones(3), "wood": np.array([0.8, 0.62, 0.45]), "blue": np.array([0.5, 0.6, 0.8])}[bench_tone]
+    bench_base = {"grey": np.ones(3), "wood": np.array([0.8, 0.62, 0.45]),
+                  "blue": np.array([0.5, 0.6, 0.8])}[bench_tone]
     bench = _with_luma(bench_base, float(np.clip(bench_l, 0.03, 0.97)))
 
     img = np.empty((h, w, 3))
@@ -420,7 +422,8 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
     if on["copper_tape"]:
         tape_width = rng.uniform(0.02, 0.06) * radius_px
         tape_at, tape_half = rng.uniform(0.0, 2 * math.pi), rng.uniform(0.4, 2.6)
-        alpha = _soft(np.minimum(radius_px - rho, rho - (radius_px - tape_width))) * _arc_window(psi, tape_at, tape_half)
+        alpha = (_soft(np.minimum(radius_px - rho, rho - (radius_px - tape_width)))
+                 * _arc_window(psi, tape_at, tape_half))
         tape = _with_luma(_TAPE, rng.uniform(0.45, 0.8))
         _mix(img, tape, alpha)
         nuis["copper_tape"] = {"width_px": round(tape_width, 1), "arc_deg": round(math.degrees(2 * tape_half), 0)}
@@ -469,8 +472,9 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
             wire_line = np.asarray(canvas) > 0
             wire_alpha = np.clip(ndimage.gaussian_filter(wire_line.astype(np.float64), 0.6) * 1.3, 0.0, 1.0)
             if on["wire_shadow"]:
-                off = rng.uniform(3.0, 10.0) * np.array([math.cos(a := rng.uniform(0, 2 * math.pi)), math.sin(a)])
-                shadow = ndimage.shift(ndimage.gaussian_filter(wire_line.astype(np.float64), 2.5), (off[1], off[0]), order=1)
+                length, towards = rng.uniform(3.0, 10.0), rng.uniform(0.0, 2 * math.pi)
+                soft_line = ndimage.gaussian_filter(wire_line.astype(np.float64), 2.5)
+                shadow = ndimage.shift(soft_line, (length * math.sin(towards), length * math.cos(towards)), order=1)
                 img *= (1.0 - 0.45 * np.clip(shadow * 1.5, 0.0, 1.0))[..., None]
             wire_colour = {"black": np.array([0.06, 0.06, 0.07]), "red": np.array([0.75, 0.1, 0.08]),
                            "white": np.array([0.9, 0.9, 0.88]), "copper": _COPPER_BRIGHT * 0.85}
