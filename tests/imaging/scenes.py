@@ -29,7 +29,7 @@ from __future__ import annotations
 import functools
 import io
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -78,11 +78,15 @@ class Scene:
         The visible deposit (without electrode, wire, tape, rim).
     description : dict
         Every random choice made (JSON-serialisable); ``summary`` turns it into one line.
+    parts : dict of str to ndarray of bool
+        Where the other things were drawn, for diagnosis: ``solution`` (inside the dish),
+        and when drawn ``rim``, ``tape``, ``electrode``, ``wire``, ``glare``.
     """
 
     photo: np.ndarray
     truth: np.ndarray
     description: dict[str, Any]
+    parts: dict[str, np.ndarray] = field(default_factory=dict)
 
 
 # ----------------------------------------------------------------------------- deposits
@@ -403,6 +407,7 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
         "switches": dict(on),
     }
     nuis = description["nuisances"]
+    parts: dict[str, np.ndarray] = {}
 
     # --- dish wall (rim band) and solution ----------------------------------------------------
     if on["rim_band"] or on["light_ring"]:
@@ -414,10 +419,13 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
             wall = _with_luma(_grey(1.0, 0.05, rng), rng.uniform(0.45, 0.9))
         else:
             wall = _with_luma(rng.uniform(0.2, 1.0, 3), rng.uniform(0.1, 0.9))
-        _mix(img, wall, _soft(np.minimum(radius_px + width_here - rho, rho - radius_px + 2.0)))
+        wall_alpha = _soft(np.minimum(radius_px + width_here - rho, rho - radius_px + 2.0))
+        _mix(img, wall, wall_alpha)
+        parts["rim"] = (wall_alpha >= 0.5) & (rho >= radius_px)
         nuis["rim_band"] = {"width_px": round(wall_width, 1), "wobble": round(wobble, 2),
                             "colour": [round(v, 3) for v in wall], "lighter_ring": on["light_ring"]}
     _mix(img, solution, _soft(radius_px - rho))
+    parts["solution"] = rho < radius_px
 
     if on["copper_tape"]:
         tape_width = rng.uniform(0.02, 0.06) * radius_px
@@ -426,11 +434,15 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
                  * _arc_window(psi, tape_at, tape_half))
         tape = _with_luma(_TAPE, rng.uniform(0.45, 0.8))
         _mix(img, tape, alpha)
+        parts["tape"] = alpha >= 0.5
         nuis["copper_tape"] = {"width_px": round(tape_width, 1), "arc_deg": round(math.degrees(2 * tape_half), 0)}
 
     # --- the deposit ---------------------------------------------------------------------------
-    blur = rng.uniform(0.5, 2.0) if on["soft_edges"] else 0.35
-    blur = min(blur, 0.45 * float(thick_info["branch_width_px"][0]) + 0.3)
+    # Soft edges up to 2 px, but never beyond a quarter of the narrowest branch: there the
+    # branch still reaches 95% of its contrast at its centre (erf(2 / sqrt 2)), so its outline
+    # is in the photo; a blur that wipes a branch out asks the camera, not the segmenter.
+    blur_max = min(2.0, max(0.5, 0.25 * float(thick_info["branch_width_px"][0])))
+    blur = rng.uniform(0.5, blur_max) if on["soft_edges"] else 0.35
     alpha = ndimage.gaussian_filter(deposit_img.astype(np.float64), blur)
     if on["deposit_texture"]:
         texture = 1.0 + 0.12 * _smooth_field(rng, (h, w), rng.uniform(1.0, 4.0))
@@ -452,6 +464,7 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
         el_alpha = _soft(el_radius - seed_rho)
         _mix(img, el_colour, el_alpha)
         truth &= el_alpha < 0.5
+        parts["electrode"] = el_alpha >= 0.5
         nuis["electrode"] = {"radius_px": round(el_radius, 1), "brighter_than_deposit": brighter}
         # where the electrode sits in the image
         sa, sb = q0a, q0b
@@ -481,6 +494,7 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
             wire_kind = str(rng.choice(list(wire_colour)))
             _mix(img, wire_colour[wire_kind], wire_alpha)
             truth &= wire_alpha < 0.5
+            parts["wire"] = wire_alpha >= 0.5
             nuis["wire"] = {"width_px": round(wire_width, 1), "colour": wire_kind, "from_side": side,
                             "shadow": on["wire_shadow"]}
 
@@ -568,6 +582,8 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
                 d2 = (xx[r0:r1, c0:c1] - gx) ** 2 + (yy[r0:r1, c0:c1] - gy) ** 2
                 if not (near_deposit[r0:r1, c0:c1] & (d2 <= (1.3 * spot_r) ** 2)).any():
                     img[r0:r1, c0:c1] += 1.6 * np.exp(-0.5 * d2 / (0.6 * spot_r) ** 2)[..., None]
+                    glare_part = parts.setdefault("glare", np.zeros((h, w), dtype=bool))
+                    glare_part[r0:r1, c0:c1] |= d2 <= spot_r**2
                     spots.append([round(gx, 1), round(gy, 1), round(spot_r, 1)])
                     break
         nuis["glare"] = {"spots_xyr": spots}
@@ -593,7 +609,7 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
     description["deposit"]["fill_of_dish"] = round(float(deposit_img.sum()) / dish_area, 3)
     description["deposit"]["envelope_of_dish"] = round(
         float(np.count_nonzero(seed_rho <= float(seed_rho[deposit_img].max()))) / dish_area, 3)
-    return Scene(photo=photo, truth=truth, description=description)
+    return Scene(photo=photo, truth=truth, description=description, parts=parts)
 
 
 def random_scene(seed: int) -> Scene:
