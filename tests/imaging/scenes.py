@@ -37,7 +37,7 @@ from PIL import Image, ImageDraw, ImageFont
 from scipy import ndimage
 
 __all__ = ["CLUSTER_KINDS", "Scene", "box_dimension", "cluster", "iou", "judge", "random_deposit", "random_scene",
-           "render_scene", "report", "scene_switches", "summary"]
+           "render_scene", "report", "scene_switches", "summary", "taken"]
 
 #: Cluster families the scenes draw from: (regime, parameters, particle counts). DBM is slow
 #: (a Laplace solve per site) and grows ever more linear with eta, so its clusters stay small.
@@ -666,11 +666,31 @@ def box_dimension(mask: np.ndarray) -> tuple[float, bool]:
     return float(fit["value"]), bool(usable)
 
 
+def taken(mask: np.ndarray, scene: Scene) -> dict[str, float]:
+    """What a reading took besides the deposit, and what it missed, as fractions of the truth's area.
+
+    Keys: each drawn part (``electrode``, ``wire``, ``tape``, ``rim``, ``glare``), ``solution``
+    (the rest of the dish), ``bench`` (outside the dish), and ``missed`` (deposit left out).
+    Only the non-zero ones are returned.
+    """
+    area = max(1, int(np.count_nonzero(scene.truth)))
+    extra = np.asarray(mask, bool) & ~scene.truth
+    out: dict[str, float] = {}
+    for name in ("electrode", "wire", "tape", "glare", "rim"):
+        if name in scene.parts:
+            out[name] = np.count_nonzero(extra & scene.parts[name]) / area
+            extra = extra & ~scene.parts[name]
+    out["solution"] = np.count_nonzero(extra & scene.parts["solution"]) / area
+    out["bench"] = np.count_nonzero(extra & ~scene.parts["solution"]) / area
+    out["missed"] = np.count_nonzero(scene.truth & ~np.asarray(mask, bool)) / area
+    return {k: round(float(v), 3) for k, v in out.items() if v > 0}
+
+
 def judge(scene: Scene, *, dimension: bool = True) -> dict[str, Any]:
     """Segment the scene's photo automatically (public API only) and compare with the truth.
 
-    Returns ``seed``, ``iou``, ``error`` (the exception text when segmentation refused), and
-    with ``dimension``: ``d_true``, ``d_seg``, ``d_usable`` (the true mask's fit is usable).
+    Returns ``seed``, ``iou``, ``error`` (the exception text when segmentation refused),
+    ``taken`` (see ``taken``), ``mask`` (the reading, or None), and with ``dimension``: ``d_true``, ``d_seg``, ``d_usable`` (the true mask's fit is usable).
     """
     from service.imaging import segment
 
@@ -683,6 +703,7 @@ def judge(scene: Scene, *, dimension: bool = True) -> dict[str, Any]:
     else:
         record["iou"] = iou(mask, scene.truth)
         record["mask"] = mask
+        record["taken"] = taken(mask, scene)
     if dimension:
         d_true, usable = box_dimension(scene.truth)
         record.update(d_true=d_true, d_usable=usable, d_seg=None)
@@ -725,6 +746,8 @@ def report(records: list[dict[str, Any]], descriptions: dict[int, dict[str, Any]
     lines.append(f"worst {min(worst, len(records))}:")
     for r in sorted(records, key=lambda r: r["iou"])[:worst]:
         extra = f" [{r['error']}]" if r.get("error") else ""
+        if r.get("taken"):
+            extra += " took " + ", ".join(f"{k} {v:.2f}" for k, v in r["taken"].items())
         lines.append(f"  IoU {r['iou']:.3f}{extra}  {summary(descriptions[r['seed']])}")
     return "\n".join(lines)
 
