@@ -320,8 +320,9 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
 
     axes_ratio = rng.uniform(0.75, 1.0) if on["slant"] else 1.0
     tilt = rng.uniform(0.0, math.pi)
-    # Dish centre: where the deposit (extent * radius) stays inside the frame with a margin.
-    margin = 8.0
+    # Dish centre: where the deposit stays inside the frame with a margin, whatever its shift
+    # from the dish centre (below 0.08 radius) and its thickening (below 3 sites and 2 px).
+    margin = 8.0 + 0.08 * radius_px + 3.0 * scale + 2.0
     reach_x = extent * radius_px * math.hypot(math.cos(tilt), axes_ratio * math.sin(tilt)) + margin
     reach_y = extent * radius_px * math.hypot(math.sin(tilt), axes_ratio * math.cos(tilt)) + margin
     spread = 0.35 if on["off_centre"] or on["cut_by_frame"] else 0.04
