@@ -709,9 +709,11 @@ def judge(scene: Scene, *, dimension: bool = True) -> dict[str, Any]:
         d_true, usable = box_dimension(scene.truth)
         record.update(d_true=d_true, d_usable=usable, d_seg=None)
         if mask is not None and mask.any():
+            from service.errors import SpecimenError
+
             try:
                 record["d_seg"] = box_dimension(mask)[0]
-            except ValueError:
+            except (ValueError, SpecimenError):  # too small a reading to measure: no dimension
                 pass
     return record
 
