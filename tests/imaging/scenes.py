@@ -712,9 +712,10 @@ def judge(scene: Scene, *, dimension: bool = True) -> dict[str, Any]:
             from service.errors import SpecimenError
 
             try:
-                record["d_seg"] = box_dimension(mask)[0]
+                d_seg = box_dimension(mask)[0]
             except (ValueError, SpecimenError):  # too small a reading to measure: no dimension
-                pass
+                d_seg = math.nan
+            record["d_seg"] = d_seg if math.isfinite(d_seg) else None
     return record
 
 
