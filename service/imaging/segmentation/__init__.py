@@ -25,18 +25,22 @@ from scipy import ndimage
 from service.errors import SpecimenError
 from service.imaging.load import LoadedImage
 from service.imaging.segmentation._common import (EIGHT, SMALL_SIDE_PX, Field, as_gray_rgb, block_mean,
-                                                  field_mask)
+                                                  field_mask, robust_sigma)
 from service.imaging.segmentation.cleanup import branch_width_px, keep_specimen
 from service.imaging.segmentation.field_of_view import find_field, parse_roi
 from service.imaging.segmentation.ridge import choose_mode, ridge_mask
-from service.imaging.segmentation.scene import exclusion_mask, find_electrode, glare_mask, rim_structures
-from service.imaging.segmentation.threshold import (even_light, fit_background, levels_picture, pick_threshold,
-                                                    threshold_mask)
+from service.imaging.segmentation.scene import (exclusion_mask, find_electrode, glare_mask, rim_structures,
+                                                wire_paths)
+from service.imaging.segmentation.threshold import (EVENINGS, even_light, fit_background, levels_picture,
+                                                    pick_threshold, threshold_mask)
 
-__all__ = ["MODES", "POLARITIES", "Reading", "Segmentation", "segment"]
+__all__ = ["LIGHTINGS", "LOW_CONFIDENCE", "MODES", "POLARITIES", "Reading", "Segmentation", "segment"]
 
 MODES = ("auto", "threshold", "ridge")
 POLARITIES = ("auto", "dark", "bright")
+# How the light is evened: a smooth surface, or a local median that follows shadows.
+LIGHTINGS = ("auto", "smooth", "patchy")
+_EVENING_OF = {"smooth": "surface", "patchy": "local"}
 
 _OUTLINE_RGB = (255, 0, 255)
 _FIELD_RGB = (0, 200, 0)
@@ -113,15 +117,17 @@ class Segmentation:
 
 @dataclass(frozen=True)
 class _Plan:
-    """What one reading fixes: the field of view and the polarity."""
+    """What one reading fixes: the field of view, the polarity and how the light is evened."""
 
     fov: Field | None
     fov_label: str
     polarity: str
+    evening: str = "surface"
 
     def label(self) -> str:
         side = "darker" if self.polarity == "dark" else "brighter"
-        return f"specimen {side} than its background; field: {self.fov_label}"
+        light = "smooth lighting" if self.evening == "surface" else "patchy lighting"
+        return f"specimen {side} than its background; field: {self.fov_label}; {light}"
 
 
 def segment(
@@ -132,6 +138,7 @@ def segment(
     threshold: float | None = None,
     roi=None,
     exclude=None,
+    lighting: str = "auto",
 ) -> Segmentation:
     """Segment the specimen in a photograph.
 
@@ -155,6 +162,9 @@ def segment(
         direction ``angle_deg`` from +x towards +y) and ``ry``. Replaces the automatic field.
     exclude : sequence of (x0, y0, x1, y1) or bool array, optional
         Areas that are not specimen (boxes in px, end exclusive, or a mask of the image's shape).
+    lighting : {"auto", "smooth", "patchy"}
+        How the light is evened: a smooth surface (gradients, vignetting), or a local median
+        that follows shadows and fast changes; ``auto`` scores both.
 
     Returns
     -------
@@ -198,6 +208,8 @@ def segment(
         raise ValueError(f"mode must be one of {MODES}, got {mode!r}")
     if polarity not in POLARITIES:
         raise ValueError(f"polarity must be one of {POLARITIES}, got {polarity!r}")
+    if lighting not in LIGHTINGS:
+        raise ValueError(f"lighting must be one of {LIGHTINGS}, got {lighting!r}")
     if threshold is not None and not (0.0 < float(threshold) < 1.0):
         raise ValueError(f"threshold must lie strictly between 0 and 1, got {threshold}")
     gray, rgb = as_gray_rgb(image)
@@ -236,10 +248,11 @@ def segment(
     score_factor = 2 if max(small.shape) > 300 else 1
     score_small = block_mean(small, score_factor)
     score_excluded = block_mean(excluded, factor * score_factor) > 0.5 if excluded is not None else None
-    plans = _plans(fov, fov_kind, polarity)
+    plans = _plans(fov, fov_kind, polarity, lighting)
     found = (field_mask(score_small.shape, fov, factor * score_factor)
              if fov is not None and fov_kind != "roi" else None)
     scored = [_score_plan(plan, score_small, factor * score_factor, score_excluded, found) for plan in plans]
+    scored = _penalise_partial(plans, scored)
     if chosen_mode == "ridge":
         best_index = None
     else:
@@ -247,7 +260,8 @@ def segment(
     if best_index is not None:
         plan = plans[best_index]
     else:
-        plan = _Plan(fov, _fov_label(fov, fov_kind), "dark" if polarity == "auto" else polarity)
+        plan = _Plan(fov, _fov_label(fov, fov_kind), "dark" if polarity == "auto" else polarity,
+                     _EVENING_OF.get(lighting, "surface"))
     confidence, alternatives = _confidence(plans, scored, best_index, h, w)
     if chosen_mode == "ridge":
         decision_strength = float(settings.get("mode_decision", {}).get("line_perimeter_per_area", 0.7))
@@ -261,7 +275,8 @@ def segment(
         settings["levels_compare"] = "above"
     else:
         fov_small = field_mask(small.shape, fov, factor) if fov is not None else np.ones(small.shape, dtype=bool)
-        evened = even_light(gray, small, fov_small, fov, factor, plan.polarity if polarity == "auto" else polarity)
+        evened = even_light(gray, small, fov_small, fov, factor, plan.polarity if polarity == "auto" else polarity,
+                            plan.evening)
         t, method, contrast = pick_threshold(evened, fov, threshold)
         mask = threshold_mask(evened, fov, t)
         details = {
@@ -283,25 +298,32 @@ def segment(
     # deposit's "width" is its diameter): they are capped at 1% of the image's long side.
     width_cap = max(1.0, 0.01 * max(h, w))
     width_guess = min(_width_guess(mask), width_cap)
-    mask, scene = _remove_scene(mask, rgb, fov, excluded, settings["polarity"], chosen_mode, width_guess)
+    mask, scene = _remove_scene(mask, rgb, fov, excluded, settings["polarity"], chosen_mode, width_guess, factor)
     settings["scene"] = scene
     seed_rc = (fov.cy, fov.cx) if fov is not None else ((h - 1) / 2.0, (w - 1) / 2.0)
-    kept, cleanup = keep_specimen(mask, seed_rc, width_guess, keep_all=(chosen_mode == "ridge"))
+    clear = _clear_background(levels, settings) if levels is not None else None
+    kept, cleanup = keep_specimen(mask, seed_rc, width_guess, keep_all=(chosen_mode == "ridge"),
+                                  clear_background=clear)
     width_px = branch_width_px(kept)
     if abs(min(width_px, width_cap) - width_guess) > 0.25 * width_guess:
-        kept, cleanup = keep_specimen(mask, seed_rc, min(width_px, width_cap), keep_all=(chosen_mode == "ridge"))
+        kept, cleanup = keep_specimen(mask, seed_rc, min(width_px, width_cap), keep_all=(chosen_mode == "ridge"),
+                                      clear_background=clear)
         width_px = branch_width_px(kept)
     mask = kept
     settings["cleanup"] = cleanup
     if not mask.any():
         raise SpecimenError("no specimen found: nothing is left after thresholding and removing specks")
     settings["branch_width_px"] = round(width_px, 2)
-    warnings: list[str] = []
-    if contrast < 3.0:
-        warnings.append(f"low contrast: the specimen stands {contrast:.1f} noise levels from the background")
     outline = mask & ~ndimage.binary_erosion(mask, structure=EIGHT, border_value=0)
     electrode = find_electrode(mask, seed_rc, width_px) if chosen_mode == "threshold" else None
     settings["electrode"] = electrode
+    if levels is not None:
+        contrast = min(contrast, _deposit_contrast(levels, mask, electrode, settings, seed_rc,
+                                                   fov.r if fov is not None else 0.5 * min(h, w)))
+        settings["contrast_to_noise"] = round(contrast, 2)
+    warnings: list[str] = []
+    if contrast < 3.0:
+        warnings.append(f"low contrast: the specimen stands {contrast:.1f} noise levels from the background")
     rows, cols = np.nonzero(mask)
     if electrode is not None:
         center_rc = (float(electrode["center_rc"][0]), float(electrode["center_rc"][1]))
@@ -330,12 +352,13 @@ def _fov_label(fov: Field | None, kind: str) -> str:
         kind, "inside the dish")
 
 
-def _plans(fov: Field | None, fov_kind: str, polarity: str) -> list[_Plan]:
+def _plans(fov: Field | None, fov_kind: str, polarity: str, lighting: str) -> list[_Plan]:
     fovs: list[tuple[Field | None, str]] = [(fov, _fov_label(fov, fov_kind))]
     if fov is not None and fov_kind != "roi":
         fovs.append((None, "the whole image"))
     polarities = ["dark", "bright"] if polarity == "auto" else [polarity]
-    return [_Plan(f, label, p) for f, label in fovs for p in polarities]
+    evenings = list(EVENINGS) if lighting == "auto" else [_EVENING_OF[lighting]]
+    return [_Plan(f, label, p, e) for f, label in fovs for p in polarities for e in evenings]
 
 
 def _score_plan(plan: _Plan, small: np.ndarray, factor: int, small_excluded: np.ndarray | None,
@@ -345,13 +368,13 @@ def _score_plan(plan: _Plan, small: np.ndarray, factor: int, small_excluded: np.
     The score adds penalties a person would apply: the mask fills the field (the solution
     was taken), is the dish itself (``found``: the field of view found, when the plan reads
     the whole image), runs all round the field's edge, lies away from the centre the
-    specimen grows from, is riddled with holes (the specimen taken as background), is many
-    pieces, or stands barely above the noise. A field that was found is favoured a little
-    over the whole image.
+    specimen grows from, is many
+    pieces, stands barely above the noise, or has an outline on smooth grey (a lighting
+    boundary). A field that was found is favoured a little over the whole image.
     """
     fov = plan.fov.reduced(factor) if plan.fov is not None else None
     fov_mask = field_mask(small.shape, fov) if fov is not None else np.ones(small.shape, dtype=bool)
-    evened = even_light(small, small, fov_mask, fov, 1, plan.polarity)
+    evened = even_light(small, small, fov_mask, fov, 1, plan.polarity, plan.evening)
     t, _, contrast = pick_threshold(evened, fov, None)
     raw = threshold_mask(evened, fov, t)
     if small_excluded is not None:
@@ -381,20 +404,56 @@ def _score_plan(plan: _Plan, small: np.ndarray, factor: int, small_excluded: np.
         half = 0.5 * min(sh, sw)
         seed_gap = float(np.sqrt((rows - seed[0]) ** 2 + (cols - seed[1]) ** 2).min()) / half
     filled = ndimage.binary_fill_holes(mask)
-    holes = 1.0 - area / float(np.count_nonzero(filled))
+    # The outer outline should follow edges one can see (a lighting boundary taken for a
+    # specimen has its outline on smooth grey); stretches along the field's edge say nothing.
+    smooth = ndimage.gaussian_filter(small, 1.0)
+    grad = np.hypot(ndimage.sobel(smooth, axis=0), ndimage.sobel(smooth, axis=1))
+    outline = filled & ~ndimage.binary_erosion(filled, structure=EIGHT, border_value=0)
+    if fov is not None:
+        outline &= field_mask(small.shape, fov.scaled(0.93))
+    # The specimen's own grey must lie on its side of the field's: a halo of solution round a
+    # dark deposit, picked out by a local background, does not.
+    around = fov_mask & ~ndimage.binary_dilation(mask, iterations=2)
+    quiet = float(np.median(grad[around])) if around.any() else float(np.median(grad[fov_mask]))
+    edge_support = float(np.median(grad[outline])) / (quiet + 1e-6) if outline.any() else 0.0
+    noise = robust_sigma((small[:, 1:] - small[:, :-1])[fov_mask[:, 1:] & fov_mask[:, :-1]]) / math.sqrt(2.0)
+    sign = 1.0 if plan.polarity == "dark" else -1.0
+    stands_out = (sign * (float(np.median(small[around])) - float(np.median(small[mask]))) / max(noise, 0.5 / 255.0)
+                  if around.any() else 0.0)
     kept_share = area / max(1.0, float(np.count_nonzero(raw)))
     terms = {
         "fills_field": -8.0 * max(0.0, fill - 0.45),
         "runs_round_edge": -6.0 * max(0.0, edge_cover - 0.1),
         "away_from_centre": -4.0 * min(1.0, max(0.0, seed_gap - 0.05) / 0.3),
-        "holes": -5.0 * max(0.0, holes - 0.25),
         "scattered": -3.0 * max(0.0, 0.85 - kept_share),
         "contrast": 0.5 * math.log(max(min(contrast, 60.0), 0.5) / 3.0),
+        "outline_on_edges": -3.0 * min(1.0, max(0.0, 1.0 - math.log(max(edge_support, 1e-3)) / math.log(4.0))),
+        "not_its_side": -4.0 * min(1.0, max(0.0, 1.0 - stands_out / 6.0)),
         "field_found": 1.0 if fov is not None else 0.0,
     }
     if found is not None and fov is None:
         terms["is_the_dish"] = -10.0 * max(0.0, _iou(filled, found) - 0.5) / 0.5
     return float(sum(terms.values())), mask, terms
+
+
+def _penalise_partial(plans: list[_Plan], scored: list) -> list:
+    """A reading that finds only part of what another reading of the same polarity and field
+    finds (nearly all of its mask inside the other's, which is a third larger or more) has
+    missed some of the specimen: it loses up to three points, in proportion to what it missed."""
+    out = list(scored)
+    for i, (pi, (si, mi, ti)) in enumerate(zip(plans, scored)):
+        area_i = np.count_nonzero(mi)
+        for j, (pj, (sj, mj, _)) in enumerate(zip(plans, scored)):
+            if i == j or pi.polarity != pj.polarity or pi.fov is not pj.fov or sj < si - 3.0:
+                continue
+            area_j = np.count_nonzero(mj)
+            if area_i == 0 or area_j < 1.33 * area_i or np.count_nonzero(mi & mj) < 0.9 * area_i:
+                continue
+            penalty = -3.0 * (1.0 - area_i / area_j)
+            if penalty < ti.get("partial", 0.0):
+                terms = {**out[i][2], "partial": penalty}
+                out[i] = (float(sum(terms.values())), mi, terms)
+    return out
 
 
 def _confidence(plans: list[_Plan], scored: list, best_index: int | None, h: int,
@@ -438,7 +497,8 @@ def _preview(mask: np.ndarray) -> np.ndarray:
 
 
 def _overrides(plan: _Plan, mode: str, threshold: float | None, user_fov: Field | None) -> dict[str, Any]:
-    out: dict[str, Any] = {"mode": mode, "polarity": plan.polarity}
+    out: dict[str, Any] = {"mode": mode, "polarity": plan.polarity,
+                           "lighting": "smooth" if plan.evening == "surface" else "patchy"}
     if threshold is not None:
         out["threshold"] = float(threshold)
     if plan.fov is not None:
@@ -446,6 +506,38 @@ def _overrides(plan: _Plan, mode: str, threshold: float | None, user_fov: Field 
     else:
         out["roi"] = None
     return out
+
+
+def _deposit_contrast(levels: np.ndarray, mask: np.ndarray, electrode: dict[str, Any] | None,
+                      settings: dict[str, Any], seed_rc: tuple[float, float], field_radius: float) -> float:
+    """Contrast of what was kept, less the electrode: its median grey against the background's
+    in pixel-noise levels (from neighbour differences), less the 1.35 that a threshold's pick
+    of pure noise shows by itself. A dark electrode must not vouch for a specimen lost in noise."""
+    step = max(1, int(math.sqrt(mask.size / 1_000_000)))
+    keep = mask[::step, ::step].copy()
+    # Leave out the electrode: the one found, or else a disc of a tenth of the field's radius
+    # round the seed, where an electrode too faint in outline to be told apart would sit.
+    if electrode is not None:
+        r = float(electrode["radius_px"]) * 1.5
+        cy, cx = (float(v) for v in electrode["center_rc"])
+    else:
+        r, (cy, cx) = 0.1 * field_radius, seed_rc
+    yy, xx = np.ogrid[: keep.shape[0], : keep.shape[1]]
+    keep &= (yy * step - cy) ** 2 + (xx * step - cx) ** 2 > r * r
+    if np.count_nonzero(keep) < 4:
+        return 0.0
+    lv = levels[::step, ::step].astype(np.float32)
+    noise = max(robust_sigma(lv[:, 1:] - lv[:, :-1]) / math.sqrt(2.0), 0.5)
+    bg = float(settings["background"]["median_grey"]) * 255.0
+    return max(0.0, abs(float(np.median(lv[keep])) - bg) / noise - 1.35)
+
+
+def _clear_background(levels: np.ndarray, settings: dict[str, Any]) -> np.ndarray:
+    """Pixels more than half way from the threshold to the background's grey."""
+    t = float(settings["threshold"]) * 255.0
+    bg = float(settings["background"]["median_grey"]) * 255.0
+    mid = t + 0.5 * (bg - t)
+    return levels >= mid if settings["levels_compare"] == "below" else levels <= mid
 
 
 def _width_guess(mask: np.ndarray) -> float:
@@ -463,8 +555,9 @@ def _width_guess(mask: np.ndarray) -> float:
 
 
 def _remove_scene(mask: np.ndarray, rgb: np.ndarray, fov: Field | None, excluded: np.ndarray | None,
-                  polarity: str, mode: str, width: float) -> tuple[np.ndarray, dict[str, Any]]:
-    """Clear what is not specimen: the user's exclusions, glare, structures along the rim."""
+                  polarity: str, mode: str, width: float, factor: int) -> tuple[np.ndarray, dict[str, Any]]:
+    """Clear what is not specimen: the user's exclusions, glare, structures along the rim, a lead
+    running in to the electrode."""
     info: dict[str, Any] = {}
     if excluded is not None:
         mask &= ~excluded
@@ -480,6 +573,9 @@ def _remove_scene(mask: np.ndarray, rgb: np.ndarray, fov: Field | None, excluded
         rim, rim_info = rim_structures(mask, fov, width)
         mask &= ~rim
         info["rim_structures"] = rim_info
+        lead, lead_info = wire_paths(mask, rgb, fov, (fov.cy, fov.cx), factor)
+        mask &= ~lead
+        info["leads"] = lead_info["leads"]
     return mask, info
 def _warnings(mask: np.ndarray, rows: np.ndarray, cols: np.ndarray, center_rc: tuple[float, float],
               fov: Field | None, width_px: float, small_fov: np.ndarray, factor: int, mode: str) -> list[str]:

@@ -54,8 +54,13 @@ def cleanup_sizes(width_px: float) -> tuple[int, int]:
 
 
 def keep_specimen(mask: np.ndarray, seed_rc: tuple[float, float], width_px: float,
-                  keep_all: bool) -> tuple[np.ndarray, dict[str, Any]]:
-    """Remove specks and pinholes; keep the component at or nearest the seed and sizeable others nearby."""
+                  keep_all: bool, clear_background: np.ndarray | None = None) -> tuple[np.ndarray, dict[str, Any]]:
+    """Remove specks and pinholes; keep the component at or nearest the seed and sizeable others nearby.
+
+    ``clear_background`` marks pixels that lie well on the background's side of the threshold:
+    a small hole holding one is a real gap of the pattern (a carpet's smallest hole), not a
+    pinhole of noise, and stays open.
+    """
     h, w = mask.shape
     min_object_px, max_hole_px = cleanup_sizes(width_px)
     labels, n = ndimage.label(mask, structure=EIGHT)
@@ -100,13 +105,14 @@ def keep_specimen(mask: np.ndarray, seed_rc: tuple[float, float], width_px: floa
     kept = keep[labels]
     del labels
     if max_hole_px > 0:
-        kept = fill_small_holes(kept, max_hole_px)
+        kept = fill_small_holes(kept, max_hole_px, clear_background)
     info["components_kept"] = int(np.count_nonzero(keep))
     return kept, info
 
 
-def fill_small_holes(mask: np.ndarray, max_hole_px: int) -> np.ndarray:
-    """Fill holes of at most ``max_hole_px`` pixels (in place, and returned)."""
+def fill_small_holes(mask: np.ndarray, max_hole_px: int, clear_background: np.ndarray | None = None) -> np.ndarray:
+    """Fill holes of at most ``max_hole_px`` pixels (in place, and returned), except those
+    holding a pixel of ``clear_background``."""
     rows = np.flatnonzero(mask.any(axis=1))
     cols = np.flatnonzero(mask.any(axis=0))
     if rows.size == 0:
@@ -121,6 +127,9 @@ def fill_small_holes(mask: np.ndarray, max_hole_px: int) -> np.ndarray:
     fill = sizes <= max_hole_px
     fill[0] = False
     fill[border] = False
+    if clear_background is not None and fill.any():
+        real = np.unique(holes[clear_background[r0:r1, c0:c1] & (holes > 0)])
+        fill[real] = False
     if fill.any():
         crop |= fill[holes]
     return mask

@@ -9,7 +9,7 @@ from typing import Any
 import numpy as np
 from scipy import ndimage
 
-from service.imaging.segmentation._common import Field, field_mask
+from service.imaging.segmentation._common import Field, block_mean, field_mask
 
 
 def exclusion_mask(exclude, shape: tuple[int, int]) -> np.ndarray | None:
@@ -44,7 +44,8 @@ def rim_structures(mask: np.ndarray, fov: Field, width_px: float) -> tuple[np.nd
     the outermost occupied run of each angle is a candidate when it is thin in rho and
     solution separates it from anything further in. Candidates are rim structures where
     they continue over a long arc (15 degrees and 8 branch widths at least) at a steady
-    rho: a ring or tape does, the tips of a deposit reaching towards the rim do not.
+    rho beyond 0.88: a ring or tape does, the tips of a deposit reaching towards the rim
+    and the edge of a dense deposit do not.
     """
     h, w = mask.shape
     r_px = fov.r
@@ -121,8 +122,8 @@ def rim_structures(mask: np.ndarray, fov: Field, width_px: float) -> tuple[np.nd
             continue
         idx = (np.arange(n) + a) % n_t
         mid = 0.5 * (lo_idx[idx] + hi_idx[idx])
-        if float(np.std(mid)) * bin_r > 0.03:
-            continue
+        if float(np.std(mid)) * bin_r > 0.03 or rho_lo + (float(np.median(mid)) + 0.5) * bin_r < 0.88:
+            continue  # wandering, or well inside: the edge of a dense deposit, not the rim's
         confirmed[idx] = True
         arcs += 1
     if not confirmed.any():
@@ -138,8 +139,8 @@ def rim_structures(mask: np.ndarray, fov: Field, width_px: float) -> tuple[np.nd
 
 
 def glare_mask(rgb: np.ndarray, width_px: float) -> np.ndarray | None:
-    """Specular glare: near-white, colourless blobs much wider than a branch."""
-    bright = (rgb.min(axis=2) >= 235) & ((rgb.max(axis=2).astype(np.int16) - rgb.min(axis=2)) <= 24)
+    """Specular glare: clipped white, colourless blobs much wider than a branch."""
+    bright = (rgb.min(axis=2) >= 247) & ((rgb.max(axis=2).astype(np.int16) - rgb.min(axis=2)) <= 16)
     if not bright.any():
         return None
     core = ndimage.binary_erosion(bright, iterations=max(1, int(round(1.5 * width_px))))
@@ -170,3 +171,126 @@ def find_electrode(mask: np.ndarray, seed_rc: tuple[float, float], width_px: flo
     rows, cols = np.nonzero(labels == labels[pr, pc])
     return {"center_rc": [round(float(rows.mean()) + r0, 1), round(float(cols.mean()) + c0, 1)],
             "radius_px": round(peak, 1)}
+
+
+def wire_paths(mask: np.ndarray, rgb: np.ndarray, fov: Field, seed_rc: tuple[float, float],
+               factor: int) -> tuple[np.ndarray, dict[str, Any]]:
+    """A lead running from outside the field to the centre electrode, across the deposit.
+
+    Returns a mask of the lead's pixels (full resolution) and a summary.
+
+    Strategy: where the mask meets the field's edge in a narrow arc, a lead may enter. Its
+    path to the seed is the cheapest route through the mask (on a copy reduced by
+    ``factor``). It is a lead when the route is long (a third of the radius at least), smooth
+    (a cubic in arc length follows it to within a third of its width, which no branch
+    wandering round its side branches does), and the photograph shows it continuing beyond
+    the field, on the rim and the bench, along the same line: a deposit stops at the rim.
+    The lead's pixels are those of the mask within half its width (and a pixel) of the route.
+    """
+    from skimage.graph import route_through_array
+
+    empty = np.zeros(mask.shape, dtype=bool), {"leads": 0}
+    h, w = mask.shape
+    small = block_mean(mask, factor) > 0.25
+    sh, sw = small.shape
+    fs = fov.reduced(factor)
+    rows, cols = np.nonzero(small)
+    if rows.size == 0:
+        return empty
+    rho = fs.rho(rows.astype(np.float64), cols.astype(np.float64))
+    edge = rho > 0.92
+    if not edge.any():
+        return empty
+    n_bins = 360
+    ang = np.arctan2(rows[edge] - fs.cy, cols[edge] - fs.cx)
+    bins = ((ang + math.pi) / (2 * math.pi) * n_bins).astype(int) % n_bins
+    hit = np.zeros(n_bins, dtype=bool)
+    hit[bins] = True
+    # Narrow arcs of contact: runs of hit bins at most 8 degrees wide.
+    entries = []
+    labels, n = ndimage.label(np.concatenate([hit, hit]))
+    seen = set()
+    for lab in range(1, n + 1):
+        idx = np.flatnonzero(labels == lab)
+        if idx.size > 8 or idx[0] >= n_bins or (idx[0] % n_bins) in seen:
+            continue
+        seen.update(int(i) % n_bins for i in idx)
+        entries.append(float(np.mean(idx)) % n_bins)
+    if not entries:
+        return empty
+    cost = np.where(small, 1.0, 1e4)
+    dist_small = ndimage.distance_transform_edt(small)
+    seed_s = (int(np.clip(round((seed_rc[0] - (factor - 1) / 2.0) / factor), 0, sh - 1)),
+              int(np.clip(round((seed_rc[1] - (factor - 1) / 2.0) / factor), 0, sw - 1)))
+    gray = rgb.mean(axis=2, dtype=np.float32)
+    out = np.zeros(mask.shape, dtype=bool)
+    leads = 0
+    for b in entries:
+        theta = (b + 0.5) / n_bins * 2 * math.pi - math.pi
+        in_bin = bins == int(b)
+        if not in_bin.any():
+            continue
+        k = int(np.argmax(np.where(in_bin, rho[edge], -1.0)))
+        start = (int(rows[edge][k]), int(cols[edge][k]))
+        path, total = route_through_array(cost, start, seed_s, fully_connected=True, geometric=True)
+        if total >= 1e4:
+            continue  # not joined to the seed through the mask
+        path = np.asarray(path, dtype=np.float64)
+        length = float(np.sum(np.hypot(*np.diff(path, axis=0).T)))
+        if length < 0.33 * fs.r:
+            continue
+        widths = 2.0 * dist_small[path[:, 0].astype(int), path[:, 1].astype(int)]
+        width = float(np.median(widths))
+        s = np.concatenate([[0.0], np.cumsum(np.hypot(*np.diff(path, axis=0).T))]) / max(length, 1e-9)
+        resid = 0.0
+        for coord in (path[:, 0], path[:, 1]):
+            fit = np.polyval(np.polyfit(s, coord, 3), s)
+            resid = max(resid, float(np.sqrt(np.mean((coord - fit) ** 2))))
+        if resid > max(0.34 * width, 0.6):
+            continue
+        if not _continues_beyond(gray, path, factor, fov, width * factor):
+            continue
+        # The lead's pixels: the mask within half its width and a pixel of the route.
+        tube = np.zeros((sh, sw), dtype=bool)
+        tube[path[:, 0].astype(int), path[:, 1].astype(int)] = True
+        near = ndimage.distance_transform_edt(~tube) <= 0.5 * width + 1.0
+        big = np.repeat(np.repeat(near, factor, axis=0), factor, axis=1)
+        pad_h, pad_w = h - big.shape[0], w - big.shape[1]
+        big = np.pad(big, ((0, max(0, pad_h)), (0, max(0, pad_w))), mode="edge")[:h, :w]
+        out |= big & mask
+        leads += 1
+    return out, {"leads": leads}
+
+
+def _continues_beyond(gray: np.ndarray, path: np.ndarray, factor: int, fov: Field, width_px: float) -> bool:
+    """Whether the photograph shows the route's line going on past the field's edge.
+
+    The line is extended from the route's outer quarter; along it, beyond the edge (rho 1.04
+    to 1.25), the grey must differ from the grey at the same rho a few widths to either
+    side, on most samples, as a lead lying on the rim and the bench does.
+    """
+    h, w = gray.shape
+    full = path * factor + (factor - 1) / 2.0
+    n = max(4, len(full) // 4)
+    outer = full[:n]
+    direction = outer[0] - outer[-1]
+    norm = float(np.hypot(*direction))
+    if norm < 1e-6:
+        return False
+    direction /= norm
+    normal = np.array([-direction[1], direction[0]])
+    offset = max(3.0 * width_px, 6.0)
+    differs = []
+    for step in np.linspace(0.0, 0.3 * fov.r, 40):
+        p = outer[0] + direction * step
+        rho = float(fov.rho(np.array([p[0]]), np.array([p[1]]))[0])
+        if not 1.04 <= rho <= 1.25:
+            continue
+        sides = [p + normal * offset, p - normal * offset]
+        pts = [p] + sides
+        if any(not (0 <= q[0] < h and 0 <= q[1] < w) for q in pts):
+            continue
+        on = float(gray[int(p[0]), int(p[1])])
+        off = [float(gray[int(q[0]), int(q[1])]) for q in sides]
+        differs.append(abs(on - off[0]) > 12.0 and abs(on - off[1]) > 12.0)
+    return len(differs) >= 4 and float(np.mean(differs)) >= 0.6

@@ -9,10 +9,11 @@ from typing import Any
 import numpy as np
 from scipy import ndimage
 
-from service.imaging.segmentation._common import Field, clip_to_field, field_mask, robust_sigma
+from service.imaging.segmentation._common import Field, block_mean, clip_to_field, field_mask, robust_sigma
 
-# The specimen's full-contrast grey: this percentile of the Otsu foreground (from the far end).
-_FULL_CONTRAST_PERCENTILE = 15.0
+# The specimen's full-contrast grey: this percentile of the Otsu foreground (from the far end); a
+# quarter of the way in, so textured or thin blurred branches still reach it.
+_FULL_CONTRAST_PERCENTILE = 25.0
 # Share of the field's radius, from the edge, in which the polarity is read.
 _BAND = (0.72, 0.93)
 
@@ -97,8 +98,23 @@ def _upsample(small: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
     return out.astype(np.float32, copy=False)
 
 
+EVENINGS = ("surface", "local")
+
+
+def local_background(small: np.ndarray, inside: np.ndarray, fov: Field | None, factor: int) -> np.ndarray:
+    """A background that follows shadows and vignetting: a median over windows of a tenth of the
+    field's radius, on a copy halved again, then smoothed. Thin branches are a minority of any
+    window and vanish from it; a deposit denser than half a window does not."""
+    half = block_mean(np.where(inside, small, np.float32(np.median(small[inside]))), 2)
+    radius_px = (fov.r / factor if fov is not None else 0.5 * min(small.shape)) / 2.0
+    size = max(5, int(0.2 * radius_px) | 1)
+    med = ndimage.median_filter(half, size=size, mode="nearest")
+    med = ndimage.gaussian_filter(med, size / 4.0)
+    return _upsample(med, small.shape)
+
+
 def even_light(gray: np.ndarray, small: np.ndarray, small_fov: np.ndarray, fov: Field | None, factor: int,
-               polarity: str) -> Evened:
+               polarity: str, evening: str = "surface") -> Evened:
     """Divide out the lighting, for the given polarity or the one the field's outer band shows.
 
     Strategy: a planar, symmetrically clipped fit follows whichever class fills most of the
@@ -108,11 +124,16 @@ def even_light(gray: np.ndarray, small: np.ndarray, small_fov: np.ndarray, fov: 
     that class alone as a quadratic surface, then corrected locally by a normalised
     Gaussian average of the background pixels that the quadratic explains to within 2.5
     noise levels: a shadow over part of the dish, or a vignette, is followed; glare, the
-    specimen and the blur at its edges are not.
+    specimen and the blur at its edges are not. ``evening="local"`` starts from a windowed
+    median instead of the plane and the quadratic, for light that changes faster than a
+    quadratic can follow (a sharp shadow, a strong vignette).
     """
     from skimage.filters import threshold_otsu
 
-    _, plane = fit_background(small, small_fov, degree=1)
+    if evening == "local":
+        plane = local_background(small, small_fov, fov, factor)
+    else:
+        _, plane = fit_background(small, small_fov, degree=1)
     evened_small = small / np.maximum(plane, np.float32(0.02))
     inner = small_fov & (field_mask(small.shape, fov.scaled(_BAND[1]), factor) if fov is not None else True)
     if np.count_nonzero(inner) < 64:
@@ -129,7 +150,7 @@ def even_light(gray: np.ndarray, small: np.ndarray, small_fov: np.ndarray, fov: 
     background_class = small_fov & (high if chosen == "dark" else ~high)
     if np.count_nonzero(background_class) < 64:
         background_class = small_fov
-    _, fitted = fit_background(small, background_class)
+    fitted = plane.copy() if evening == "local" else fit_background(small, background_class)[1]
     floor = np.float32(max(0.02, 0.05 * float(np.median(fitted[small_fov]))))
     np.maximum(fitted, floor, out=fitted)
     ratio = small / fitted
@@ -181,7 +202,7 @@ def pick_threshold(evened: Evened, fov: Field | None, threshold: float | None) -
         t, method = t_otsu, "otsu"
         if fg.any() and (~fg).any():
             # Half way between the background (median of the other class) and the specimen's
-            # full-contrast level (15th percentile of the foreground, 85th when bright): the
+            # full-contrast level (25th percentile of the foreground, 75th when bright): the
             # level where a blurred edge crosses half its contrast, i.e. the drawn outline.
             q = _FULL_CONTRAST_PERCENTILE
             full = float(np.percentile(sample[fg], q if dark else 100.0 - q))
