@@ -17,7 +17,7 @@ def _add_analyze(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--pixel-size", type=float, default=None, metavar="MM",
                    help="pixel size in millimetres (overrides TIFF resolution tags)")
     p.add_argument("--json", action="store_true", help="print one JSON object per image (JSON Lines)")
-    p.add_argument("--workers", type=int, default=None, help="worker processes (default: one per core)")
+    p.add_argument("--workers", type=int, default=None, help="worker processes (default: one per CPU this process may use)")
     p.add_argument("--scheduler", default=None, metavar="ADDRESS", help="run on an existing Dask cluster")
     p.add_argument("--library", default=None, metavar="DIR", help="reference set (default: the bundled one)")
     p.add_argument("--mode", choices=["auto", "threshold", "ridge"], default="auto", help="segmentation mode")
@@ -54,7 +54,7 @@ def _add_library(sub: argparse._SubParsersAction) -> None:
     b = lsub.add_parser("build", help="grow a reference set on Dask")
     b.add_argument("--out", default=None, metavar="DIR", help="output folder (default: reference_sets/<preset>)")
     b.add_argument("--scheduler", default=None, metavar="ADDRESS", help="address of an existing Dask scheduler")
-    b.add_argument("--workers", type=int, default=None, help="LocalCluster workers (default: one per core)")
+    b.add_argument("--workers", type=int, default=None, help="LocalCluster workers (default: one per CPU this process may use)")
     b.add_argument("--preset", default="default", help="which ensemble to grow (default, tiny, ...)")
     b.add_argument("--skip-features", action="store_true",
                    help="grow and store the clusters only; the matcher's feature cache is left unbuilt")
