@@ -59,6 +59,10 @@ def _add_library(sub: argparse._SubParsersAction) -> None:
     b.add_argument("--skip-features", action="store_true",
                    help="grow and store the clusters only; the matcher's feature cache is left unbuilt")
     b.set_defaults(func=_run_library_build)
+    r = lsub.add_parser("refit", help="refit the matcher's model of a reference set and store it beside its features")
+    r.add_argument("library", nargs="?", default=None, metavar="DIR",
+                   help="reference set folder (default: the bundled one)")
+    r.set_defaults(func=_run_library_refit)
 
 
 def _run_library_build(args: argparse.Namespace) -> int:
@@ -75,6 +79,21 @@ def _run_library_build(args: argparse.Namespace) -> int:
 
     build_feature_cache(args.out, scheduler=args.scheduler, workers=args.workers)
     print(f"matcher features cached in {args.out}/cache")
+    return _run_library_refit(argparse.Namespace(library=args.out))
+
+
+def _run_library_refit(args: argparse.Namespace) -> int:
+    # The fitted model is stored so that every later process loads it instead of refitting.
+    from service.errors import RamiformError
+    from service.library import load_reference_set
+    from service.match.persist import store_reference_model
+
+    try:
+        path = store_reference_model(load_reference_set(args.library))
+    except (RamiformError, OSError) as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 1
+    print(f"matcher model stored in {path}")
     return 0
 
 
