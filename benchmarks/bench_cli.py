@@ -154,16 +154,18 @@ def primitives(gray):
     ndimage.distance_transform_edt(deposit)
 
 primitives(gray)
-bare, decoded = [], []
+bare, decoded, decoded_cpu = [], [], []
 for _ in range(int(sys.argv[2])):
     started = time.perf_counter()
     primitives(gray)
     bare.append(time.perf_counter() - started)
-    started = time.perf_counter()
+    started, cpu = time.perf_counter(), time.process_time()
     primitives(load_image(data).gray)
     decoded.append(time.perf_counter() - started)
+    decoded_cpu.append(time.process_time() - cpu)
 print(" ".join(map(str, bare)))
 print(" ".join(map(str, decoded)))
+print(" ".join(map(str, decoded_cpu)))
 """
 
 
@@ -186,18 +188,21 @@ def one_cpu_batch(photo: Path, work: Path, batch: int, repeats: int) -> None:
     out = subprocess.run([sys.executable, "-c", _PRIMITIVES, str(photo), str(max(3, repeats))], cwd=ROOT,
                          capture_output=True, text=True, check=True,
                          preexec_fn=lambda: os.sched_setaffinity(0, {cpu}))
-    bare_line, decoded_line = out.stdout.strip().splitlines()[-2:]
+    bare_line, decoded_line, cpu_line = out.stdout.strip().splitlines()[-3:]
     bare = _median([float(t) for t in bare_line.split()])
     primitives = _median([float(t) for t in decoded_line.split()])
+    primitives_cpu = _median([float(t) for t in cpu_line.split()])
     default, two = _median(per_image["default"]), _median(per_image["two workers"])
     print(f"Batch of {batch} photos on one CPU (affinity {{{cpu}}}), per image = (T({batch}) - T(1)) / {batch - 1}, "
           f"medians of {repeats}:")
     print(f"  bare primitives (Otsu, label, skeletonize, EDT)   {bare:5.2f} s on the decoded image")
-    print(f"  the same with decoding the PNG, as every image    {primitives:5.2f} s (the reference below)")
+    print(f"  the same with decoding the PNG, as every image    {primitives:5.2f} s (the reference below); "
+          f"cpu {primitives_cpu:.2f} s")
     print(f"  default pool (usable CPUs)                        {default:5.2f} s = {default / primitives:.2f}x "
-          f"the primitives (goal <= 1.5x); cpu {_median(per_image_cpu['default']):.2f} s")
+          f"the primitives (goal <= 1.5x); cpu {_median(per_image_cpu['default']):.2f} s = "
+          f"{_median(per_image_cpu['default']) / primitives_cpu:.2f}x")
     print(f"  baseline: two workers (os.cpu_count() here)       {two:5.2f} s = {two / primitives:.2f}x; "
-          f"cpu {_median(per_image_cpu['two workers']):.2f} s")
+          f"cpu {_median(per_image_cpu['two workers']):.2f} s = {_median(per_image_cpu['two workers']) / primitives_cpu:.2f}x")
 
 
 def main() -> None:

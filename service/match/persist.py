@@ -153,6 +153,8 @@ def load_or_fit(reference_set, fit: Callable[[], T], *, name: str = MODEL_NAME) 
     except OSError as exc:
         log.warning("the fitted reference model could not be stored in %s (%s); it is refitted in every process",
                     reference_set.path, exc)
+    except (TypeError, ValueError) as exc:  # the model holds something encode() does not know
+        log.warning("the fitted reference model cannot be stored (%s); it is refitted in every process", exc)
     return model
 
 

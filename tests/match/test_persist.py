@@ -103,6 +103,15 @@ def test_a_folder_that_cannot_be_written_still_ranks(small_set, storing, monkeyp
     assert not (small_set.path / "cache" / f"{MODEL_NAME}.npz").exists()
 
 
+def test_a_model_holding_unknown_objects_is_still_returned(small_set, storing, caplog):
+    fitted = fit_reference_model(small_set)
+    odd = dataclasses.replace(fitted, calibration={**fitted.calibration, "callback": print})
+    with caplog.at_level(logging.WARNING, logger="ramiform.match"):
+        assert load_or_fit(small_set, lambda: odd) is odd
+    assert "cannot be stored" in caplog.text
+    assert load_model(small_set) is None
+
+
 def test_new_feature_vectors_invalidate_the_stored_model(small_set, table):
     store_model(small_set, fit_reference_model(small_set))
     assert is_fresh(small_set)
