@@ -2,7 +2,7 @@
 
 Each image becomes one JSON object (JSON Lines with ``--json``) or one row of a table. A
 failing image yields an error object for its line and the batch goes on. Work runs in
-worker processes (one per core by default) or on a Dask cluster given by ``--scheduler``.
+worker processes (by default one per CPU this process may use, ``service.cpus``) or on a Dask cluster given by ``--scheduler``.
 """
 
 from __future__ import annotations
@@ -16,6 +16,7 @@ from functools import partial
 from typing import Any, TextIO
 
 from service.analysis import AnalysisOptions
+from service.cpus import usable_cpus
 from service.errors import RamiformError
 
 
@@ -53,7 +54,7 @@ def analyze_many(
             for future in futures:  # in input order; later ones keep running meanwhile
                 yield future.result()
         return
-    workers = workers or os.cpu_count() or 1
+    workers = workers or usable_cpus()
     if workers == 1 or len(paths) == 1:
         yield from map(job, paths)
         return

@@ -17,7 +17,7 @@ def _add_analyze(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--pixel-size", type=float, default=None, metavar="MM",
                    help="pixel size in millimetres (overrides TIFF resolution tags)")
     p.add_argument("--json", action="store_true", help="print one JSON object per image (JSON Lines)")
-    p.add_argument("--workers", type=int, default=None, help="worker processes (default: one per core)")
+    p.add_argument("--workers", type=int, default=None, help="worker processes (default: one per CPU this process may use)")
     p.add_argument("--scheduler", default=None, metavar="ADDRESS", help="run on an existing Dask cluster")
     p.add_argument("--library", default=None, metavar="DIR", help="reference set (default: the bundled one)")
     p.add_argument("--mode", choices=["auto", "threshold", "ridge"], default="auto", help="segmentation mode")
@@ -54,11 +54,15 @@ def _add_library(sub: argparse._SubParsersAction) -> None:
     b = lsub.add_parser("build", help="grow a reference set on Dask")
     b.add_argument("--out", default=None, metavar="DIR", help="output folder (default: reference_sets/<preset>)")
     b.add_argument("--scheduler", default=None, metavar="ADDRESS", help="address of an existing Dask scheduler")
-    b.add_argument("--workers", type=int, default=None, help="LocalCluster workers (default: one per core)")
+    b.add_argument("--workers", type=int, default=None, help="LocalCluster workers (default: one per CPU this process may use)")
     b.add_argument("--preset", default="default", help="which ensemble to grow (default, tiny, ...)")
     b.add_argument("--skip-features", action="store_true",
                    help="grow and store the clusters only; the matcher's feature cache is left unbuilt")
     b.set_defaults(func=_run_library_build)
+    r = lsub.add_parser("refit", help="refit the matcher's model of a reference set and store it beside its features")
+    r.add_argument("library", nargs="?", default=None, metavar="DIR",
+                   help="reference set folder (default: the bundled one)")
+    r.set_defaults(func=_run_library_refit)
 
 
 def _run_library_build(args: argparse.Namespace) -> int:
@@ -75,6 +79,21 @@ def _run_library_build(args: argparse.Namespace) -> int:
 
     build_feature_cache(args.out, scheduler=args.scheduler, workers=args.workers)
     print(f"matcher features cached in {args.out}/cache")
+    return _run_library_refit(argparse.Namespace(library=args.out))
+
+
+def _run_library_refit(args: argparse.Namespace) -> int:
+    # The fitted model is stored so that every later process loads it instead of refitting.
+    from service.errors import RamiformError
+    from service.library import load_reference_set
+    from service.match.persist import store_reference_model
+
+    try:
+        path = store_reference_model(load_reference_set(args.library))
+    except (RamiformError, OSError) as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 1
+    print(f"matcher model stored in {path}")
     return 0
 
 

@@ -11,7 +11,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from scipy import ndimage
-from skimage.morphology import skeletonize
 
 from service.features._common import (
     as_specimen_mask,
@@ -20,6 +19,7 @@ from service.features._common import (
     local_width_px,
     median_branch_width_px,
     paste_crop,
+    skeleton_of,
     specimen_center,
 )
 from service.features.dimension import ScalingFit, box_counting, mass_radius, sandbox
@@ -143,7 +143,7 @@ def measure(
     center_crop = None if center_rc is None else tuple(np.asarray(center_rc) - np.asarray(origin))
 
     edt = ndimage.distance_transform_edt(crop)
-    skeleton = skeletonize(crop)
+    skeleton = skeleton_of(crop)
     width = median_branch_width_px(crop, edt=edt, skeleton_mask=skeleton)
 
     box = box_counting(crop, width_px=width)

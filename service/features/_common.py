@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import threading
+
 import numpy as np
 from scipy import ndimage
 from skimage.morphology import skeletonize
@@ -27,6 +29,25 @@ def as_specimen_mask(mask: np.ndarray) -> np.ndarray:
     if not mask.any():
         raise SpecimenError("the mask is empty: no occupied pixel to measure")
     return mask
+
+
+_LAST_SKELETON = threading.local()
+
+
+def skeleton_of(mask: np.ndarray) -> np.ndarray:
+    """Zhang-Suen skeleton of a 2-D bool mask (``skimage.morphology.skeletonize``), a fresh array.
+
+    The last mask and its skeleton are kept per thread: the measurements and the matcher's
+    normalisation both thin the same bounding-box crop of one specimen, and thinning is
+    the dearest step they share. A mask equal to the last one, pixel for pixel, gets a copy
+    of the same skeleton; any other mask is thinned anew.
+    """
+    last = getattr(_LAST_SKELETON, "entry", None)
+    if last is not None and last[0].shape == mask.shape and np.array_equal(last[0], mask):
+        return last[1].copy()
+    skeleton = skeletonize(mask)
+    _LAST_SKELETON.entry = (np.array(mask, dtype=bool), skeleton.copy())
+    return skeleton
 
 
 def check_pixel_size(pixel_size_mm: float | None) -> float | None:
@@ -106,7 +127,7 @@ def median_branch_width_px(
     if edt is None:
         edt = ndimage.distance_transform_edt(mask)
     if skeleton_mask is None:
-        skeleton_mask = skeletonize(mask)
+        skeleton_mask = skeleton_of(mask)
     on_skeleton = edt[skeleton_mask]
     if on_skeleton.size == 0:
         on_skeleton = edt[mask]

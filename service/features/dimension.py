@@ -12,7 +12,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import stats
+from scipy import special
 
 from service.errors import SpecimenError
 from service.features._common import (
@@ -160,15 +160,34 @@ def _fit_mask(scales: np.ndarray, lower: float, upper: float, what: str, warning
 
 
 def _line_fit(log_x: np.ndarray, log_y: np.ndarray) -> tuple[float, float, float, int]:
-    """Least-squares line: slope, intercept, standard error of the slope, number of points."""
-    n = log_x.size
-    fit = stats.linregress(log_x, log_y)
-    stderr = float(fit.stderr) if n > 2 and np.isfinite(fit.stderr) else 0.0
-    return float(fit.slope), float(fit.intercept), stderr, n
+    """Least-squares line: slope, intercept, standard error of the slope, number of points.
+
+    The arithmetic of ``scipy.stats.linregress``, step for step (so the numbers agree to
+    the last bit), without importing ``scipy.stats``, which costs a third of a second at
+    every start of the command line.
+    """
+    x, y = np.asarray(log_x, dtype=float), np.asarray(log_y, dtype=float)
+    n = x.size
+    if n == 0 or (n > 1 and np.amax(x) == np.amin(x)):
+        raise ValueError("a line fit needs at least two distinct scales")
+    ssxm, ssxym, _, ssym = np.cov(x, y, bias=1).flat
+    slope = ssxym / ssxm
+    intercept = np.mean(y) - slope * np.mean(x)
+    stderr = 0.0
+    if n > 2 and ssym != 0.0:
+        r = min(max(ssxym / np.sqrt(ssxm * ssym), -1.0), 1.0)
+        stderr = float(np.sqrt((1 - r**2) * ssym / ssxm / (n - 2)))
+        stderr = stderr if np.isfinite(stderr) else 0.0
+    return float(slope), float(intercept), stderr, n
+
+
+def _t_quantile(p: float, dof: int) -> float:
+    """Quantile ``p`` of Student's t law with ``dof`` degrees of freedom (as ``scipy.stats.t.ppf``)."""
+    return float(special.stdtrit(dof, p))
 
 
 def _t95(n_points: int) -> float:
-    return float(stats.t.ppf(0.975, max(n_points - 2, 1)))
+    return _t_quantile(0.975, max(n_points - 2, 1))
 
 
 def _window_slopes(log_x: np.ndarray, log_y: np.ndarray) -> np.ndarray:
@@ -212,7 +231,7 @@ def _curvature_drift(log_x: np.ndarray, log_y: np.ndarray) -> float:
     residual = log_y - np.polyval(coef, x)
     se_c = float(np.sqrt(cov[0, 0] * (residual @ residual) / (n - 3)))
     drift = abs(2.0 * coef[0] * x[0])
-    return float(drift) if drift > stats.t.ppf(0.975, n - 3) * abs(2.0 * x[0]) * se_c else 0.0
+    return float(drift) if drift > _t_quantile(0.975, n - 3) * abs(2.0 * x[0]) * se_c else 0.0
 
 
 def _honest_fit(

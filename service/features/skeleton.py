@@ -224,6 +224,17 @@ class _Branch:
         self.length_px = _path_length_px(self.path)
 
 
+def _node_width(width: np.ndarray, px: np.ndarray) -> float:
+    if len(px) == 1:  # a tip: most nodes, where the fancy-indexing path costs more than the value
+        return float(width[px[0, 0], px[0, 1]])
+    return float(width[px[:, 0], px[:, 1]].max())
+
+
+def _node_center(px: np.ndarray) -> np.ndarray:
+    # One pixel: its own coordinates, as the mean of one row would give them exactly.
+    return px[0].astype(np.float64) if len(px) == 1 else px.mean(axis=0)
+
+
 class _Graph:
     """Mutable node/branch graph used while cleaning the skeleton (private)."""
 
@@ -232,8 +243,8 @@ class _Graph:
         self.node_pixels = node_pixels
         # Width at a node: the widest point of its own pixels, fixed at creation (merged
         # nodes keep the larger), so merging cannot make a junction swallow its neighbours.
-        self.node_width = {n: float(width[px[:, 0], px[:, 1]].max()) for n, px in node_pixels.items()}
-        self.node_center = {n: px.mean(axis=0) for n, px in node_pixels.items()}
+        self.node_width = {n: _node_width(width, px) for n, px in node_pixels.items()}
+        self.node_center = {n: _node_center(px) for n, px in node_pixels.items()}
         self.incident: dict[int, list[int]] = {n: [] for n in node_pixels}
         for k, br in self.branches.items():
             self.incident[br.a].append(k)

@@ -23,6 +23,7 @@ from typing import Any
 
 import numpy as np
 
+from service.cpus import usable_cpus
 from service.errors import LibraryError, RamiformError
 from service.library.storage import (
     CACHE_DIR,
@@ -127,7 +128,7 @@ def dask_client(scheduler: str | None = None, workers: int | None = None) -> Ite
     """A ``distributed.Client`` on ``scheduler``, or on a LocalCluster closed on exit.
 
     The LocalCluster has ``workers`` single-threaded worker processes (default: one per
-    usable core); its status server takes a free port, so builds never clash over one.
+    usable CPU, ``service.cpus.usable_cpus``); its status server takes a free port, so builds never clash over one.
     """
     from distributed import Client, LocalCluster
 
@@ -137,7 +138,7 @@ def dask_client(scheduler: str | None = None, workers: int | None = None) -> Ite
         return
     if workers is not None and workers < 1:
         raise ValueError(f"workers must be at least 1, got {workers}")
-    n_workers = workers or len(os.sched_getaffinity(0))
+    n_workers = workers or usable_cpus()
     with LocalCluster(
         n_workers=n_workers, threads_per_worker=1, processes=True, dashboard_address=":0"
     ) as cluster, Client(cluster) as client:
@@ -223,7 +224,7 @@ def build_library(
     scheduler : str, optional
         Address of an existing Dask scheduler; by default a LocalCluster is started.
     workers : int, optional
-        Worker processes of the LocalCluster (default: one per core).
+        Worker processes of the LocalCluster (default: one per usable CPU, ``service.cpus``).
     progress : bool
         Show a progress bar on stderr.
 
@@ -277,7 +278,7 @@ def build_library(
     build = {
         "wall_s": round(wall_s, 1),
         "scheduler": scheduler or "LocalCluster",
-        "workers": workers or (None if scheduler else len(os.sched_getaffinity(0))),
+        "workers": workers or (None if scheduler else usable_cpus()),
     }
     write_reference_set(
         staging, preset=preset, ensembles=ensembles, sites=sites, seed_rule=SEED_RULE, build=build

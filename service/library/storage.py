@@ -44,6 +44,7 @@ import hashlib
 import io
 import json
 import os
+import secrets
 import zipfile
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -213,11 +214,20 @@ def write_npz(path: Path, arrays: Mapping[str, np.ndarray]) -> None:
 
 
 def write_bytes(path: Path, data: bytes) -> None:
-    """Write through a temporary file and rename, so a reader never sees half a file."""
+    """Write through a temporary file and rename, so a reader never sees half a file.
+
+    The temporary name is unique to the writer: several processes refreshing the same
+    cache entry at once each rename a whole file of their own, and the last one stays.
+    """
     path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(path.name + ".tmp")
-    tmp.write_bytes(data)
-    os.replace(tmp, path)
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.{secrets.token_hex(4)}.tmp")
+    try:
+        with open(tmp, "xb") as handle:
+            handle.write(data)
+        os.replace(tmp, path)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
 
 
 def write_json(path: Path, value: Any) -> None:

@@ -104,7 +104,7 @@ def build_feature_cache(
     scheduler : str, optional
         Address of an existing Dask scheduler; by default a LocalCluster is started.
     workers : int, optional
-        Worker processes of the LocalCluster (default: one per core).
+        Worker processes of the LocalCluster (default: one per usable CPU, ``service.cpus``).
     progress : bool
         Show a progress bar on stderr.
 

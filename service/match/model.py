@@ -16,7 +16,7 @@ import json
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize, special, stats
+from scipy import special
 
 from service.errors import LibraryError
 from service.match.cache import ReferenceTable
@@ -300,6 +300,7 @@ class ReferenceModel:
 
 def fit_temperature(loglik: np.ndarray, truth: np.ndarray) -> tuple[float, float]:
     """Temperature minimising the held-out negative log-likelihood of the true families."""
+    from scipy import optimize  # only when fitting: a stored model loads without it
 
     def nll(log_t: float) -> float:
         logp = special.log_softmax(loglik / np.exp(log_t), axis=1)
@@ -319,6 +320,8 @@ def novelty_threshold(own_d2: np.ndarray, n_features: int) -> float:
     a hundred should be called foreign to its own library, not more. A quantile, not the
     largest distance, so one odd realisation does not open the library to everything.
     """
+    from scipy import stats  # only when fitting: a stored model loads without it
+
     empirical = NOVELTY_WIDENING * float(np.quantile(own_d2, NOVELTY_REFERENCE_QUANTILE))
     return max(float(stats.chi2.ppf(NOVELTY_QUANTILE, n_features)), empirical)
 
@@ -338,6 +341,8 @@ def fit_model(reference_set, table: ReferenceTable) -> ReferenceModel:
     .. [2] O. Ledoit, M. Wolf, "A well-conditioned estimator for large-dimensional
        covariance matrices", J. Multivariate Anal. 88, 365 (2004) (shrinkage).
     """
+    from scipy import stats  # only when fitting: a stored model loads without it
+
     families = families_of(reference_set)
     n_ensembles = len(reference_set.ensembles)
     truth = family_index(families, n_ensembles)[table.ensemble]

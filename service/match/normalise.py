@@ -12,9 +12,8 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import ndimage
-from skimage.morphology import skeletonize
 
-from service.features._common import as_specimen_mask, crop_to_specimen
+from service.features._common import as_specimen_mask, crop_to_specimen, skeleton_of
 
 #: The branch width is taken no larger than the bounding radius over this many sites, so a
 #: compact blob (Eden, a filled disk), whose "width" is its own size, keeps a lattice of at
@@ -123,7 +122,7 @@ def normalise(mask: np.ndarray) -> NormalisedMask:
     """
     mask = as_specimen_mask(mask)
     crop, _ = crop_to_specimen(mask, pad_px=1)
-    skeleton = skeletonize(crop)
+    skeleton = skeleton_of(crop)
     width = max(1.0, float(crop.sum()) / max(skeleton_length_px(skeleton), 1.0))
     points = np.argwhere(crop)
     radius = float(np.sqrt(((points - points.mean(axis=0)) ** 2).sum(axis=1).max())) + 0.5

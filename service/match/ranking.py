@@ -17,6 +17,7 @@ from scipy import special
 from service.errors import SpecimenError
 from service.match.cache import _as_reference_set, cache_discrepancy, load_reference_table
 from service.match.model import CONNECTED_MARGIN, ReferenceModel, fit_model
+from service.match.persist import load_or_fit
 from service.match.vector import FEATURE_SCHEMA, FEATURES, specimen_vector
 
 #: Families that belong to one universality class, so either answer is right for either.
@@ -82,18 +83,24 @@ def _resolve(reference_set):
 def reference_model(reference_set=None) -> ReferenceModel:
     """The fitted and calibrated model of a reference set (default: the bundled one).
 
-    Fitted once per set and process (well under a second for a few hundred clusters), then
-    kept in memory; keyed by the set's folder and fingerprint, so a rebuilt set is refitted.
+    Read from the set's ``cache/`` folder when stored there for this code and these
+    clusters (``service.match.persist``), else fitted (seconds) and stored; then kept in
+    memory, keyed by the set's folder and fingerprint, so a rebuilt set is refitted.
     """
     reference_set = _resolve(reference_set)
     key = (str(Path(reference_set.path).resolve()), reference_set.fingerprint)
     with _LOCK:
         if key not in _MODELS:
-            table = load_reference_table(reference_set)
-            model = fit_model(reference_set, table)
-            model.calibration["cache_discrepancy"] = cache_discrepancy(reference_set, table)
-            _MODELS[key] = model
+            _MODELS[key] = load_or_fit(reference_set, lambda: fit_reference_model(reference_set))
         return _MODELS[key]
+
+
+def fit_reference_model(reference_set) -> ReferenceModel:
+    """Fit and calibrate the model of a reference set from its feature cache (no stored model used)."""
+    table = load_reference_table(reference_set)
+    model = fit_model(reference_set, table)
+    model.calibration["cache_discrepancy"] = cache_discrepancy(reference_set, table)
+    return model
 
 
 def _numeric(value: Any) -> bool:

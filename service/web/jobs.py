@@ -18,6 +18,7 @@ from typing import Any
 import numpy as np
 
 from service.analysis import AnalysisOptions
+from service.cpus import usable_cpus
 from service.errors import LibraryError, RamiformError
 
 _SOURCE_SUFFIX = {"PNG": "png", "JPEG": "jpg", "TIFF": "tif", "BMP": "bmp"}
@@ -109,7 +110,7 @@ def matcher_distances(vectors: list[list[float]], library_dir: str | None) -> li
 
 
 class AnalysisPool:
-    """Runs analyses off the event loop: a pool of processes sized to the cores.
+    """Runs analyses off the event loop: a pool of processes, one per usable CPU by default.
 
     ``processes=0`` runs them in threads of this process instead (debugging, small tests).
     A worker that dies (out of memory, killed) breaks a process pool; the pool is then
@@ -122,7 +123,7 @@ class AnalysisPool:
 
     def _new_executor(self) -> concurrent.futures.Executor:
         if self.processes == 0:
-            return concurrent.futures.ThreadPoolExecutor(max_workers=os.cpu_count() or 1)
+            return concurrent.futures.ThreadPoolExecutor(max_workers=usable_cpus())
         # spawn: a fresh interpreter per worker, never a fork of a threaded server
         return concurrent.futures.ProcessPoolExecutor(
             max_workers=self.processes, mp_context=multiprocessing.get_context("spawn")

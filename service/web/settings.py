@@ -2,11 +2,12 @@
 
 from __future__ import annotations
 
-import os
 from pathlib import Path
 
 from pydantic import Field, field_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
+
+from service.cpus import usable_cpus
 
 
 class Settings(BaseSettings):
@@ -27,7 +28,7 @@ class Settings(BaseSettings):
     max_pixels: int = Field(100_000_000, gt=0, description="largest decoded image, in pixels")
     api_keys: str = Field("", description='"lab-a:KEY,lab-b:KEY" turns access control on')
     workers: int | None = Field(
-        None, ge=0, description="analysis processes (default: one per core; 0 runs analyses in threads)"
+        None, ge=0, description="analysis processes (default: one per usable CPU; 0 runs analyses in threads)"
     )
     secret_key: str | None = Field(None, description="key signing page cookies; default: derived from api_keys")
 
@@ -51,7 +52,7 @@ class Settings(BaseSettings):
     def worker_count(self) -> int:
         """Processes in the analysis pool (0: analyses run in threads of this process)."""
         if self.workers is None:
-            return os.cpu_count() or 1
+            return usable_cpus()
         return self.workers
 
     @property

@@ -164,3 +164,26 @@ def test_bad_masks(function):
         function(np.zeros((20, 20), dtype=bool))
     with pytest.raises(ValueError):
         function(np.ones((4, 4, 4), dtype=bool))
+
+
+def test_line_fit_is_scipys_linregress_to_the_last_bit():
+    """The fit under every dimension: slope, intercept and slope error as scipy.stats.linregress
+    (the reference library) computes them, bit for bit, and Student's t quantile as scipy.stats.t."""
+    from service.features.dimension import _line_fit, _t_quantile
+
+    rng = np.random.default_rng(5)
+    for n in (2, 3, 4, 7, 12, 25):
+        for _ in range(20):
+            x = np.sort(rng.normal(size=n))
+            y = 1.7 * x + rng.normal(size=n) * rng.uniform(0.0, 1.0)
+            reference = stats.linregress(x, y)
+            slope, intercept, stderr, points = _line_fit(x, y)
+            assert (slope, intercept, points) == (reference.slope, reference.intercept, n)
+            assert stderr == (float(reference.stderr) if n > 2 else 0.0)
+    # A flat line: linregress leaves the error undefined (nan); no scatter means no error here.
+    assert _line_fit(np.arange(5.0), np.ones(5)) == (0.0, 1.0, 0.0, 5)
+    with pytest.raises(ValueError, match="distinct"):
+        _line_fit(np.ones(4), np.arange(4.0))
+    for dof in (1, 2, 5, 30, 200):
+        assert _t_quantile(0.975, dof) == stats.t.ppf(0.975, dof)
+    assert _t_quantile(0.975, 1) == pytest.approx(12.706, abs=5e-4)  # t table, from memory

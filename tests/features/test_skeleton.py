@@ -92,3 +92,23 @@ def test_bad_input():
         skeleton_graph(np.zeros((10, 10), dtype=bool))
     with pytest.raises(ValueError):
         skeleton_graph(np.ones((5, 5)), prune_widths=-1)
+
+
+def test_shared_skeleton_is_scikit_images_and_never_shared_by_reference():
+    """skeleton_of keeps the last thinning for the next caller with the same mask; the
+    answer must stay skimage.morphology.skeletonize's (the reference library) for every mask."""
+    from scipy import ndimage
+    from skimage.morphology import skeletonize
+
+    from service.features._common import skeleton_of
+
+    rng = np.random.default_rng(3)
+    masks = [ndimage.binary_dilation(rng.random((60, 80)) < 0.05, iterations=2) for _ in range(3)]
+    for mask in (*masks, masks[0], masks[0]):
+        np.testing.assert_array_equal(skeleton_of(mask), skeletonize(mask))
+    first = skeleton_of(masks[1])
+    first[:] = True  # a caller changing its copy must not change what the next one gets
+    np.testing.assert_array_equal(skeleton_of(masks[1]), skeletonize(masks[1]))
+    changed = masks[1].copy()
+    changed[30, 40] = ~changed[30, 40]
+    np.testing.assert_array_equal(skeleton_of(changed), skeletonize(changed))
