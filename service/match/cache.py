@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from service.errors import LibraryError
-from service.match.nuisance import THICKNESS_SITES, nuisance_grid
+from service.match.nuisance import THICKNESS_SITES, n_styles, nuisance_grid
 from service.match.vector import FEATURE_NAMES, FEATURE_SCHEMA, reference_vectors
 
 #: Name of the cache entry in the reference set's ``cache/`` folder.
@@ -96,7 +96,7 @@ def compute_reference_table(
         (index, realisation, style, vector)
         for index, e in enumerate(reference_set.ensembles)
         for realisation, vectors in enumerate(results[e.id])
-        for style, vector in enumerate(vectors)
+        for style, vector in vectors
     ]
     return ReferenceTable(
         values=np.array([v.values for *_, v in rows], dtype=np.float64).reshape(len(rows), len(FEATURE_NAMES)),
@@ -115,7 +115,7 @@ def build_feature_cache(
 ) -> ReferenceTable:
     """Compute the matcher's feature vector of every reference cluster and cache it.
 
-    Each cluster is drawn in every style of the nuisance grid
+    Each cluster is drawn in its styles of the nuisance grid
     (:mod:`service.match.nuisance`: branch thickness 0.7 to 2 sites, blur, threshold level,
     JPEG), and each drawing normalised and measured exactly as a specimen is; one Dask task
     per cluster (``ReferenceSet.map_clusters``). The grid is stored beside the vectors.
@@ -180,7 +180,7 @@ def load_reference_table(reference_set, *, build_if_missing: bool | None = None)
         n = len(cached["ensemble"])
         if np.array_equal(
             np.bincount(cached["ensemble"], minlength=len(reference_set.ensembles)),
-            [e.n_realisations * len(THICKNESS_SITES) for e in reference_set.ensembles],
+            [e.n_realisations * n_styles(e.n_particles) for e in reference_set.ensembles],
         ) and cached["values"].shape == (n, len(FEATURE_NAMES)):
             return ReferenceTable(**{name: cached[name] for name in _COLUMNS})
     n_clusters = sum(e.n_realisations for e in reference_set.ensembles)
@@ -202,16 +202,17 @@ def cache_discrepancy(reference_set, table: ReferenceTable, n_checks: int = 3) -
     """Largest difference between cached vectors and the same clusters measured afresh.
 
     The first realisation of ``n_checks`` ensembles spread through the set is drawn again in
-    its thickest style (the cheapest drawing) and measured;
+    its thickest cached style (the cheapest drawing) and measured;
     a difference means the measurement code changed since the cache was built (rebuild it
     with :func:`build_feature_cache`). Costs a fraction of a second.
     """
     picks = np.unique(np.linspace(0, len(reference_set.ensembles) - 1, n_checks).round().astype(int))
     worst = 0.0
     for index in picks:
-        style = len(THICKNESS_SITES) - 1
-        row = int(np.flatnonzero((table.ensemble == index) & (table.realisation == 0) & (table.style == style))[0])
-        fresh = reference_vectors(reference_set.arrival_order(reference_set.ensembles[index], 0), (style,))[0]
+        rows = np.flatnonzero((table.ensemble == index) & (table.realisation == 0))
+        row = int(rows[np.argmax(table.style[rows])])
+        fresh = reference_vectors(reference_set.arrival_order(reference_set.ensembles[index], 0),
+                                  (int(table.style[row]),))[0][1]
         worst = max(worst, float(np.max(np.abs(fresh.values - table.values[row]))),
                     abs(float(np.log(fresh.n_sites)) - float(table.log_sites[row])))
     return worst

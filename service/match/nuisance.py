@@ -26,8 +26,15 @@ from scipy import ndimage
 
 #: Branch widths, in lattice sites, each cluster is drawn at (one drawing per level).
 THICKNESS_SITES: tuple[float, ...] = (0.7, 1.0, 1.4, 2.0)
-#: Pixels per lattice site of a drawing (uniform in this range).
-PX_PER_SITE = (3.0, 4.0)
+#: How many of the thickness levels each cluster is drawn at, by its number of sites: every
+#: level for small clusters, fewer for large ones, whose drawings cost the most (each
+#: ensemble of 16 still covers every level, and its spread holds both kinds of variation).
+STYLES_BY_SIZE: tuple[tuple[int, int], ...] = ((3000, 4), (10000, 2), (10**9, 1))
+#: Pixels per lattice site of a drawing: a stroke about a one-pixel centreline is an odd
+#: number of pixels wide, so each drawing takes one of the odd widths (3 to 11 px) whose
+#: pixels per site for the style's thickness fall in this range.
+PX_PER_SITE = (3.0, 5.0)
+ODD_WIDTHS_PX = (3, 5, 7, 9, 11)
 #: Gaussian blur of the optics, sigma in pixels (uniform).
 BLUR_PX = (0.4, 1.0)
 #: Grey level, between background (0) and deposit (1), at which the blurred drawing is cut.
@@ -61,7 +68,9 @@ def nuisance_grid() -> dict:
     """The grid as data (written beside the feature cache, and into reports)."""
     return {
         "thickness_sites": list(THICKNESS_SITES),
+        "styles_by_size": [list(pair) for pair in STYLES_BY_SIZE],
         "px_per_site": list(PX_PER_SITE),
+        "odd_widths_px": list(ODD_WIDTHS_PX),
         "blur_px": list(BLUR_PX),
         "threshold_level": list(THRESHOLD_LEVEL),
         "jpeg_qualities": [q or 0 for q in JPEG_QUALITIES],
@@ -69,19 +78,35 @@ def nuisance_grid() -> dict:
         "electrode_sites": list(ELECTRODE_SITES),
         "grey_levels": [BACKGROUND_GREY, DEPOSIT_GREY, NOISE_GREY],
         "rule": (
-            "every cluster is drawn once at each thickness; the other settings are uniform in their "
-            "ranges, drawn from numpy default_rng(CRC-32 of the cluster's int32 arrival-order bytes "
+            "every cluster is drawn at n_styles(sites) of the thickness levels (styles_by_size), evenly "
+            "spaced from level seed mod 4, each with a stroke of one of the odd pixel widths "
+            "whose pixels per site fall in px_per_site; the other settings are uniform in their ranges, drawn from numpy default_rng(CRC-32 of the cluster's int32 arrival-order bytes "
             "XOR the feature schema, style index)"
         ),
     }
 
 
+def n_styles(n_sites: int) -> int:
+    """How many drawings a cluster of ``n_sites`` gets (``STYLES_BY_SIZE``)."""
+    return next(count for limit, count in STYLES_BY_SIZE if n_sites <= limit)
+
+
+def style_indices(cluster_seed: int, n_sites: int) -> tuple[int, ...]:
+    """Which thickness levels a cluster is drawn at: ``n_styles`` of them, evenly spaced
+    through the levels from one picked by the seed (a thin one with a thick one, say)."""
+    count = n_styles(n_sites)
+    start = cluster_seed % len(THICKNESS_SITES)
+    step = len(THICKNESS_SITES) // count
+    return tuple(sorted((start + step * i) % len(THICKNESS_SITES) for i in range(count)))
+
+
 def drawing_styles(cluster_seed: int) -> tuple[DrawingStyle, ...]:
-    """The styles one cluster is drawn in (one per thickness level), from its seed."""
+    """Every style a cluster may be drawn in (one per thickness level), from its seed."""
     styles = []
     for index, thickness in enumerate(THICKNESS_SITES):
         rng = np.random.default_rng([cluster_seed, index])
-        px = float(rng.uniform(*PX_PER_SITE))
+        fitting = [w for w in ODD_WIDTHS_PX if PX_PER_SITE[0] <= w / thickness <= PX_PER_SITE[1]]
+        px = float(fitting[int(rng.integers(len(fitting)))] / thickness)
         blur = float(rng.uniform(*BLUR_PX))
         level = float(rng.uniform(*THRESHOLD_LEVEL))
         quality = JPEG_QUALITIES[int(rng.integers(len(JPEG_QUALITIES)))]
@@ -186,16 +211,17 @@ def draw_cluster(lattice: np.ndarray, style: DrawingStyle) -> np.ndarray:
     """
     occupied = np.asarray(lattice) != 0
     px = style.px_per_site
-    radius_px = 0.5 * style.thickness_sites * px
-    pad = int(np.ceil(radius_px + 4 * style.blur_px + style.electrode_sites * px)) + 3
+    width_px = style.thickness_sites * px
+    pad = int(np.ceil(width_px + 4 * style.blur_px + style.electrode_sites * px)) + 3
     centrelines = _bond_centrelines(occupied, px, pad)
-    drawn = _dilate_disc(centrelines, radius_px)
+    # A digital disc of integer radius R widens a one-pixel line to 2R + 1 pixels.
+    drawn = _dilate_disc(centrelines, max(round(0.5 * (width_px - 1.0)), 0)).astype(np.float32)
     if style.electrode_sites > 0:
         h, w = occupied.shape
         cy, cx = pad + (h // 2 + 0.5) * px, pad + (w // 2 + 0.5) * px
         yy, xx = np.ogrid[: drawn.shape[0], : drawn.shape[1]]
-        drawn |= (yy - cy) ** 2 + (xx - cx) ** 2 <= (style.electrode_sites * px) ** 2
-    soft = ndimage.gaussian_filter(drawn.astype(np.float32), style.blur_px)
+        drawn[(yy - cy) ** 2 + (xx - cx) ** 2 <= (style.electrode_sites * px) ** 2] = 1.0
+    soft = ndimage.gaussian_filter(drawn, style.blur_px)
     if style.jpeg_quality:
         rng = np.random.default_rng(int(style.jpeg_quality * 1000 + round(style.blur_px * 1000)))
         grey = BACKGROUND_GREY + (DEPOSIT_GREY - BACKGROUND_GREY) * soft

@@ -7,8 +7,8 @@ values the log-posterior is interpolated linearly along the parameter's axis (lo
 when the grid is evenly spaced in the logarithm, as sticking's is), which gives a continuous
 density over the library's range; the estimate is its median and the interval its 95%
 highest-density interval. A grid cannot place a parameter more finely than its own spacing,
-so the interval is never narrower than half the gap to the neighbouring grid values on each
-side of the estimate.
+so the interval always holds the cell of the grid value nearest the estimate (half-way to
+each neighbouring grid value).
 """
 
 from __future__ import annotations
@@ -69,12 +69,14 @@ def interval_estimate(grid: np.ndarray, mass: np.ndarray) -> dict[str, Any]:
     ranked = np.argsort(-density, kind="stable")
     inside = ranked[: int(np.searchsorted(np.cumsum(density[ranked]), INTERVAL_MASS)) + 1]
     lo_u, hi_u = float(fine[inside].min()), float(fine[inside].max())
-    # Never narrower than the grid can tell: half the gap to each neighbouring grid value.
-    below, above = u[u < median_u - 1e-12], u[u > median_u + 1e-12]
-    if below.size:
-        lo_u = min(lo_u, median_u - 0.5 * (median_u - below.max()))
-    if above.size:
-        hi_u = max(hi_u, median_u + 0.5 * (above.min() - median_u))
+    # Never narrower than the grid can tell: the interval holds the cell of the grid value
+    # nearest the estimate, half-way to each neighbouring grid value.
+    g = int(np.argmin(np.abs(u - median_u)))
+    if g > 0:
+        lo_u = min(lo_u, u[g] - 0.5 * (u[g] - u[g - 1]))
+    if g < u.size - 1:
+        hi_u = max(hi_u, u[g] + 0.5 * (u[g + 1] - u[g]))
+    lo_u, hi_u = min(lo_u, u[g]), max(hi_u, u[g])
     lo_u, hi_u = max(lo_u, u[0]), min(hi_u, u[-1])
     values = back(fine)
     mean = float(density @ values)
@@ -128,8 +130,8 @@ def parameter_estimates(families, probability: np.ndarray) -> dict[str, Any]:
                 "note": note,
                 "method": (
                     "median and 95% highest-density interval of the posterior over the library's values, "
-                    f"log-posterior interpolated on a {estimate['axis']} axis; never narrower than half the "
-                    "gap to the neighbouring library values"
+                    f"log-posterior interpolated on a {estimate['axis']} axis; always holding the cell of the "
+                    "library value nearest the estimate (half-way to its neighbours)"
                 ),
             }
     return out

@@ -14,11 +14,11 @@ from typing import Any
 UNIVERSALITY_CLASSES: tuple[dict[str, Any], ...] = (
     {
         "name": "diffusion-limited growth",
-        "members": (("dla", {}), ("dbm", {"eta": (1.0, 1.0)})),
+        "members": (("dla", {}), ("dla_offlattice", {}), ("dbm", {"eta": (1.0, 1.0)})),
         "note": (
-            "DLA and the dielectric breakdown model with eta = 1 belong to one universality class "
-            "(growth probability proportional to the Laplacian field; Niemeyer, Pietronero & Wiesmann, "
-            "Phys. Rev. Lett. 52, 1033, 1984): either answer is right for either."
+            "DLA (on a lattice or off it) and the dielectric breakdown model with eta = 1 belong to one "
+            "universality class (growth probability proportional to the Laplacian field; Niemeyer, "
+            "Pietronero & Wiesmann, Phys. Rev. Lett. 52, 1033, 1984): either answer is right for either."
         ),
     },
     {

@@ -18,7 +18,7 @@ from service.errors import SpecimenError
 from service.features.dimension import box_counting, sandbox
 from service.features.lacunarity import lacunarity
 from service.match.normalise import normalise
-from service.match.nuisance import cluster_seed, draw_cluster, drawing_styles
+from service.match.nuisance import cluster_seed, draw_cluster, drawing_styles, style_indices
 
 #: Bump when a feature, its definition or the reference rendering changes: cached
 #: reference vectors of another version are recomputed.
@@ -231,11 +231,13 @@ def reference_photo_mask(lattice: np.ndarray, *, seed: int) -> np.ndarray:
     return ndimage.gaussian_filter(drawn.astype(np.float32), blur) >= 0.5
 
 
-def reference_vectors(arrival_order: np.ndarray, styles: tuple[int, ...] | None = None) -> list[LatticeVector]:
+def reference_vectors(
+    arrival_order: np.ndarray, styles: tuple[int, ...] | None = None
+) -> list[tuple[int, LatticeVector]]:
     """Features of one library cluster through the specimens' path, once per drawing style
     (the feature-cache task).
 
-    The cluster is drawn in each style of :func:`service.match.nuisance.drawing_styles`
+    The cluster is drawn in its styles among those of :func:`service.match.nuisance.drawing_styles`
     (branch thickness 0.7 to 2 sites, blur, threshold level, JPEG), and each drawing is
     normalised and measured exactly as a specimen's mask is. The styles' seed is the CRC-32
     of the cluster's arrival-order lattice mixed with ``FEATURE_SCHEMA``, so the same
@@ -245,13 +247,16 @@ def reference_vectors(arrival_order: np.ndarray, styles: tuple[int, ...] | None 
     ----------
     arrival_order : (h, w) int array
     styles : tuple of int, optional
-        Indices of the styles to draw (default: all, in order).
+        Indices of the styles to draw (default: the cluster's own,
+        :func:`service.match.nuisance.style_indices`).
 
     Returns
     -------
-    list of LatticeVector
+    list of (int, LatticeVector)
+        Each drawing's style index and vector.
     """
     lattice = np.ascontiguousarray(arrival_order, dtype=np.int32)
-    all_styles = drawing_styles(cluster_seed(lattice, FEATURE_SCHEMA))
-    chosen = range(len(all_styles)) if styles is None else styles
-    return [specimen_vector(draw_cluster(lattice, all_styles[i]))[0] for i in chosen]
+    seed = cluster_seed(lattice, FEATURE_SCHEMA)
+    all_styles = drawing_styles(seed)
+    chosen = style_indices(seed, int(np.count_nonzero(lattice))) if styles is None else styles
+    return [(i, specimen_vector(draw_cluster(lattice, all_styles[i]))[0]) for i in chosen]
