@@ -1,12 +1,13 @@
 """Reference statistics, posterior over growth families, calibration and novelty.
 
 A *family* is one regime with one parameter set (``dbm`` with ``eta = 2``, ``dla`` with
-``sticking = 0.3`` on the Moore neighbourhood, ...), grown at several sizes. Each size is an
-ensemble: a mean feature vector and per-feature variances at the ensemble's mean
-``log N_eq``. For a specimen of size ``N_eq`` a family's means and variances are
-interpolated linearly in ``log N_eq`` between its sizes (small clusters fluctuate more than
-large ones), and combined with the family's within-ensemble correlations shrunk towards
-those pooled over every family. Everything here reads the families from the reference set's
+``sticking = 0.3`` on the Moore neighbourhood, ...), grown at several sizes and each cluster
+drawn in several styles (:mod:`service.match.nuisance`). A family's mean feature vector and
+per-feature variances are kernel-weighted local linear fits on ``log N_eq`` over all its
+drawings, so the variance holds what differs between realisations and what the drawing
+style changes alike (small clusters fluctuate more than large ones, and a thick drawing has
+fewer sites than a thin one of the same cluster); they are combined with the family's
+correlations shrunk towards those pooled over every family. Everything here reads the families from the reference set's
 manifest: no regime or parameter value is named.
 """
 
@@ -35,6 +36,9 @@ NOVELTY_QUANTILE = 0.999
 #: distances to their own family.
 NOVELTY_REFERENCE_QUANTILE = 0.99
 NOVELTY_WIDENING = 1.1
+#: A parameter interval reaches on both sides at least this quantile of how far drawing style
+#: alone moved the estimates of held-out references (the range over one cluster's drawings).
+PARAMETER_RANGE_QUANTILE = 0.95
 #: The bulk of the references: this quantile of their held-out squared distances to their
 #: own family. Beyond it the posterior is tempered in proportion to the distance.
 INLIER_QUANTILE = 0.9
@@ -395,6 +399,7 @@ class ReferenceModel:
     min_connected_fraction: float
     inlier_d2: float = 0.0
     nuisance_log_odds_sd: float = 0.0
+    parameter_nuisance_range: dict = None  # {(regime, parameter): range on its axis}
 
     def evaluate(self, values: np.ndarray, log_sites: float) -> Evaluation:
         """Distances and log-likelihoods of one vector under every family, at its size."""
@@ -463,12 +468,14 @@ def novelty_threshold(own_d2: np.ndarray, n_features: int) -> float:
 
 
 def fit_model(reference_set, table: ReferenceTable) -> ReferenceModel:
-    """Fit the statistics and calibrate them by leaving one realisation out at a time.
+    """Fit the statistics and calibrate them by leaving one cluster (all its drawings) out at a time.
 
     The shrinkage weight and the temperature are the pair that minimises the held-out
-    negative log-likelihood of each cluster's true family (temperature scaling,
+    negative log-likelihood of each drawing's true family (temperature scaling,
     Guo et al. 2017). The novelty threshold is :func:`novelty_threshold` of the held-out
-    distances of the references to their own families.
+    distances of the references to their own families; the distance tempering starts at
+    their ``INLIER_QUANTILE`` quantile; the nuisance spread of a verdict's log-odds is
+    :func:`nuisance_log_odds_sd` of the held-out drawings.
 
     References
     ----------
@@ -492,6 +499,7 @@ def fit_model(reference_set, table: ReferenceTable) -> ReferenceModel:
     statistics = _statistics(table, families, shrinkage, cache["fitted"])
     sizes = np.exp(np.concatenate(statistics.knots))
     nuisance_sd = nuisance_log_odds_sd(ll / temperature, truth, families, table.cluster)
+    parameter_spread = parameter_nuisance_range(ll / temperature, truth, families, table.cluster)
     return ReferenceModel(
         families=families,
         statistics=statistics,
@@ -516,12 +524,46 @@ def fit_model(reference_set, table: ReferenceTable) -> ReferenceModel:
             "n_clusters": int(np.unique(table.cluster).size),
             "inlier_d2": float(np.quantile(own, INLIER_QUANTILE)),
             "nuisance_log_odds_sd": nuisance_sd,
+            "parameter_nuisance_range": {f"{r}.{n}": v for (r, n), v in parameter_spread.items()},
         },
         size_range=(float(sizes.min()), float(sizes.max())),
         min_connected_fraction=float(table.connected_fraction.min()),
         inlier_d2=float(np.quantile(own, INLIER_QUANTILE)),
         nuisance_log_odds_sd=nuisance_sd,
+        parameter_nuisance_range=parameter_spread,
     )
+
+
+def parameter_nuisance_range(scaled_loglik: np.ndarray, truth: np.ndarray, families: list[Family],
+                             cluster: np.ndarray) -> dict[tuple[str, str], float]:
+    """How far the drawing style alone moves each parameter's estimate, on its axis.
+
+    For every held-out drawing, the parameter is estimated from the posterior within the
+    true regime (:func:`service.match.parameters.interval_estimate`); for each cluster drawn
+    at every thickness level the estimates' range (largest minus smallest, on the
+    parameter's axis: logarithmic for sticking) is what the camera changes. The
+    ``PARAMETER_RANGE_QUANTILE`` quantile of those ranges is returned per (regime, parameter):
+    a 95% interval must hold what the camera does to nearly every cluster, not to the average one.
+    """
+    from service.match.parameters import estimate_on_axis, numeric_grid
+
+    out = {}
+    logp = special.log_softmax(scaled_loglik, axis=1)
+    for regime in dict.fromkeys(f.regime for f in families):
+        members = [i for i, f in enumerate(families) if f.regime == regime]
+        rows = np.flatnonzero(np.isin(truth, members))
+        for name, values, axis in numeric_grid([families[i] for i in members]):
+            estimates = np.array([
+                estimate_on_axis(values, np.exp(logp[r, members] - logp[r, members].max()), axis) for r in rows
+            ])
+            ranges = []
+            for c in np.unique(cluster[rows]):
+                own = estimates[cluster[rows] == c]
+                if own.size >= 4:
+                    ranges.append(float(own.max() - own.min()))
+            if ranges:
+                out[(regime, name)] = float(np.quantile(ranges, PARAMETER_RANGE_QUANTILE))
+    return out
 
 
 def nuisance_log_odds_sd(scaled_loglik: np.ndarray, truth: np.ndarray, families: list[Family],

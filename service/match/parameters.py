@@ -43,7 +43,28 @@ def parameter_axis(values: np.ndarray) -> str:
     return "log" if unevenness(np.log(values)) < unevenness(values) else "linear"
 
 
-def interval_estimate(grid: np.ndarray, mass: np.ndarray) -> dict[str, Any]:
+def numeric_grid(families) -> list[tuple[str, np.ndarray, str]]:
+    """(name, value of each family, axis) of every numeric parameter that varies among ``families``."""
+    out = []
+    names = dict.fromkeys(n for f in families for n, v in f.parameters.items() if _numeric(v))
+    for name in names:
+        if not all(name in f.parameters for f in families):
+            continue
+        values = np.array([float(f.parameters[name]) for f in families])
+        if np.unique(values).size >= 2:
+            out.append((name, values, parameter_axis(values)))
+    return out
+
+
+def estimate_on_axis(values: np.ndarray, weights: np.ndarray, axis: str) -> float:
+    """The posterior median of a parameter, on its axis (see :func:`interval_estimate`)."""
+    grid = np.unique(values)
+    mass = np.array([weights[values == v].sum() for v in grid])
+    estimate = interval_estimate(grid, mass)["value"]
+    return float(np.log(estimate) if axis == "log" else estimate)
+
+
+def interval_estimate(grid: np.ndarray, mass: np.ndarray, nuisance_range: float = 0.0) -> dict[str, Any]:
     """Median, 95% highest-density interval and spread of a parameter from grid masses.
 
     Parameters
@@ -52,6 +73,9 @@ def interval_estimate(grid: np.ndarray, mass: np.ndarray) -> dict[str, Any]:
         The distinct library values of the parameter (any order).
     mass : ndarray
         Posterior probability of each (need not sum to one).
+    nuisance_range : float
+        How far drawing style alone moves the estimate (on the parameter's axis): the
+        interval reaches at least this far on both sides of the estimate.
     """
     order = np.argsort(grid)
     grid, mass = np.asarray(grid, float)[order], np.asarray(mass, float)[order]
@@ -77,6 +101,8 @@ def interval_estimate(grid: np.ndarray, mass: np.ndarray) -> dict[str, Any]:
     if g < u.size - 1:
         hi_u = max(hi_u, u[g] + 0.5 * (u[g + 1] - u[g]))
     lo_u, hi_u = min(lo_u, u[g]), max(hi_u, u[g])
+    # Never narrower than what the camera alone changes.
+    lo_u, hi_u = min(lo_u, median_u - nuisance_range), max(hi_u, median_u + nuisance_range)
     lo_u, hi_u = max(lo_u, u[0]), min(hi_u, u[-1])
     values = back(fine)
     mean = float(density @ values)
@@ -91,7 +117,7 @@ def interval_estimate(grid: np.ndarray, mass: np.ndarray) -> dict[str, Any]:
     }
 
 
-def parameter_estimates(families, probability: np.ndarray) -> dict[str, Any]:
+def parameter_estimates(families, probability: np.ndarray, nuisance_range: dict | None = None) -> dict[str, Any]:
     """Every numeric parameter that varies within a regime, estimated from ``probability``.
 
     Parameters
@@ -100,6 +126,10 @@ def parameter_estimates(families, probability: np.ndarray) -> dict[str, Any]:
         The model's families (``regime``, ``parameters``).
     probability : ndarray
         The specimen's (tempered) probability of each family.
+    nuisance_range : dict, optional
+        ``{(regime, parameter): range}``: how far drawing style alone moves the estimate
+        (``ReferenceModel.parameter_nuisance_range``); each interval reaches at least that far
+        on both sides of its estimate.
     """
     out: dict[str, Any] = {}
     for regime in dict.fromkeys(f.regime for f in families):
@@ -115,7 +145,7 @@ def parameter_estimates(families, probability: np.ndarray) -> dict[str, Any]:
                 continue
             w = weights[having]
             mass = np.array([w[values == v].sum() for v in grid])
-            estimate = interval_estimate(grid, mass)
+            estimate = interval_estimate(grid, mass, (nuisance_range or {}).get((regime, name), 0.0))
             lo, hi = estimate["ci95"]
             if estimate["spans_library_range"]:
                 note = (f"the 95% interval spans the whole library range ({grid.min():g} to {grid.max():g}): "
@@ -131,7 +161,8 @@ def parameter_estimates(families, probability: np.ndarray) -> dict[str, Any]:
                 "method": (
                     "median and 95% highest-density interval of the posterior over the library's values, "
                     f"log-posterior interpolated on a {estimate['axis']} axis; always holding the cell of the "
-                    "library value nearest the estimate (half-way to its neighbours)"
+                    "library value nearest the estimate (half-way to its neighbours) and reaching on both sides "
+                    "at least as far as drawing style alone moves the estimate"
                 ),
             }
     return out

@@ -245,7 +245,7 @@ def match(features, *, reference_set=None, mask: np.ndarray | None = None) -> Ma
     decided = verdict(model, probability, in_library)
     if not decided["confident"] and in_library:
         warnings.append(f"matching: {NO_CONFIDENT_VERDICT}: {decided['reason']}")
-    estimates = parameter_estimates(model.families, probability)
+    estimates = parameter_estimates(model.families, probability, model.parameter_nuisance_range)
     explanation = build_explanation(
         model=model, reference_set=reference_set, matches=matches, order=order, evaluation=evaluation,
         posterior=posterior, values=values, log_sites=log_sites, normalisation=normalisation,
