@@ -100,6 +100,11 @@ class FamilyStatistics:
         Mean ``log N_eq`` of each of those ensembles' rows.
     own_correlation : ndarray, shape (k, k)
         The family's correlations before shrinkage.
+    components : tuple of FamilyStatistics
+        The same fits made on the drawings of each branch thickness alone. The likelihood is
+        the equal mixture of these (the thickness of a specimen's branches, in sites, is
+        unknown), so a thick drawing is compared with thick drawings of every family;
+        empty when the rows carry one thickness only (then the overall fit is used).
     """
 
     knots: np.ndarray
@@ -109,6 +114,7 @@ class FamilyStatistics:
     ensemble_ids: np.ndarray
     ensemble_knots: np.ndarray
     own_correlation: np.ndarray
+    components: tuple = ()
 
     def at(self, log_sites: float) -> tuple[np.ndarray, np.ndarray]:
         """Mean and variance at a size (linear between knots, held beyond the ends)."""
@@ -120,6 +126,7 @@ class FamilyStatistics:
             self.knots, self.means, self.variances,
             (1.0 - shrinkage) * self.own_correlation + shrinkage * pooled_correlation,
             self.ensemble_ids, self.ensemble_knots, self.own_correlation,
+            tuple(c.with_shrinkage(pooled_correlation, shrinkage) for c in self.components),
         )
 
 
@@ -147,6 +154,9 @@ class Statistics:
 BANDWIDTH_LOG_SITES = 0.45
 #: Knots of the local fits per family.
 N_KNOTS = 24
+#: Model each family as an equal mixture over the drawing thicknesses (see
+#: ``FamilyStatistics.components``) rather than one Gaussian holding their spread.
+THICKNESS_MIXTURE = True
 
 
 def _local_fit(values: np.ndarray, log_sites: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -177,8 +187,9 @@ def _local_fit(values: np.ndarray, log_sites: np.ndarray) -> tuple[np.ndarray, n
     return knots, b0, variances
 
 
-def _family_fit(values, log_sites, ensemble, members) -> FamilyStatistics:
-    """A family's local fits and own correlations (shrinkage applied later)."""
+def _family_fit(values, log_sites, ensemble, members, style=None) -> FamilyStatistics:
+    """A family's local fits and own correlations (shrinkage applied later), with one
+    component per drawing thickness when ``style`` (each row's thickness level) is given."""
     knots, means, variances = _local_fit(values, log_sites)
     variances = (1.0 - VARIANCE_POOLING) * variances + VARIANCE_POOLING * variances.mean(axis=0)
     fitted = FamilyStatistics(knots, means, variances, np.eye(values.shape[1]), np.array([]), np.array([]),
@@ -191,7 +202,13 @@ def _family_fit(values, log_sites, ensemble, members) -> FamilyStatistics:
     present = [e for e in members if np.any(ensemble == e)]
     sizes = np.array([log_sites[ensemble == e].mean() for e in present])
     order = np.argsort(sizes, kind="stable")
-    return FamilyStatistics(knots, means, variances, own, np.asarray(present)[order], sizes[order], own)
+    components = ()
+    if THICKNESS_MIXTURE and style is not None and np.unique(style).size > 1:
+        components = tuple(
+            _family_fit(values[style == level], log_sites[style == level], ensemble[style == level], members)
+            for level in np.unique(style)
+        )
+    return FamilyStatistics(knots, means, variances, own, np.asarray(present)[order], sizes[order], own, components)
 
 
 def _at_many(family: FamilyStatistics, log_sites: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -221,6 +238,12 @@ def _evaluate_many(families: list[FamilyStatistics], floor: np.ndarray, values: 
     d2 = np.empty((n, len(families)))
     loglik = np.empty((n, len(families)))
     for f, fam in enumerate(families):
+        if fam.components:
+            # Equal mixture over the drawing thicknesses; the distance is the nearest component's.
+            d2_c, ll_c = _evaluate_many(list(fam.components), floor, values, log_sites)
+            loglik[:, f] = special.logsumexp(ll_c, axis=1) - np.log(len(fam.components))
+            d2[:, f] = d2_c.min(axis=1)
+            continue
         mean, variance = _at_many(fam, log_sites)
         sd = np.sqrt(variance)
         covariance = fam.correlation[None] * sd[:, :, None] * sd[:, None, :] + np.diag(floor)[None]
@@ -250,7 +273,8 @@ def _fit_families(table: ReferenceTable, families: list[Family]) -> tuple[list[F
     fits, residuals = [], []
     for f, family in enumerate(families):
         rows = family_of[table.ensemble] == f
-        fit = _family_fit(table.values[rows], table.log_sites[rows], table.ensemble[rows], list(family.ensembles))
+        fit = _family_fit(table.values[rows], table.log_sites[rows], table.ensemble[rows], list(family.ensembles),
+                          table.style[rows])
         fits.append(fit)
         residuals.append(_standardised_residuals(fit, table.values[rows], table.log_sites[rows]))
     z = np.concatenate(residuals)
@@ -309,17 +333,9 @@ def _evaluate(statistics: Statistics, values: np.ndarray, log_sites: float,
     for f, fam in enumerate(families):
         mean[f], variance[f] = fam.at(log_sites)
         where.append(interpolate(fam.ensemble_knots, log_sites))
-    sd = np.sqrt(variance)
-    covariance = np.stack([fam.correlation for fam in families]) * sd[:, :, None] * sd[:, None, :]
-    covariance += np.diag(statistics.floor)[None]
-    sign, logdet = np.linalg.slogdet(covariance)
-    if np.any(sign <= 0):
-        raise LibraryError("a reference covariance is not positive definite: a feature does not vary in the library")
-    diff = values[None, :] - mean
-    d2 = np.einsum("fi,fi->f", diff, np.linalg.solve(covariance, diff[:, :, None])[:, :, 0])
-    loglik = -0.5 * d2 - 0.5 * logdet - 0.5 * k * np.log(2 * np.pi)
-    spread = np.sqrt(np.diagonal(covariance, axis1=1, axis2=2))
-    return Evaluation(d2, loglik, mean, spread, where)
+    spread = np.sqrt(variance + statistics.floor[None, :])
+    d2, loglik = _evaluate_many(families, statistics.floor, values[None, :], np.array([log_sites]))
+    return Evaluation(d2[0], loglik[0], mean, spread, where)
 
 
 def _held_out_refits(table: ReferenceTable, families: list[Family], n_ensembles: int):
@@ -332,7 +348,8 @@ def _held_out_refits(table: ReferenceTable, families: list[Family], n_ensembles:
         f = int(family_of[table.ensemble[rows[0]]])
         keep = np.flatnonzero((family_of[table.ensemble] == f) & (cluster != c))
         refits[int(c)] = (f, rows, _family_fit(
-            table.values[keep], table.log_sites[keep], table.ensemble[keep], list(families[f].ensembles)
+            table.values[keep], table.log_sites[keep], table.ensemble[keep], list(families[f].ensembles),
+            table.style[keep],
         ))
     return refits
 
