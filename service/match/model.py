@@ -228,7 +228,10 @@ def _at_many(family: FamilyStatistics, log_sites: np.ndarray) -> tuple[np.ndarra
 def _standardised_residuals(family: FamilyStatistics, values, log_sites) -> np.ndarray:
     """Each row's residual from the family's mean at its size, in the family's spreads there."""
     mean, variance = _at_many(family, np.asarray(log_sites, dtype=float))
-    return (values - mean) / np.sqrt(variance)
+    sd = np.sqrt(variance)
+    # A feature that does not vary in a family (no enclosed pores in any compact drawing,
+    # say) has no standardised residual: zero, not NaN.
+    return np.divide(values - mean, sd, out=np.zeros(np.broadcast_shapes(values.shape, sd.shape)), where=sd > 0)
 
 
 def _evaluate_many(families: list[FamilyStatistics], floor: np.ndarray, values: np.ndarray,
