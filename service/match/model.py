@@ -441,11 +441,12 @@ class ReferenceModel:
         stretch = max(1.0, nearest_d2 / self.inlier_d2) if self.inlier_d2 > 0 else 1.0
         temperature = self.temperature * stretch
         scaled = evaluation.loglik / temperature
-        probability = special.softmax(scaled)
+        tempered = special.softmax(scaled)
+        probability = tempered
         outside = max(0.0, 1.0 - self.novelty_d2 / nearest_d2) if nearest_d2 > self.novelty_d2 else 0.0
         if outside > 0:
-            probability = (1.0 - outside) * probability + outside / probability.size
-        return Posterior(probability, float(temperature), float(stretch), float(outside))
+            probability = (1.0 - outside) * tempered + outside / tempered.size
+        return Posterior(probability, float(temperature), float(stretch), float(outside), tempered)
 
 
 @dataclass(frozen=True, eq=False)
@@ -456,6 +457,7 @@ class Posterior:
     temperature: float
     stretch: float
     outside_weight: float
+    tempered: np.ndarray  # before the equal-odds mixing: where the parameters lie within a regime
 
     @property
     def log_probability(self) -> np.ndarray:

@@ -245,7 +245,29 @@ def match(features, *, reference_set=None, mask: np.ndarray | None = None) -> Ma
     decided = verdict(model, probability, in_library)
     if not decided["confident"] and in_library:
         warnings.append(f"matching: {NO_CONFIDENT_VERDICT}: {decided['reason']}")
-    estimates = parameter_estimates(model.families, probability, model.parameter_nuisance_range)
+    # Within a regime, where a parameter lies is read from the distance-tempered posterior; the
+    # equal-odds mixing beyond the novelty threshold (doubt about the family) widens its
+    # interval but does not drag the estimate towards the middle of the grid.
+    estimates = parameter_estimates(model.families, posterior.tempered, model.parameter_nuisance_range)
+    if posterior.outside_weight > 0:
+        mixed = parameter_estimates(model.families, probability, model.parameter_nuisance_range)
+        for regime, parameters in estimates.items():
+            for name, estimate in parameters.items():
+                lo = min(estimate["ci95"][0], mixed[regime][name]["ci95"][0])
+                hi = max(estimate["ci95"][1], mixed[regime][name]["ci95"][1])
+                grid = estimate["values_in_library"]
+                estimate["ci95"] = [lo, hi]
+                estimate["spans_library_range"] = bool(lo <= min(grid) + 1e-6 and hi >= max(grid) - 1e-6)
+                estimate["note"] = (
+                    f"{OUTSIDE_WORDS}: " + (
+                        f"the 95% interval spans the whole library range ({min(grid):g} to {max(grid):g})"
+                        if estimate["spans_library_range"] else f"{name} between {lo:.3g} and {hi:.3g} (95%)"
+                    ) + f", estimate {estimate['value']:.3g}"
+                )
+    for regime, parameters in estimates.items():
+        regime_probability = float(sum(p for f, p in zip(model.families, probability) if f.regime == regime))
+        for estimate in parameters.values():
+            estimate["regime_probability"] = regime_probability
     explanation = build_explanation(
         model=model, reference_set=reference_set, matches=matches, order=order, evaluation=evaluation,
         posterior=posterior, values=values, log_sites=log_sites, normalisation=normalisation,

@@ -71,6 +71,7 @@ def test_continuous_parameters_are_estimated_with_an_interval(dla_result):
             assert 0 <= estimate["regime_probability"] <= 1
             assert estimate["spans_library_range"] == (lo <= min(grid) + 1e-6 and hi >= max(grid) - 1e-6)
             assert ("whole library range" in estimate["note"]) == estimate["spans_library_range"]
+            assert ("outside every reference" in estimate["note"]) == (not dla_result["in_library"])
     assert "eta" in estimates["dbm"]
 
 
