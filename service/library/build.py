@@ -37,7 +37,11 @@ from service.library.storage import (
 )
 
 #: Simulator parameters of every ensemble, per regime. A new regime or parameter value is
-#: one more entry here (and a rebuild); the matcher reads the grid back from the manifest.
+#: one more entry here and one in ``DEFAULT_SIZES`` (and a rebuild, then
+#: ``service.match.build_feature_cache``); the matcher reads the grid back from the manifest,
+#: and sums families that differ only in a parameter it does not estimate (a DBM outer
+#: electrode's distance, say) when it estimates the others. A regime of a known universality
+#: class is named in ``service.match.universality``.
 PARAMETER_GRID: dict[str, tuple[dict[str, Any], ...]] = {
     "dla": tuple(
         {"neighborhood": neighborhood, "sticking": sticking}
@@ -67,6 +71,14 @@ def _preset(
 
 
 _FULL_SIZES = (1000, 3000, 10000, 30000)
+#: Cluster sizes of each regime in the ``default`` preset.
+DEFAULT_SIZES: dict[str, tuple[int, ...]] = {
+    "dla": _FULL_SIZES, "eden": _FULL_SIZES, "ballistic": _FULL_SIZES, "dbm": (1000, 3000),
+}
+#: (regime, parameters, sizes) rows of ``default`` that differ from ``DEFAULT_SIZES``.
+DEFAULT_OVERRIDES: tuple[tuple[str, dict[str, Any], tuple[int, ...]], ...] = (
+    ("dbm", {"eta": 3.0}, (1000,)), ("dbm", {"eta": 4.0}, (1000,)),
+)
 
 #: Named presets. ``default`` is the bundled set; ``tiny`` grows every regime and parameter
 #: at a very small size, for tests of the build itself.
@@ -76,11 +88,7 @@ _FULL_SIZES = (1000, 3000, 10000, 30000)
 #: a disc growing with their length (eta 4: about 9 s at 1,000 sites, 420 s at 3,000) and
 #: already span as many sites at 1,000 as a DLA cluster of ten times that mass.
 PRESETS: dict[str, tuple[EnsembleSpec, ...]] = {
-    "default": _preset(
-        {"dla": _FULL_SIZES, "eden": _FULL_SIZES, "ballistic": _FULL_SIZES, "dbm": (1000, 3000)},
-        n_realisations=16,
-        overrides=(("dbm", {"eta": 3.0}, (1000,)), ("dbm", {"eta": 4.0}, (1000,))),
-    ),
+    "default": _preset(DEFAULT_SIZES, n_realisations=16, overrides=DEFAULT_OVERRIDES),
     "tiny": _preset({regime: (200,) for regime in PARAMETER_GRID}, n_realisations=2),
 }
 
@@ -117,7 +125,12 @@ def estimated_seconds(regime: str, parameters: dict[str, Any], n_particles: int)
         at_1000 = np.interp(eta, [0.5, 1.0, 1.5, 2.0, 3.0, 4.0], [0.7, 1.5, 3.0, 4.0, 7.2, 8.6])
         exponent = np.interp(eta, [2.0, 3.0, 4.0], [1.2, 2.5, 3.5])
         return float(at_1000 * (n / 1000.0) ** exponent)
-    return {"dla": 1.3e-5, "eden": 1e-7, "ballistic": 4e-7}.get(regime, 1e-5) * n
+    return SECONDS_PER_SITE.get(regime, 1e-5) * n
+
+
+#: Single-core seconds per grown site of the regimes whose cost grows linearly (DBM is modelled
+#: in ``estimated_seconds``).
+SECONDS_PER_SITE: dict[str, float] = {"dla": 1.3e-5, "eden": 1e-7, "ballistic": 4e-7}
 
 
 # --------------------------------------------------------------------------- Dask

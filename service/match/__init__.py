@@ -7,26 +7,35 @@
 from service.match.cache import ReferenceTable, build_feature_cache, load_reference_table
 from service.match.model import ReferenceModel, families_of, fit_model, held_out_scores
 from service.match.normalise import NormalisedMask, normalise
-from service.match.ranking import UNIVERSALITY_CLASSES, match_features, reference_model, universality_class
+from service.match.nuisance import DrawingStyle, draw_cluster, drawing_styles, nuisance_grid
+from service.match.ranking import MatchResult, match, match_features, reference_model
+from service.match.universality import UNIVERSALITY_CLASSES, universality_class, verdict_of
 from service.match.vector import FEATURE_NAMES, FEATURE_SCHEMA, LatticeVector, lattice_features, reference_photo_mask
 
 __all__ = [
+    "DrawingStyle",
     "FEATURE_NAMES",
     "FEATURE_SCHEMA",
     "LatticeVector",
+    "MatchResult",
     "NormalisedMask",
     "ReferenceModel",
     "ReferenceTable",
     "UNIVERSALITY_CLASSES",
     "build_feature_cache",
+    "draw_cluster",
+    "drawing_styles",
     "families_of",
     "fit_model",
     "held_out_scores",
     "lattice_features",
     "load_reference_table",
+    "match",
     "match_features",
     "normalise",
+    "nuisance_grid",
     "reference_model",
     "reference_photo_mask",
     "universality_class",
+    "verdict_of",
 ]

@@ -7,13 +7,15 @@ ties it to the very clusters it was computed from.
 
 from __future__ import annotations
 
+import json
 import time
 from dataclasses import dataclass
 
 import numpy as np
 
 from service.errors import LibraryError
-from service.match.vector import FEATURE_NAMES, FEATURE_SCHEMA, reference_vector
+from service.match.nuisance import THICKNESS_SITES, n_styles, nuisance_grid
+from service.match.vector import FEATURE_NAMES, FEATURE_SCHEMA, reference_vectors
 
 #: Name of the cache entry in the reference set's ``cache/`` folder.
 CACHE_NAME = f"match-features-v{FEATURE_SCHEMA}"
@@ -24,7 +26,7 @@ AUTO_BUILD_MAX_CLUSTERS = 240
 
 @dataclass(frozen=True, eq=False)
 class ReferenceTable:
-    """Feature vectors of every cluster of a reference set.
+    """Feature vectors of every cluster of a reference set, one row per (cluster, drawing style).
 
     Attributes
     ----------
@@ -39,7 +41,14 @@ class ReferenceTable:
         Index of each cluster's ensemble in ``reference_set.ensembles``.
     realisation : ndarray of int, shape (n_clusters,)
         Index of the cluster within its ensemble.
+    style : ndarray of int, shape (n_rows,)
+        Index of the drawing style (:func:`service.match.nuisance.drawing_styles`) of each row.
+    thickness_sites : ndarray of float, shape (n_rows,)
+        Branch width, in lattice sites, the row's drawing gave the cluster.
     feature_names : tuple of str
+
+    Every per-cluster column has one entry per row: a cluster drawn in four styles fills
+    four rows with the same ``ensemble`` and ``realisation``.
     """
 
     values: np.ndarray
@@ -48,17 +57,27 @@ class ReferenceTable:
     connected_fraction: np.ndarray
     ensemble: np.ndarray
     realisation: np.ndarray
+    style: np.ndarray
+    thickness_sites: np.ndarray
     feature_names: tuple[str, ...] = FEATURE_NAMES
+
+    @property
+    def cluster(self) -> np.ndarray:
+        """One integer per cluster (rows of one cluster share it), in row order."""
+        _, index = np.unique(np.stack([self.ensemble, self.realisation], axis=1), axis=0, return_inverse=True)
+        return index.ravel()
 
     def arrays(self) -> dict[str, np.ndarray]:
         return {name: getattr(self, name) for name in _COLUMNS}
 
 
-_COLUMNS = ("values", "log_sites", "scale_px", "connected_fraction", "ensemble", "realisation")
+_COLUMNS = (
+    "values", "log_sites", "scale_px", "connected_fraction", "ensemble", "realisation", "style", "thickness_sites",
+)
 
 
 def _task(arrival_order: np.ndarray, ensemble):
-    return reference_vector(arrival_order)
+    return reference_vectors(arrival_order)
 
 
 def compute_reference_table(
@@ -74,17 +93,20 @@ def compute_reference_table(
     else:
         results = reference_set.map_clusters(_task, scheduler=scheduler, workers=workers, progress=progress)
     rows = [
-        (index, realisation, vector)
+        (index, realisation, style, vector)
         for index, e in enumerate(reference_set.ensembles)
-        for realisation, vector in enumerate(results[e.id])
+        for realisation, vectors in enumerate(results[e.id])
+        for style, vector in vectors
     ]
     return ReferenceTable(
-        values=np.array([v.values for _, _, v in rows], dtype=np.float64).reshape(len(rows), len(FEATURE_NAMES)),
-        log_sites=np.log(np.array([v.n_sites for _, _, v in rows], dtype=np.float64)),
-        scale_px=np.array([v.scale_px for _, _, v in rows], dtype=np.float64),
-        connected_fraction=np.array([v.connected_fraction for _, _, v in rows], dtype=np.float64),
-        ensemble=np.array([e for e, _, _ in rows], dtype=np.int64),
-        realisation=np.array([r for _, r, _ in rows], dtype=np.int64),
+        values=np.array([v.values for *_, v in rows], dtype=np.float64).reshape(len(rows), len(FEATURE_NAMES)),
+        log_sites=np.log(np.array([v.n_sites for *_, v in rows], dtype=np.float64)),
+        scale_px=np.array([v.scale_px for *_, v in rows], dtype=np.float64),
+        connected_fraction=np.array([v.connected_fraction for *_, v in rows], dtype=np.float64),
+        ensemble=np.array([e for e, *_ in rows], dtype=np.int64),
+        realisation=np.array([r for _, r, *_ in rows], dtype=np.int64),
+        style=np.array([s for _, _, s, _ in rows], dtype=np.int64),
+        thickness_sites=np.array([THICKNESS_SITES[s] for _, _, s, _ in rows], dtype=np.float64),
     )
 
 
@@ -93,9 +115,10 @@ def build_feature_cache(
 ) -> ReferenceTable:
     """Compute the matcher's feature vector of every reference cluster and cache it.
 
-    Each cluster is drawn as a segmented photograph would show it
-    (:func:`service.match.vector.reference_photo_mask`), normalised and measured exactly as
-    a specimen is; one Dask task per cluster (``ReferenceSet.map_clusters``).
+    Each cluster is drawn in its styles of the nuisance grid
+    (:mod:`service.match.nuisance`: branch thickness 0.7 to 2 sites, blur, threshold level,
+    JPEG), and each drawing normalised and measured exactly as a specimen is; one Dask task
+    per cluster (``ReferenceSet.map_clusters``). The grid is stored beside the vectors.
 
     Parameters
     ----------
@@ -122,7 +145,13 @@ def build_feature_cache(
 
 def _write(reference_set, table: ReferenceTable, wall_s: float) -> None:
     reference_set.write_cache(
-        CACHE_NAME, {**table.arrays(), "feature_names": np.array(FEATURE_NAMES), "wall_s": np.array(wall_s)}
+        CACHE_NAME,
+        {
+            **table.arrays(),
+            "feature_names": np.array(FEATURE_NAMES),
+            "nuisance_grid": np.array(json.dumps(nuisance_grid(), sort_keys=True)),
+            "wall_s": np.array(wall_s),
+        },
     )
 
 
@@ -146,11 +175,12 @@ def load_reference_table(reference_set, *, build_if_missing: bool | None = None)
         cached is not None
         and all(name in cached for name in (*_COLUMNS, "feature_names"))
         and tuple(str(n) for n in cached["feature_names"]) == FEATURE_NAMES
+        and str(cached.get("nuisance_grid", "")) == json.dumps(nuisance_grid(), sort_keys=True)
     ):
         n = len(cached["ensemble"])
         if np.array_equal(
             np.bincount(cached["ensemble"], minlength=len(reference_set.ensembles)),
-            [e.n_realisations for e in reference_set.ensembles],
+            [e.n_realisations * n_styles(e.n_particles) for e in reference_set.ensembles],
         ) and cached["values"].shape == (n, len(FEATURE_NAMES)):
             return ReferenceTable(**{name: cached[name] for name in _COLUMNS})
     n_clusters = sum(e.n_realisations for e in reference_set.ensembles)
@@ -171,15 +201,18 @@ def load_reference_table(reference_set, *, build_if_missing: bool | None = None)
 def cache_discrepancy(reference_set, table: ReferenceTable, n_checks: int = 3) -> float:
     """Largest difference between cached vectors and the same clusters measured afresh.
 
-    The first realisation of ``n_checks`` ensembles spread through the set is recomputed;
+    The first realisation of ``n_checks`` ensembles spread through the set is drawn again in
+    its thickest cached style (the cheapest drawing) and measured;
     a difference means the measurement code changed since the cache was built (rebuild it
     with :func:`build_feature_cache`). Costs a fraction of a second.
     """
     picks = np.unique(np.linspace(0, len(reference_set.ensembles) - 1, n_checks).round().astype(int))
     worst = 0.0
     for index in picks:
-        row = int(np.flatnonzero((table.ensemble == index) & (table.realisation == 0))[0])
-        fresh = reference_vector(reference_set.arrival_order(reference_set.ensembles[index], 0))
+        rows = np.flatnonzero((table.ensemble == index) & (table.realisation == 0))
+        row = int(rows[np.argmax(table.style[rows])])
+        fresh = reference_vectors(reference_set.arrival_order(reference_set.ensembles[index], 0),
+                                  (int(table.style[row]),))[0][1]
         worst = max(worst, float(np.max(np.abs(fresh.values - table.values[row]))),
                     abs(float(np.log(fresh.n_sites)) - float(table.log_sites[row])))
     return worst

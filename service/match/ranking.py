@@ -1,74 +1,83 @@
 """Rank a measured specimen against a reference set: the matcher's public entry.
 
-Only the universality table below names regimes; everything else reads the regimes and
-parameters from the reference set's manifest, so a new regime or parameter value in the
-library needs no change here.
+Everything here reads the regimes and parameters from the reference set's manifest, so a new
+regime or parameter value in the library needs no change. Which families are one answer is
+said in :mod:`service.match.universality`; the explanation is built in
+:mod:`service.match.explanation`; parameter intervals in :mod:`service.match.parameters`.
 """
 
 from __future__ import annotations
 
 import threading
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import numpy as np
-from scipy import special
 
 from service.errors import SpecimenError
 from service.match.cache import _as_reference_set, cache_discrepancy, load_reference_table
+from service.match.explanation import NO_CONFIDENT_VERDICT, OUTSIDE_WORDS, build_explanation
 from service.match.model import CONNECTED_MARGIN, ReferenceModel, fit_model
+from service.match.parameters import parameter_estimates
 from service.match.persist import load_or_fit
-from service.match.vector import FEATURE_SCHEMA, FEATURES, specimen_vector
+from service.match.universality import UNIVERSALITY_CLASSES, universality_class, verdict_of
+from service.match.vector import specimen_vector
 
-#: Families that belong to one universality class, so either answer is right for either.
-#: Members are (regime, {parameter: (low, high)}); a regime with no bounds matches any of
-#: its parameter sets.
-UNIVERSALITY_CLASSES: tuple[dict[str, Any], ...] = (
-    {
-        "name": "diffusion-limited growth",
-        "members": (("dla", {}), ("dbm", {"eta": (1.0, 1.0)})),
-        "note": (
-            "DLA and the dielectric breakdown model with eta = 1 belong to one universality class "
-            "(growth probability proportional to the Laplacian field; Niemeyer, Pietronero & Wiesmann, "
-            "Phys. Rev. Lett. 52, 1033, 1984): either answer is right for either."
-        ),
-    },
-    {
-        "name": "compact growth",
-        "members": (("eden", {}), ("dbm", {"eta": (0.0, 0.5)})),
-        "note": (
-            "Eden growth and the dielectric breakdown model with eta near 0 belong to one universality "
-            "class (at eta = 0 every perimeter site is equally likely, which is Eden's rule; Niemeyer, "
-            "Pietronero & Wiesmann 1984): either answer is right for either."
-        ),
-    },
-)
-#: Features listed in the explanation as deciding between the best and the runner-up.
-N_DECIDING = 4
-#: Features of a specimen beyond this many reference spreads are named when it is out of library.
-OUTLIER_Z = 3.0
+__all__ = ["MatchResult", "UNIVERSALITY_CLASSES", "match", "match_features", "reference_model", "universality_class"]
 
 #: Cached reference vectors may differ from fresh ones by rounding only.
 CACHE_TOLERANCE = 1e-9
+#: The verdict is withheld when the log-odds of the best verdict against the next are within
+#: this many nuisance spreads (``ReferenceModel.nuisance_log_odds_sd``) of even: another
+#: camera could then turn the answer round (two-sided 95% of a normal spread).
+ABSTAIN_Z = 1.96
+#: ... and whatever that spread, a verdict needs at least this probability.
+MIN_VERDICT_PROBABILITY = 0.5
 
 _MODELS: dict[tuple[str, str], ReferenceModel] = {}
 _DEFAULT_SET: list = []
 _LOCK = threading.Lock()
 
 
-def universality_class(regime: str, parameters: dict) -> str | None:
-    """Name of the universality class (from ``UNIVERSALITY_CLASSES``) a family belongs to."""
-    for entry in UNIVERSALITY_CLASSES:
-        for member_regime, bounds in entry["members"]:
-            if member_regime == regime and all(
-                name in parameters and lo <= float(parameters[name]) <= hi for name, (lo, hi) in bounds.items()
-            ):
-                return entry["name"]
-    return None
+@dataclass(frozen=True)
+class MatchResult:
+    """The ranking of one specimen against a reference set.
 
+    Attributes
+    ----------
+    matches : tuple of dict
+        Every family, best first: ``regime``, ``parameters``, ``probability``, ``distance``
+        (Mahalanobis, at the specimen's size) and the ``ensembles`` interpolated.
+    in_library : bool
+        False when even the nearest family is beyond the novelty threshold, or the specimen
+        is in pieces while every reference is one aggregate.
+    parameter_estimates : dict
+        ``{regime: {parameter: {value, ci95, std, spans_library_range, note, ...}}}``.
+    explanation : dict
+        The verdict in words, the deciding features, novelty and calibration records.
+    warnings : tuple of str
+    """
 
-def _class_note(name: str | None) -> str | None:
-    return next((e["note"] for e in UNIVERSALITY_CLASSES if e["name"] == name), None)
+    matches: tuple[dict[str, Any], ...]
+    in_library: bool
+    parameter_estimates: dict[str, Any]
+    explanation: dict[str, Any]
+    warnings: tuple[str, ...] = ()
+
+    @property
+    def verdict(self) -> dict[str, Any] | None:
+        return self.explanation.get("verdict")
+
+    def to_dict(self) -> dict[str, Any]:
+        """The matching keys of the analysis JSON."""
+        return {
+            "matches": [dict(m) for m in self.matches],
+            "in_library": bool(self.in_library),
+            "parameter_estimates": self.parameter_estimates,
+            "explanation": self.explanation,
+            "warnings": list(self.warnings),
+        }
 
 
 def _resolve(reference_set):
@@ -103,40 +112,6 @@ def fit_reference_model(reference_set) -> ReferenceModel:
     return model
 
 
-def _numeric(value: Any) -> bool:
-    return isinstance(value, (int, float)) and not isinstance(value, bool)
-
-
-def _parameter_estimates(model: ReferenceModel, scaled_loglik: np.ndarray) -> dict[str, Any]:
-    """Posterior-weighted mean and spread of every numeric parameter that varies in a regime.
-
-    Within a regime the family posteriors are renormalised, so the mean interpolates between
-    the library's values (e.g. eta between 2 and 3) and the spread says how sharply the
-    references decide.
-    """
-    regime_probability = special.softmax(scaled_loglik)
-    out: dict[str, Any] = {}
-    for regime in dict.fromkeys(f.regime for f in model.families):
-        members = [i for i, f in enumerate(model.families) if f.regime == regime]
-        weights = special.softmax(scaled_loglik[members])
-        names = dict.fromkeys(n for i in members for n, v in model.families[i].parameters.items() if _numeric(v))
-        for name in names:
-            having = [k for k, i in enumerate(members) if name in model.families[members[k]].parameters]
-            values = np.array([float(model.families[members[k]].parameters[name]) for k in having])
-            if np.unique(values).size < 2:
-                continue
-            w = weights[having] / weights[having].sum()
-            mean = float(w @ values)
-            out.setdefault(regime, {})[name] = {
-                "value": mean,
-                "std": float(np.sqrt(max(float(w @ (values - mean) ** 2), 0.0))),
-                "values_in_library": sorted(set(values.tolist())),
-                "regime_probability": float(regime_probability[members].sum()),
-                "method": "posterior-weighted mean over the regime's families (interpolates between library values)",
-            }
-    return out
-
-
 def _family_entry(model: ReferenceModel, reference_set, f: int, probability: float, d2: float, where) -> dict[str, Any]:
     family = model.families[f]
     i, j, t = where
@@ -150,18 +125,45 @@ def _family_entry(model: ReferenceModel, reference_set, f: int, probability: flo
     }
 
 
-def _label(match: dict[str, Any]) -> str:
-    parameters = ", ".join(f"{k}={v}" for k, v in match["parameters"].items())
-    return (f"{match['regime']}{f' ({parameters})' if parameters else ''}: probability "
-            f"{match['probability']:.2f}, Mahalanobis distance {match['distance']:.2f}")
+def verdict(model: ReferenceModel, probability: np.ndarray, in_library: bool) -> dict[str, Any]:
+    """The verdict (universality class or regime) and whether it is confident.
+
+    Families are summed into verdicts (:func:`service.match.universality.verdict_of`). The
+    verdict is withheld ("no confident verdict") when its log-odds against the next verdict
+    are within ``ABSTAIN_Z`` nuisance spreads of even, when its probability is below
+    ``MIN_VERDICT_PROBABILITY``, or when the specimen is outside every reference.
+    """
+    names = [verdict_of(f.regime, f.parameters) for f in model.families]
+    totals: dict[str, float] = {}
+    for name, p in zip(names, probability):
+        totals[name] = totals.get(name, 0.0) + float(p)
+    ranked = sorted(totals.items(), key=lambda kv: -kv[1])
+    best, p_best = ranked[0]
+    p_next = ranked[1][1] if len(ranked) > 1 else 0.0
+    log_odds = float(np.log(max(p_best, 1e-300)) - np.log(max(p_next, 1e-300)))
+    needed = ABSTAIN_Z * model.nuisance_log_odds_sd
+    reason = None
+    if not in_library:
+        reason = OUTSIDE_WORDS
+    elif p_best < MIN_VERDICT_PROBABILITY:
+        reason = f"the best verdict has probability {p_best:.2f}"
+    elif log_odds < needed:
+        reason = (f"{best} and {ranked[1][0]} are not separated beyond what drawing style alone changes "
+                  f"(log-odds {log_odds:.2f} < {needed:.2f})")
+    return {
+        "name": best if reason is None else NO_CONFIDENT_VERDICT,
+        "best": best,
+        "probability": p_best,
+        "runner_up": ranked[1][0] if len(ranked) > 1 else None,
+        "log_odds": log_odds,
+        "needed_log_odds": needed,
+        "confident": reason is None,
+        "reason": reason,
+        "probabilities": dict(ranked),
+    }
 
 
-def _feature_row(evaluation, values, f: int, n: int) -> dict[str, float]:
-    mean, sd = float(evaluation.mean[f, n]), float(evaluation.sd[f, n])
-    return {"mean": mean, "sd": sd, "z": float((values[n] - mean) / sd)}
-
-
-def match_features(features, *, reference_set=None, mask: np.ndarray | None = None) -> dict[str, Any]:
+def match(features, *, reference_set=None, mask: np.ndarray | None = None) -> MatchResult:
     """Rank a specimen against every regime and parameter set of a reference set.
 
     Parameters
@@ -176,22 +178,19 @@ def match_features(features, *, reference_set=None, mask: np.ndarray | None = No
 
     Returns
     -------
-    dict
-        ``matches`` (best first: ``regime``, ``parameters``, ``probability``, ``distance``
-        = Mahalanobis distance to the family at the specimen's size, and the ensembles
-        interpolated), ``in_library``, ``parameter_estimates``, ``explanation``,
-        ``warnings``.
+    MatchResult
 
     Notes
     -----
     The specimen is resampled to one branch width per site (``normalise``) and measured on
-    that lattice (``lattice_features``); references went through the same two steps from
-    photograph-like drawings of every library cluster. Family means are interpolated in
-    ``log N_eq``; each family's likelihood is Gaussian with its shrunk covariance; the
-    posterior (uniform prior over families) is tempered by the temperature fitted on held-
-    out references. ``in_library`` is false when even the nearest family is farther than
-    the novelty threshold (``ReferenceModel.novelty_d2``), or when the specimen is in pieces
-    while every reference is one connected aggregate.
+    that lattice (``lattice_features``). The references went through the same two steps
+    from drawings of every library cluster in several styles (branch thickness, blur,
+    threshold level, JPEG: :mod:`service.match.nuisance`), so each family's spread holds
+    what the drawing changes as well as what growth does. Family means and spreads are
+    local fits on ``log N_eq``; each family's likelihood is Gaussian with its shrunk
+    covariance; the posterior (uniform prior over families) is tempered by the temperature
+    fitted on held-out references and further by the specimen's distance from the
+    references (:meth:`ReferenceModel.posterior`).
 
     References
     ----------
@@ -208,18 +207,18 @@ def match_features(features, *, reference_set=None, mask: np.ndarray | None = No
     try:
         vector, normalisation = specimen_vector(mask)
     except SpecimenError as exc:
-        return {
-            "matches": [],
-            "in_library": False,
-            "parameter_estimates": {},
-            "explanation": {"summary": f"not compared with the references: {exc}"},
-            "warnings": [f"matching: {exc}"],
-        }
+        return MatchResult(
+            matches=(),
+            in_library=False,
+            parameter_estimates={},
+            explanation={"summary": f"not compared with the references: {exc}"},
+            warnings=(f"matching: {exc}",),
+        )
     values, log_sites = vector.values, float(np.log(vector.n_sites))
     evaluation = model.evaluate(values, log_sites)
+    posterior = model.posterior(evaluation)
+    probability = posterior.probability
     d2 = evaluation.d2
-    scaled = evaluation.loglik / model.temperature
-    probability = special.softmax(scaled)
     order = np.argsort(-probability, kind="stable")
     nearest = int(np.argmin(d2))
     connected = vector.connected_fraction >= model.min_connected_fraction - CONNECTED_MARGIN
@@ -246,75 +245,52 @@ def match_features(features, *, reference_set=None, mask: np.ndarray | None = No
         )
     elif not in_library:
         warnings.append(
-            f"matching: the specimen lies outside every reference ensemble (nearest Mahalanobis distance "
-            f"{np.sqrt(d2[nearest]):.1f} > {np.sqrt(model.novelty_d2):.1f}); the ranking is only relative"
+            f"matching: {OUTSIDE_WORDS} (nearest Mahalanobis distance {np.sqrt(d2[nearest]):.1f} > "
+            f"{np.sqrt(model.novelty_d2):.1f}); the probabilities are tempered by that distance and the ranking "
+            "is only relative"
         )
+    decided = verdict(model, probability, in_library)
+    if not decided["confident"] and in_library:
+        warnings.append(f"matching: {NO_CONFIDENT_VERDICT}: {decided['reason']}")
+    # Within a regime, where a parameter lies is read from the distance-tempered posterior; the
+    # equal-odds mixing beyond the novelty threshold (doubt about the family) widens its
+    # interval but does not drag the estimate towards the middle of the grid.
+    estimates = parameter_estimates(model.families, posterior.tempered, model.parameter_nuisance_range)
+    if posterior.outside_weight > 0:
+        mixed = parameter_estimates(model.families, probability, model.parameter_nuisance_range)
+        for regime, parameters in estimates.items():
+            for name, estimate in parameters.items():
+                lo = min(estimate["ci95"][0], mixed[regime][name]["ci95"][0])
+                hi = max(estimate["ci95"][1], mixed[regime][name]["ci95"][1])
+                grid = estimate["values_in_library"]
+                estimate["ci95"] = [lo, hi]
+                estimate["spans_library_range"] = bool(lo <= min(grid) + 1e-6 and hi >= max(grid) - 1e-6)
+                estimate["note"] = (
+                    f"{OUTSIDE_WORDS}: " + (
+                        f"the 95% interval spans the whole library range ({min(grid):g} to {max(grid):g})"
+                        if estimate["spans_library_range"] else f"{name} between {lo:.3g} and {hi:.3g} (95%)"
+                    ) + f", estimate {estimate['value']:.3g}"
+                )
+    for regime, parameters in estimates.items():
+        regime_probability = float(sum(p for f, p in zip(model.families, probability) if f.regime == regime))
+        for estimate in parameters.values():
+            estimate["regime_probability"] = regime_probability
+    explanation = build_explanation(
+        model=model, reference_set=reference_set, matches=matches, order=order, evaluation=evaluation,
+        posterior=posterior, values=values, log_sites=log_sites, normalisation=normalisation,
+        connected_fraction=vector.connected_fraction, in_library=in_library, verdict=decided,
+    )
+    return MatchResult(
+        matches=tuple(matches),
+        in_library=in_library,
+        parameter_estimates=estimates,
+        explanation=explanation,
+        warnings=tuple(warnings),
+    )
 
-    best, runner = int(order[0]), int(order[1]) if order.size > 1 else None
-    rows = []
-    for n, (name, description) in enumerate(FEATURES):
-        row = {"feature": name, "description": description, "value": float(values[n]),
-               "best": _feature_row(evaluation, values, best, n)}
-        if runner is not None:
-            row["runner_up"] = _feature_row(evaluation, values, runner, n)
-            row["weight_of_evidence"] = 0.5 * (row["runner_up"]["z"] ** 2 - row["best"]["z"] ** 2)
-        rows.append(row)
-    deciding = sorted(rows, key=lambda r: -r.get("weight_of_evidence", 0.0))[:N_DECIDING]
-    best_class = universality_class(model.families[best].regime, model.families[best].parameters)
-    note = _class_note(best_class)
-    outliers = [name for n, (name, _) in enumerate(FEATURES)
-                if abs(_feature_row(evaluation, values, nearest, n)["z"]) > OUTLIER_Z]
-    summary = f"best match {_label(matches[0])}"
-    if runner is not None:
-        summary += f"; runner-up {_label(matches[1])}"
-        if best_class is not None and best_class == universality_class(
-            model.families[runner].regime, model.families[runner].parameters
-        ):
-            summary += f"; both belong to one universality class ({best_class})"
-    if not in_library:
-        summary = "outside the library: " + summary
-    regime_probability: dict[str, float] = {}
-    for f, family in enumerate(model.families):
-        regime_probability[family.regime] = regime_probability.get(family.regime, 0.0) + float(probability[f])
-    explanation = {
-        "summary": summary,
-        "best": matches[0],
-        "runner_up": matches[1] if runner is not None else None,
-        "log_probability_ratio": float(scaled[best] - scaled[runner]) if runner is not None else None,
-        "regime_probabilities": dict(sorted(regime_probability.items(), key=lambda kv: -kv[1])),
-        "deciding_features": deciding,
-        "weight_of_evidence": (
-            "half the runner-up's squared z-score minus the best's: each feature's share of the "
-            "log-likelihood ratio if features were uncorrelated (the ratio itself uses the full covariance)"
-        ),
-        "all_features": rows,
-        "universality_note": note,
-        "specimen": {**normalisation, "log_sites": log_sites},
-        "novelty": {
-            "nearest": {
-                "regime": model.families[nearest].regime,
-                "parameters": dict(model.families[nearest].parameters),
-            },
-            "nearest_distance": float(np.sqrt(d2[nearest])),
-            "threshold_distance": float(np.sqrt(model.novelty_d2)),
-            "n_features": len(FEATURES),
-            "features_beyond_3_sd": outliers,
-            "connected_fraction": float(vector.connected_fraction),
-            "min_reference_connected_fraction": model.min_connected_fraction,
-        },
-        "references": {
-            "path": str(reference_set.path),
-            "preset": reference_set.preset,
-            "fingerprint": reference_set.fingerprint,
-            "feature_schema": FEATURE_SCHEMA,
-            "n_families": len(model.families),
-            "calibration": dict(model.calibration),
-        },
-    }
-    return {
-        "matches": matches,
-        "in_library": in_library,
-        "parameter_estimates": _parameter_estimates(model, scaled),
-        "explanation": explanation,
-        "warnings": warnings,
-    }
+
+def match_features(features, *, reference_set=None, mask: np.ndarray | None = None) -> dict[str, Any]:
+    """:func:`match` as the analysis JSON's matching keys (``MatchResult.to_dict()``):
+    ``matches``, ``in_library``, ``parameter_estimates``, ``explanation``, ``warnings``."""
+    return match(features, reference_set=reference_set, mask=mask).to_dict()
+

@@ -8,7 +8,6 @@ through is the one a specimen's segmentation goes through.
 
 from __future__ import annotations
 
-import zlib
 from dataclasses import dataclass
 
 import numpy as np
@@ -19,10 +18,11 @@ from service.errors import SpecimenError
 from service.features.dimension import box_counting, sandbox
 from service.features.lacunarity import lacunarity
 from service.match.normalise import normalise
+from service.match.nuisance import cluster_seed, draw_cluster, drawing_styles, style_indices
 
 #: Bump when a feature, its definition or the reference rendering changes: cached
 #: reference vectors of another version are recomputed.
-FEATURE_SCHEMA = 3
+FEATURE_SCHEMA = 4
 
 #: (name, what it measures). The order is the order of the vector.
 FEATURES: tuple[tuple[str, str], ...] = (
@@ -231,17 +231,32 @@ def reference_photo_mask(lattice: np.ndarray, *, seed: int) -> np.ndarray:
     return ndimage.gaussian_filter(drawn.astype(np.float32), blur) >= 0.5
 
 
-def reference_vector(arrival_order: np.ndarray) -> LatticeVector:
-    """Features of one library cluster through the specimens' path (the feature-cache task).
+def reference_vectors(
+    arrival_order: np.ndarray, styles: tuple[int, ...] | None = None
+) -> list[tuple[int, LatticeVector]]:
+    """Features of one library cluster through the specimens' path, once per drawing style
+    (the feature-cache task).
 
-    The drawing's seed is the CRC-32 of the cluster's arrival-order lattice mixed with
-    ``FEATURE_SCHEMA``, so the same cluster always gets the same drawing.
+    The cluster is drawn in its styles among those of :func:`service.match.nuisance.drawing_styles`
+    (branch thickness 0.7 to 2 sites, blur, threshold level, JPEG), and each drawing is
+    normalised and measured exactly as a specimen's mask is. The styles' seed is the CRC-32
+    of the cluster's arrival-order lattice mixed with ``FEATURE_SCHEMA``, so the same
+    cluster always gets the same drawings.
+
+    Parameters
+    ----------
+    arrival_order : (h, w) int array
+    styles : tuple of int, optional
+        Indices of the styles to draw (default: the cluster's own,
+        :func:`service.match.nuisance.style_indices`).
 
     Returns
     -------
-    LatticeVector
+    list of (int, LatticeVector)
+        Each drawing's style index and vector.
     """
     lattice = np.ascontiguousarray(arrival_order, dtype=np.int32)
-    seed = zlib.crc32(lattice.tobytes()) ^ FEATURE_SCHEMA
-    vector, _ = specimen_vector(reference_photo_mask(lattice, seed=seed))
-    return vector
+    seed = cluster_seed(lattice, FEATURE_SCHEMA)
+    all_styles = drawing_styles(seed)
+    chosen = style_indices(seed, int(np.count_nonzero(lattice))) if styles is None else styles
+    return [(i, specimen_vector(draw_cluster(lattice, all_styles[i]))[0]) for i in chosen]

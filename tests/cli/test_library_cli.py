@@ -9,6 +9,7 @@ from service.cli import main
 from service.errors import LibraryError
 from service.library import load_reference_set
 from service.match.cache import load_reference_table
+from service.match.nuisance import n_styles
 from service.match.persist import is_fresh
 
 
@@ -19,8 +20,9 @@ def test_build_command_grows_the_set_and_caches_the_matcher_features(tmp_path, c
     assert str(out) in printed and "features cached" in printed and "model stored" in printed
     refs = load_reference_set(out)
     table = load_reference_table(refs, build_if_missing=False)  # raises if the cache were missing
+    # One row per drawing of a cluster: each is drawn in n_styles(size) styles (issue 10).
     counts = np.bincount(table.ensemble, minlength=len(refs.ensembles))
-    assert counts.tolist() == [e.n_realisations for e in refs.ensembles]
+    assert counts.tolist() == [e.n_realisations * n_styles(e.n_particles) for e in refs.ensembles]
     assert np.isfinite(table.values).all()
     assert is_fresh(refs)  # the fitted model is stored: no process that ranks against the set refits it
 

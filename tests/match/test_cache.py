@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pytest
 
@@ -9,6 +11,7 @@ from service.errors import LibraryError
 from service.library import load_reference_set
 from service.match import build_feature_cache, load_reference_table
 from service.match.cache import CACHE_NAME, cache_discrepancy, compute_reference_table
+from service.match.nuisance import THICKNESS_SITES, n_styles, nuisance_grid
 from tests.match.subsets import smallest_of_three_regimes, write_subset
 
 
@@ -29,13 +32,23 @@ def test_the_cache_is_the_same_on_dask_and_in_process_and_is_read_back(reference
     assert (subset.path / "cache" / f"{CACHE_NAME}.npz").is_file()
 
 
-def test_the_bundled_cache_covers_every_cluster(reference_set, table):
+def test_the_bundled_cache_covers_every_cluster_in_every_drawing_style(reference_set, table):
+    # One row per (cluster, drawing style); every ensemble holds drawings at every thickness
+    # level of the grid, and a cluster is never drawn twice in one style.
     counts = np.bincount(table.ensemble, minlength=len(reference_set.ensembles))
-    assert counts.tolist() == [e.n_realisations for e in reference_set.ensembles]
+    assert counts.tolist() == [e.n_realisations * n_styles(e.n_particles) for e in reference_set.ensembles]
+    for e in range(len(reference_set.ensembles)):
+        rows = table.ensemble == e
+        pairs = set(zip(table.realisation[rows].tolist(), table.thickness_sites[rows].tolist()))
+        assert len(pairs) == rows.sum()
+        assert set(table.thickness_sites[rows].tolist()) == set(THICKNESS_SITES)
     assert np.isfinite(table.values).all()
-    # Every reference drawing is normalised to 1.5-20 px per site (drawn at 3-6 px per site,
-    # compact clusters capped at a 25-site radius).
+    # Every reference drawing is normalised to at least 1.5 px per site (drawn at 3-5 px per
+    # site with branches 0.7 to 2 sites wide).
     assert table.scale_px.min() >= 1.5
+    # The grid the drawings came from is stored beside the vectors.
+    cached = reference_set.read_cache(CACHE_NAME)
+    assert json.loads(str(cached["nuisance_grid"])) == nuisance_grid()
 
 
 def test_the_bundled_cache_was_computed_by_this_measurement_code(reference_set, table):

@@ -2,13 +2,14 @@
 
 from __future__ import annotations
 
+import dataclasses
 import json
 from types import SimpleNamespace
 
 import numpy as np
 import pytest
 
-from service.match import FEATURE_NAMES, match_features, reference_photo_mask
+from service.match import FEATURE_NAMES, MatchResult, match, match_features, reference_photo_mask
 from service.simulate import grow
 
 
@@ -56,15 +57,46 @@ def test_a_fresh_dla_cluster_is_dla_class_and_the_explanation_says_why(dla_resul
     assert explanation["references"]["calibration"]["temperature"] > 0
 
 
-def test_continuous_parameters_are_estimated_with_a_spread(dla_result):
+def test_continuous_parameters_are_estimated_with_an_interval(dla_result):
     estimates = dla_result["parameter_estimates"]
     for regime, parameters in estimates.items():
         for name, estimate in parameters.items():
             grid = estimate["values_in_library"]
-            assert min(grid) <= estimate["value"] <= max(grid)
+            lo, hi = estimate["ci95"]
+            assert min(grid) <= lo <= estimate["value"] <= hi <= max(grid)
+            # Never narrower than the grid: the interval holds at least the cell (half-way
+            # to the neighbours) of the grid value nearest the estimate.
+            assert hi > lo
             assert estimate["std"] >= 0
             assert 0 <= estimate["regime_probability"] <= 1
+            assert estimate["spans_library_range"] == (lo <= min(grid) + 1e-6 and hi >= max(grid) - 1e-6)
+            assert ("whole library range" in estimate["note"]) == estimate["spans_library_range"]
+            assert ("outside every reference" in estimate["note"]) == (not dla_result["in_library"])
     assert "eta" in estimates["dbm"]
+
+
+def test_the_result_is_a_frozen_match_result(reference_set):
+    mask = reference_photo_mask(grow("eden", 1500, seed=424_243), seed=9)
+    result = match(None, reference_set=reference_set, mask=mask)
+    assert isinstance(result, MatchResult)
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        result.in_library = False
+    assert result.to_dict() == match_features(None, reference_set=reference_set, mask=mask)
+    verdict = result.explanation["verdict"]
+    assert sum(verdict["probabilities"].values()) == pytest.approx(1.0)
+    assert verdict["name"] in (verdict["best"], "no confident verdict")
+
+
+def test_a_specimen_far_outside_the_library_gets_no_probability_near_one(model):
+    # A vector far from every family (every feature 40 spreads from the nearest family's
+    # mean): the posterior is tempered by the distance and mixed with equal odds.
+    family = model.statistics.families[0]
+    mean, variance = family.at(float(family.knots[len(family.knots) // 2]))
+    far = mean + 40.0 * np.sqrt(variance)
+    posterior = model.posterior(model.evaluate(far, float(family.knots[len(family.knots) // 2])))
+    assert posterior.probability.sum() == pytest.approx(1.0)
+    assert posterior.probability.max() < 0.9
+    assert posterior.outside_weight > 0.5
 
 
 def test_a_specimen_too_small_to_compare_is_reported_not_ranked(reference_set):
