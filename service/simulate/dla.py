@@ -14,12 +14,13 @@ NEIGHBORHOODS: tuple[str, ...] = ("von_neumann", "moore")
 
 #: Launch circle radius minus the cluster radius, in lattice units.
 _LAUNCH_GAP = 6.0
-#: Side of the coarse blocks of the distance map, in lattice units.
-_BLOCK = 4
-#: Block distances are tracked up to this many blocks; farther blocks read as this value.
-_MAX_BLOCKS = 12
+#: Finest level of the occupancy hierarchy used for jumps (blocks of 2**level sites a side).
+_FIRST_LEVEL = 2
 #: A jump is taken when its safe radius is at least this many lattice units.
 _MIN_JUMP = 2.0
+#: Flags of a block in the occupancy hierarchy.
+_HAS_SITE = 1
+_NEAR_SITE = 2
 
 
 def check_particles(n_particles: int) -> int:
@@ -54,67 +55,128 @@ def lattice_from_sites(rows: np.ndarray, cols: np.ndarray, margin: int = 2) -> n
 
 
 @numba.njit(cache=True)
-def _mark_block(dmap: np.ndarray, brow: int, bcol: int, max_blocks: int) -> None:
-    """Lower the capped block-distance map around the newly occupied block ``(brow, bcol)``.
+def _layout(side: int):
+    """Levels of the bit-packed occupancy hierarchy of a square grid of ``side`` sites.
 
-    Caller guarantees ``dmap`` is square and ``(brow, bcol)`` lies inside it.
+    Level ``l`` maps blocks of ``2**l`` sites a side, ``side >> l`` blocks a side, stored as
+    8 x 8 tiles of blocks, one ``int64`` word per tile, tiles in row-major order. Returns the
+    coarsest level ``top`` (one tile), the word offset of each level (index ``l``, plus the
+    total at ``top + 1``) and each level's tiles per row. Caller guarantees ``side`` is a power
+    of two >= 8.
     """
-    nb = dmap.shape[0]
-    for j in range(max(0, brow - max_blocks + 1), min(nb, brow + max_blocks)):
-        dj = abs(j - brow)
-        for i in range(max(0, bcol - max_blocks + 1), min(nb, bcol + max_blocks)):
-            d = max(dj, abs(i - bcol))
-            if d < dmap[j, i]:
-                dmap[j, i] = d
+    top = int(np.log2(side)) - 3
+    offsets = np.zeros(top + 2, dtype=np.int64)
+    tiles_per_row = np.zeros(top + 1, dtype=np.int64)
+    for level in range(top + 1):
+        tiles_per_row[level] = (side >> level) >> 3
+        offsets[level + 1] = offsets[level] + tiles_per_row[level] * tiles_per_row[level]
+    return top, offsets, tiles_per_row
 
 
 @numba.njit(cache=True)
-def _build_maps(rows, cols, count, half, block, max_blocks):
-    """Occupancy grid (side ``2 * half``, seed at ``(half, half)``) and capped block-distance map.
+def _bit(bits, offsets, tiles_per_row, level, r, c):
+    """Bit of block ``(r, c)`` (block coordinates) of ``level``. Caller guarantees it is inside."""
+    word = bits[offsets[level] + (r >> 3) * tiles_per_row[level] + (c >> 3)]
+    return (word >> (((r & 7) << 3) | (c & 7))) & 1
 
-    Caller guarantees ``half`` is a multiple of ``block`` and every site lies at least two
-    sites inside the grid.
+
+@numba.njit(cache=True)
+def _set_bit(bits, offsets, tiles_per_row, level, r, c):
+    """Set the bit of block ``(r, c)`` of ``level``. Caller guarantees it is inside."""
+    index = offsets[level] + (r >> 3) * tiles_per_row[level] + (c >> 3)
+    bits[index] |= np.int64(1) << (((r & 7) << 3) | (c & 7))
+
+
+@numba.njit(cache=True)
+def _occupy(has_site, near_site, offsets, tiles_per_row, top, r, c):
+    """Occupy grid site ``(r, c)`` and flag the blocks that hold it or border its block.
+
+    ``has_site`` marks, at every level, the blocks holding an occupied site (level 0: the
+    sites themselves); ``near_site`` marks, at levels >= 1, the blocks that hold one or have a
+    neighbour (of 8) that does. Once a block already holds a site so do all coarser blocks
+    above it, and the update stops there. Caller guarantees ``(r, c)`` lies inside the grid
+    laid out by ``_layout``.
     """
-    side = 2 * half
-    occupied = np.zeros((side, side), dtype=np.uint8)
-    dmap = np.full((side // block, side // block), max_blocks, dtype=np.int16)
+    _set_bit(has_site, offsets, tiles_per_row, 0, r, c)
+    for level in range(1, top + 1):
+        br = r >> level
+        bc = c >> level
+        if _bit(has_site, offsets, tiles_per_row, level, br, bc):
+            break
+        _set_bit(has_site, offsets, tiles_per_row, level, br, bc)
+        blocks = tiles_per_row[level] << 3
+        for i in range(max(0, br - 1), min(blocks, br + 2)):
+            for j in range(max(0, bc - 1), min(blocks, bc + 2)):
+                _set_bit(near_site, offsets, tiles_per_row, level, i, j)
+
+
+@numba.njit(cache=True)
+def _build_grid(rows, cols, count, half):
+    """Bit-packed occupancy hierarchy of a grid of side ``2 * half`` (seed at ``(half, half)``).
+
+    Returns ``has_site, near_site, offsets, tiles_per_row, top`` (see ``_layout`` and
+    ``_occupy``). Caller guarantees ``half`` is a power of two >= 8 and every site lies at
+    least two sites inside the grid.
+    """
+    top, offsets, tiles_per_row = _layout(2 * half)
+    has_site = np.zeros(offsets[top + 1], dtype=np.int64)
+    near_site = np.zeros(offsets[top + 1], dtype=np.int64)
     for k in range(count):
-        r = rows[k] + half
-        c = cols[k] + half
-        occupied[r, c] = 1
-        if dmap[r // block, c // block] != 0:
-            _mark_block(dmap, r // block, c // block, max_blocks)
-    return occupied, dmap
+        _occupy(has_site, near_site, offsets, tiles_per_row, top, rows[k] + half, cols[k] + half)
+    return has_site, near_site, offsets, tiles_per_row, top
 
 
 @numba.njit(cache=True)
-def _touches(occupied, r, c, moore):
+def _touches(has_site, offsets, tiles_per_row, r, c, moore):
     """Whether grid site ``(r, c)`` has an occupied neighbour (4, or 8 when ``moore``).
 
     Caller guarantees ``(r, c)`` is at least one site inside the grid.
     """
-    if occupied[r - 1, c] or occupied[r + 1, c] or occupied[r, c - 1] or occupied[r, c + 1]:
+    if (
+        _bit(has_site, offsets, tiles_per_row, 0, r - 1, c)
+        or _bit(has_site, offsets, tiles_per_row, 0, r + 1, c)
+        or _bit(has_site, offsets, tiles_per_row, 0, r, c - 1)
+        or _bit(has_site, offsets, tiles_per_row, 0, r, c + 1)
+    ):
         return True
     if moore:
         return bool(
-            occupied[r - 1, c - 1] or occupied[r - 1, c + 1]
-            or occupied[r + 1, c - 1] or occupied[r + 1, c + 1]
+            _bit(has_site, offsets, tiles_per_row, 0, r - 1, c - 1)
+            or _bit(has_site, offsets, tiles_per_row, 0, r - 1, c + 1)
+            or _bit(has_site, offsets, tiles_per_row, 0, r + 1, c - 1)
+            or _bit(has_site, offsets, tiles_per_row, 0, r + 1, c + 1)
         )
     return False
 
 
 @numba.njit(cache=True)
-def _grow_dla(n, seed, moore, sticking, launch_gap, block, max_blocks, min_jump):
+def _disc_point():
+    """A point drawn uniformly from the unit disc less its centre (rejection from the square).
+
+    Used instead of trigonometry: its angle is uniform, so ``(u*u - v*v) / s, 2*u*v / s`` is a
+    uniform direction and ``v / u`` a standard Cauchy variate. Caller guarantees numba's
+    generator is seeded.
+    """
+    while True:
+        u = 2.0 * np.random.random() - 1.0
+        v = 2.0 * np.random.random() - 1.0
+        s = u * u + v * v
+        if 0.0 < s <= 1.0:
+            return u, v, s
+
+
+@numba.njit(cache=True)
+def _grow_dla(n, seed, moore, sticking, launch_gap, first_level, min_jump):
     """Row and column offsets (from the seed) of ``n`` DLA sites in order of arrival.
 
-    Caller guarantees ``n >= 1``, ``0 < sticking <= 1``, ``block`` even, ``max_blocks >= 2``,
-    and ``min_jump >= 1``. Seeds numba's generator with ``seed``; same inputs, same output.
+    Caller guarantees ``n >= 1``, ``0 < sticking <= 1``, ``first_level >= 2`` and
+    ``min_jump >= 1``. Seeds numba's generator with ``seed``; same inputs, same output.
     """
     np.random.seed(seed)
     rows = np.zeros(n, dtype=np.int32)
     cols = np.zeros(n, dtype=np.int32)
-    half = 16 * block
-    occupied, dmap = _build_maps(rows, cols, 1, half, block, max_blocks)
+    half = 64
+    has_site, near_site, offsets, tiles_per_row, top = _build_grid(rows, cols, 1, half)
     r_max = 0.0
     count = 1
     dr = (-1, 1, 0, 0)
@@ -122,50 +184,73 @@ def _grow_dla(n, seed, moore, sticking, launch_gap, block, max_blocks, min_jump)
     while count < n:
         r_launch = r_max + launch_gap
         r_far = r_launch + 2.0
-        if r_far + block + 2.0 >= half:
-            # Re-centre on a lattice twice as wide; walkers never index beyond r_far.
+        if r_far + 3.0 >= half:
+            # Re-centre on a grid twice as wide; walkers never index beyond r_far.
             half *= 2
-            occupied, dmap = _build_maps(rows, cols, count, half, block, max_blocks)
-        angle = 2.0 * np.pi * np.random.random()
-        y = int(np.floor(r_launch * np.sin(angle) + 0.5))
-        x = int(np.floor(r_launch * np.cos(angle) + 0.5))
+            has_site, near_site, offsets, tiles_per_row, top = _build_grid(rows, cols, count, half)
+        u, v, s = _disc_point()
+        y = int(np.floor(r_launch * 2.0 * u * v / s + 0.5))
+        x = int(np.floor(r_launch * (u * u - v * v) / s + 0.5))
+        level = top
         while True:
             dist = np.sqrt(float(x * x + y * y))
             if dist > r_far:
                 # Return to the launch circle with the exact first-hit law of a Brownian walker
-                # started outside a disc: a wrapped Cauchy angle with rho = r_launch / dist.
-                rho = r_launch / dist
-                u = np.random.random()
-                theta = 2.0 * np.arctan((1.0 - rho) / (1.0 + rho) * np.tan(np.pi * (u - 0.5)))
-                angle = np.arctan2(float(y), float(x)) + theta
-                y = int(np.floor(r_launch * np.sin(angle) + 0.5))
-                x = int(np.floor(r_launch * np.cos(angle) + 0.5))
+                # started outside a disc: a wrapped Cauchy angle theta about the walker's own,
+                # tan(theta / 2) = k C with k = (1 - rho) / (1 + rho), rho = r_launch / dist,
+                # and C = v / u standard Cauchy; cos and sin of theta follow from k v / u.
+                k = (dist - r_launch) / (dist + r_launch)
+                u, v, s = _disc_point()
+                norm = u * u + k * k * v * v
+                cos_t = (u * u - k * k * v * v) / norm
+                sin_t = 2.0 * k * u * v / norm
+                scale = r_launch / dist
+                y_new = scale * (y * cos_t + x * sin_t)
+                x_new = scale * (x * cos_t - y * sin_t)
+                y = int(np.floor(y_new + 0.5))
+                x = int(np.floor(x_new + 0.5))
                 continue
             gr = y + half
             gc = x + half
-            # Safe radius: lattice points within jump + 0.71 (rounding) keep Chebyshev distance
-            # >= 2 from every occupied site, so no contact can happen on the way.
+            # Coarsest clear level, searched from the last one (a walker's level changes slowly).
+            if not _bit(near_site, offsets, tiles_per_row, level, gr >> level, gc >> level):
+                while level < top and not _bit(
+                    near_site, offsets, tiles_per_row, level + 1, gr >> (level + 1), gc >> (level + 1)
+                ):
+                    level += 1
+            else:
+                level -= 1
+                while level >= first_level and _bit(
+                    near_site, offsets, tiles_per_row, level, gr >> level, gc >> level
+                ):
+                    level -= 1
+            # Safe radius: every site within jump + 0.5 (rounding, Chebyshev) keeps Chebyshev
+            # distance >= 2 from every occupied site, so no contact can happen on the way.
             jump = dist - r_max - 2.5
-            k = dmap[gr // block, gc // block]
-            if k >= 2:
-                jump = max(jump, (k - 1) * block + 1 - 2.5)
+            if level >= first_level:
+                size = 1 << level
+                r0 = (gr >> level) << level
+                c0 = (gc >> level) << level
+                # Sites outside the clear 3 x 3 blocks are at least this far (Chebyshev).
+                clear = min(gr - r0, r0 + size - 1 - gr, gc - c0, c0 + size - 1 - gc) + size + 1
+                jump = max(jump, clear - 2.5)
+            else:
+                level = first_level
             if jump >= min_jump:
-                angle = 2.0 * np.pi * np.random.random()
-                y = int(np.floor(y + jump * np.sin(angle) + 0.5))
-                x = int(np.floor(x + jump * np.cos(angle) + 0.5))
+                u, v, s = _disc_point()
+                y = int(np.floor(y + jump * 2.0 * u * v / s + 0.5))
+                x = int(np.floor(x + jump * (u * u - v * v) / s + 0.5))
                 continue
-            if _touches(occupied, gr, gc, moore):
+            if _touches(has_site, offsets, tiles_per_row, gr, gc, moore):
                 if sticking >= 1.0 or np.random.random() < sticking:
-                    occupied[gr, gc] = 1
-                    if dmap[gr // block, gc // block] != 0:
-                        _mark_block(dmap, gr // block, gc // block, max_blocks)
+                    _occupy(has_site, near_site, offsets, tiles_per_row, top, gr, gc)
                     rows[count] = y
                     cols[count] = x
                     count += 1
                     r_max = max(r_max, dist)
                     break
             d = np.random.randint(0, 4)
-            if not occupied[gr + dr[d], gc + dc[d]]:
+            if not _bit(has_site, offsets, tiles_per_row, 0, gr + dr[d], gc + dc[d]):
                 y += dr[d]
                 x += dc[d]
     return rows, cols
@@ -228,6 +313,6 @@ def dla(
     if not 0.0 < sticking <= 1.0:
         raise ValueError(f"sticking must lie in (0, 1], got {sticking}")
     rows, cols = _grow_dla(
-        n, seed, neighborhood == "moore", sticking, _LAUNCH_GAP, _BLOCK, _MAX_BLOCKS, _MIN_JUMP
+        n, seed, neighborhood == "moore", sticking, _LAUNCH_GAP, _FIRST_LEVEL, _MIN_JUMP
     )
     return lattice_from_sites(rows, cols)
