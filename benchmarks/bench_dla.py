@@ -41,8 +41,8 @@ GOAL_RATIO = 15.0
 
 
 @numba.njit
-def _plain_dla(n, seed, launch_gap):
-    """Sites of an ``n``-site von Neumann DLA grown with unit steps only. ``n >= 1``."""
+def _plain_dla(n, seed, launch_gap, moore):
+    """Sites of an ``n``-site DLA (Moore contact when ``moore``) grown with unit steps only. ``n >= 1``."""
     np.random.seed(seed)
     rows = np.zeros(n, dtype=np.int32)
     cols = np.zeros(n, dtype=np.int32)
@@ -72,7 +72,13 @@ def _plain_dla(n, seed, launch_gap):
                 continue
             gr = y + half
             gc = x + half
-            if occupied[gr - 1, gc] or occupied[gr + 1, gc] or occupied[gr, gc - 1] or occupied[gr, gc + 1]:
+            contact = occupied[gr - 1, gc] or occupied[gr + 1, gc] or occupied[gr, gc - 1] or occupied[gr, gc + 1]
+            if moore and not contact:
+                contact = (
+                    occupied[gr - 1, gc - 1] or occupied[gr - 1, gc + 1]
+                    or occupied[gr + 1, gc - 1] or occupied[gr + 1, gc + 1]
+                )
+            if contact:
                 occupied[gr, gc] = 1
                 rows[count] = y
                 cols[count] = x
@@ -85,9 +91,9 @@ def _plain_dla(n, seed, launch_gap):
     return rows, cols
 
 
-def plain_dla(n_particles: int, *, seed: int) -> np.ndarray:
-    """Arrival-order lattice of the plain algorithm (von Neumann contact, sticking 1)."""
-    return lattice_from_sites(*_plain_dla(n_particles, seed, _LAUNCH_GAP))
+def plain_dla(n_particles: int, *, seed: int, neighborhood: str = "von_neumann") -> np.ndarray:
+    """Arrival-order lattice of the plain algorithm (sticking 1)."""
+    return lattice_from_sites(*_plain_dla(n_particles, seed, _LAUNCH_GAP, neighborhood == "moore"))
 
 
 # The previous simulator, unchanged but for the names (baseline of the figures).
