@@ -101,25 +101,15 @@ def _cell(tiles, r, c):
 
 
 @numba.njit(cache=True)
-def _occupy(closeness, has_site, near_site, offsets, tiles_per_row, top, first_level, cap, r, c):
-    """Occupy grid site ``(r, c)``: update the near-field map and flag the blocks around it.
+def _mark_blocks(has_site, near_site, offsets, tiles_per_row, top, first_level, r, c):
+    """Flag the blocks of the hierarchy that hold grid site ``(r, c)`` or border its block.
 
-    ``closeness`` holds ``max(0, cap - d)`` for every site, ``d`` its Chebyshev distance to
-    the nearest occupied site (``cap`` on occupied sites, 0 far away), as a tiled byte grid
-    (see ``_cell``). ``has_site`` marks, at levels >= 1, the blocks holding an occupied site;
-    ``near_site`` marks, at levels >= ``first_level``, the blocks that hold one or have a
-    neighbour (of 8) that does. Once a block already holds a site so do all coarser blocks
-    above it, and the update stops there. Caller guarantees ``(r, c)`` lies at least ``cap``
-    sites inside the grid laid out by ``_layout``.
+    ``has_site`` marks, at levels >= 1, the blocks holding an occupied site; ``near_site``
+    marks, at levels >= ``first_level``, the blocks that hold one or have a neighbour (of 8)
+    that does. Once a block already holds a site so do all coarser blocks above it, and the
+    update stops there. Caller guarantees ``(r, c)`` lies inside the grid laid out by
+    ``_layout`` and ``first_level >= 1``.
     """
-    tiles = tiles_per_row[1] << 1
-    for i in range(r - cap + 1, r + cap):
-        di = abs(i - r)
-        for j in range(c - cap + 1, c + cap):
-            value = cap - max(di, abs(j - c))
-            index = _cell(tiles, i, j)
-            if closeness[index] < value:
-                closeness[index] = value
     for level in range(1, top + 1):
         br = r >> level
         bc = c >> level
@@ -132,6 +122,26 @@ def _occupy(closeness, has_site, near_site, offsets, tiles_per_row, top, first_l
         for i in range(max(0, br - 1), min(blocks, br + 2)):
             for j in range(max(0, bc - 1), min(blocks, bc + 2)):
                 _set_bit(near_site, offsets, tiles_per_row, level, i, j)
+
+
+@numba.njit(cache=True)
+def _occupy(closeness, has_site, near_site, offsets, tiles_per_row, top, first_level, cap, r, c):
+    """Occupy grid site ``(r, c)``: update the near-field map and the block hierarchy.
+
+    ``closeness`` holds ``max(0, cap - d)`` for every site, ``d`` its Chebyshev distance to
+    the nearest occupied site (``cap`` on occupied sites, 0 far away), as a tiled byte grid
+    (see ``_cell``); the hierarchy is updated by ``_mark_blocks``. Caller guarantees
+    ``(r, c)`` lies at least ``cap`` sites inside the grid laid out by ``_layout``.
+    """
+    tiles = tiles_per_row[1] << 1
+    for i in range(r - cap + 1, r + cap):
+        di = abs(i - r)
+        for j in range(c - cap + 1, c + cap):
+            value = cap - max(di, abs(j - c))
+            index = _cell(tiles, i, j)
+            if closeness[index] < value:
+                closeness[index] = value
+    _mark_blocks(has_site, near_site, offsets, tiles_per_row, top, first_level, r, c)
 
 
 @numba.njit(cache=True)
