@@ -25,8 +25,9 @@ _LAUNCH_GAP = 6.0
 _FIRST_LEVEL = 2
 #: A jump is taken when its safe radius is at least this many lattice units.
 _MIN_JUMP = 2.0
-#: Chebyshev distances to the cluster are kept exactly, site by site, below this value.
-_NEAR_CAP = 8
+#: Chebyshev distances to the cluster are kept exactly, site by site, below this value
+#: (larger caps measured slower: the map's upkeep costs more than the longer jumps save).
+_NEAR_CAP = 6
 
 
 def check_particles(n_particles: int) -> int:
@@ -101,13 +102,13 @@ def _cell(tiles, r, c):
 
 
 @numba.njit(cache=True)
-def _mark_blocks(has_site, near_site, offsets, tiles_per_row, top, first_level, r, c):
-    """Flag the blocks of the hierarchy that hold grid site ``(r, c)`` or border its block.
+def _mark_blocks(has_site, near_site, wide_site, offsets, tiles_per_row, top, first_level, r, c):
+    """Flag the blocks of the hierarchy that hold grid site ``(r, c)`` or lie near its block.
 
     ``has_site`` marks, at levels >= 1, the blocks holding an occupied site; ``near_site``
-    marks, at levels >= ``first_level``, the blocks that hold one or have a neighbour (of 8)
-    that does. Once a block already holds a site so do all coarser blocks above it, and the
-    update stops there. Caller guarantees ``(r, c)`` lies inside the grid laid out by
+    marks, at levels >= ``first_level``, the blocks within Chebyshev distance 1 (in blocks)
+    of one that holds a site, ``wide_site`` those within distance 2. Once a block already
+    holds a site so do all coarser blocks above it, and the update stops there. Caller guarantees ``(r, c)`` lies inside the grid laid out by
     ``_layout`` and ``first_level >= 1``.
     """
     for level in range(1, top + 1):
@@ -119,13 +120,15 @@ def _mark_blocks(has_site, near_site, offsets, tiles_per_row, top, first_level, 
         if level < first_level:
             continue
         blocks = tiles_per_row[level] << 3
-        for i in range(max(0, br - 1), min(blocks, br + 2)):
-            for j in range(max(0, bc - 1), min(blocks, bc + 2)):
-                _set_bit(near_site, offsets, tiles_per_row, level, i, j)
+        for i in range(max(0, br - 2), min(blocks, br + 3)):
+            for j in range(max(0, bc - 2), min(blocks, bc + 3)):
+                _set_bit(wide_site, offsets, tiles_per_row, level, i, j)
+                if abs(i - br) <= 1 and abs(j - bc) <= 1:
+                    _set_bit(near_site, offsets, tiles_per_row, level, i, j)
 
 
 @numba.njit(cache=True)
-def _occupy(closeness, has_site, near_site, offsets, tiles_per_row, top, first_level, cap, r, c):
+def _occupy(closeness, has_site, near_site, wide_site, offsets, tiles_per_row, top, first_level, cap, r, c):
     """Occupy grid site ``(r, c)``: update the near-field map and the block hierarchy.
 
     ``closeness`` holds ``max(0, cap - d)`` for every site, ``d`` its Chebyshev distance to
@@ -141,14 +144,14 @@ def _occupy(closeness, has_site, near_site, offsets, tiles_per_row, top, first_l
             index = _cell(tiles, i, j)
             if closeness[index] < value:
                 closeness[index] = value
-    _mark_blocks(has_site, near_site, offsets, tiles_per_row, top, first_level, r, c)
+    _mark_blocks(has_site, near_site, wide_site, offsets, tiles_per_row, top, first_level, r, c)
 
 
 @numba.njit(cache=True)
 def _build_grid(rows, cols, count, half, first_level, cap):
     """Near-field map and block hierarchy of a grid of side ``2 * half`` (seed at ``(half, half)``).
 
-    Returns ``closeness, has_site, near_site, offsets, tiles_per_row, top`` (see ``_layout``
+    Returns ``closeness, has_site, near_site, wide_site, offsets, tiles_per_row, top`` (see ``_layout``
     and ``_occupy``). Caller guarantees ``half`` is a power of two >= 16 and every site lies
     at least ``cap`` sites inside the grid.
     """
@@ -156,12 +159,13 @@ def _build_grid(rows, cols, count, half, first_level, cap):
     closeness = np.zeros(4 * half * half, dtype=np.uint8)
     has_site = np.zeros(offsets[top + 1], dtype=np.int64)
     near_site = np.zeros(offsets[top + 1], dtype=np.int64)
+    wide_site = np.zeros(offsets[top + 1], dtype=np.int64)
     for k in range(count):
         _occupy(
-            closeness, has_site, near_site, offsets, tiles_per_row, top, first_level, cap,
+            closeness, has_site, near_site, wide_site, offsets, tiles_per_row, top, first_level, cap,
             rows[k] + half, cols[k] + half,
         )
-    return closeness, has_site, near_site, offsets, tiles_per_row, top
+    return closeness, has_site, near_site, wide_site, offsets, tiles_per_row, top
 
 
 @numba.njit(cache=True)
@@ -231,7 +235,7 @@ def _grow_dla(n, seed, moore, sticking, launch_gap, first_level, min_jump, cap):
     rows = np.zeros(n, dtype=np.int32)
     cols = np.zeros(n, dtype=np.int32)
     half = 64
-    closeness, has_site, near_site, offsets, tiles_per_row, top = _build_grid(
+    closeness, has_site, near_site, wide_site, offsets, tiles_per_row, top = _build_grid(
         rows, cols, 1, half, first_level, cap
     )
     r_max = 0.0
@@ -244,7 +248,7 @@ def _grow_dla(n, seed, moore, sticking, launch_gap, first_level, min_jump, cap):
         if r_far + cap + 2.0 >= half:
             # Re-centre on a grid twice as wide; walkers never index beyond r_far.
             half *= 2
-            closeness, has_site, near_site, offsets, tiles_per_row, top = _build_grid(
+            closeness, has_site, near_site, wide_site, offsets, tiles_per_row, top = _build_grid(
                 rows, cols, count, half, first_level, cap
             )
         tiles = half >> 2
@@ -292,8 +296,9 @@ def _grow_dla(n, seed, moore, sticking, launch_gap, first_level, min_jump, cap):
                 size = 1 << level
                 r0 = (gr >> level) << level
                 c0 = (gc >> level) << level
-                # Sites outside the clear 3 x 3 blocks are at least this far (Chebyshev).
-                clear = min(gr - r0, r0 + size - 1 - gr, gc - c0, c0 + size - 1 - gc) + size + 1
+                # Sites beyond the clear 3 x 3 (or 5 x 5) blocks are at least this far (Chebyshev).
+                rings = 2 - _bit(wide_site, offsets, tiles_per_row, level, gr >> level, gc >> level)
+                clear = min(gr - r0, r0 + size - 1 - gr, gc - c0, c0 + size - 1 - gc) + rings * size + 1
                 jump = max(jump, clear - 2.5)
             else:
                 # Beside the cluster: the exact distance from the near-field map.
@@ -311,8 +316,8 @@ def _grow_dla(n, seed, moore, sticking, launch_gap, first_level, min_jump, cap):
                     state, chance = _uniform(state)
                 if chance < sticking:
                     _occupy(
-                        closeness, has_site, near_site, offsets, tiles_per_row, top, first_level,
-                        cap, gr, gc,
+                        closeness, has_site, near_site, wide_site, offsets, tiles_per_row, top,
+                        first_level, cap, gr, gc,
                     )
                     rows[count] = y
                     cols[count] = x
@@ -368,9 +373,10 @@ def dla(
     lower bounds on the Chebyshev distance to the cluster: the distance beyond the cluster
     radius; a hierarchy of bit maps of blocks of 4, 8, 16, ... sites a side, where the
     coarsest level whose 3 x 3 blocks around the walker are empty gives a jump of the size
-    of those blocks (so the number of jumps grows only like the logarithm of the distance);
-    and, beside the cluster, an exact site-by-site distance map kept up to 8 sites. Unit
-    steps are taken only within 4 sites of the cluster. All maps are stored as 8 x 8 tiles
+    of those blocks, or twice it when the 5 x 5 blocks are empty (so the number of jumps
+    grows only like the logarithm of the distance); and, beside the cluster, an exact
+    site-by-site distance map kept up to 6 sites. Unit steps are taken only within 4 sites
+    of the cluster. All maps are stored as 8 x 8 tiles
     (bits, or bytes for the near map), so a walker's neighbourhood lies in one or a few
     cache lines; the grid doubles and re-centres as the cluster grows. Random numbers come
     from one SplitMix64 stream (Steele, Lea & Flood 2014) seeded with ``seed``.

@@ -42,7 +42,8 @@ def _build_cells(ys, xs, count, half, first_level, capacity):
     """Unit-cell grid of side ``2 * half`` (seed centre at ``(half, half)``) and its hierarchy.
 
     Returns ``items`` (disc indices per cell, ``-1`` empty), ``filled`` (discs per cell),
-    ``has_site, near_site, offsets, tiles_per_row, top`` (see ``dla._layout``). Caller
+    ``has_site, near_site, wide_site, offsets, tiles_per_row, top`` (see ``dla._layout``
+    and ``dla._mark_blocks``). Caller
     guarantees ``half`` is a power of two >= 16 and every centre lies at least three cells
     inside the grid.
     """
@@ -52,6 +53,7 @@ def _build_cells(ys, xs, count, half, first_level, capacity):
     filled = np.zeros((side, side), dtype=np.uint8)
     has_site = np.zeros(offsets[top + 1], dtype=np.int64)
     near_site = np.zeros(offsets[top + 1], dtype=np.int64)
+    wide_site = np.zeros(offsets[top + 1], dtype=np.int64)
     for k in range(count):
         r = int(np.floor(ys[k])) + half
         c = int(np.floor(xs[k])) + half
@@ -59,8 +61,8 @@ def _build_cells(ys, xs, count, half, first_level, capacity):
             raise ValueError("more disc centres in one unit cell than discs of diameter 1 allow")
         items[r, c, filled[r, c]] = k
         filled[r, c] += 1
-        _mark_blocks(has_site, near_site, offsets, tiles_per_row, top, first_level, r, c)
-    return items, filled, has_site, near_site, offsets, tiles_per_row, top
+        _mark_blocks(has_site, near_site, wide_site, offsets, tiles_per_row, top, first_level, r, c)
+    return items, filled, has_site, near_site, wide_site, offsets, tiles_per_row, top
 
 
 @numba.njit(cache=True)
@@ -94,7 +96,7 @@ def _grow_discs(n_cells, seed, launch_gap, step, first_level, capacity):
     n_discs = 1
     n_filled = 1
     half = 64
-    items, filled, has_site, near_site, offsets, tiles_per_row, top = _build_cells(
+    items, filled, has_site, near_site, wide_site, offsets, tiles_per_row, top = _build_cells(
         ys, xs, 1, half, first_level, capacity
     )
     taken = _build_raster(cell_rows, cell_cols, 1, half)
@@ -104,7 +106,7 @@ def _grow_discs(n_cells, seed, launch_gap, step, first_level, capacity):
         r_far = r_launch + 2.0
         if r_far + 4.0 >= half:
             half *= 2
-            items, filled, has_site, near_site, offsets, tiles_per_row, top = _build_cells(
+            items, filled, has_site, near_site, wide_site, offsets, tiles_per_row, top = _build_cells(
                 ys, xs, n_discs, half, first_level, capacity
             )
             taken = _build_raster(cell_rows, cell_cols, n_filled, half)
@@ -155,8 +157,9 @@ def _grow_discs(n_cells, seed, launch_gap, step, first_level, capacity):
                 size = 1 << level
                 fy = y + half - ((gr >> level) << level)
                 fx = x + half - ((gc >> level) << level)
-                # Centres outside the clear 3 x 3 blocks are at least this far.
-                clear = min(min(fy, size - fy), min(fx, size - fx)) + size
+                # Centres outside the clear 3 x 3 (or 5 x 5) blocks are at least this far.
+                rings = 2 - _bit(wide_site, offsets, tiles_per_row, level, gr >> level, gc >> level)
+                clear = min(min(fy, size - fy), min(fx, size - fx)) + rings * size
                 free = max(free, clear - 1.0)
             else:
                 level = first_level
@@ -199,7 +202,7 @@ def _grow_discs(n_cells, seed, launch_gap, step, first_level, capacity):
                 raise ValueError("more disc centres in one unit cell than discs of diameter 1 allow")
             items[r, c, filled[r, c]] = n_discs
             filled[r, c] += 1
-            _mark_blocks(has_site, near_site, offsets, tiles_per_row, top, first_level, r, c)
+            _mark_blocks(has_site, near_site, wide_site, offsets, tiles_per_row, top, first_level, r, c)
             n_discs += 1
             r_max = max(r_max, np.sqrt(x * x + y * y))
             cell_r = int(np.floor(y + 0.5))

@@ -62,12 +62,12 @@ def _tiles_to_grid(tiles: np.ndarray, side: int) -> np.ndarray:
 def test_the_maps_walkers_read_match_an_independent_computation():
     # Safety of every jump rests on these maps, so they are checked against scipy: the capped
     # near-field map against the chessboard distance transform, each level of the block
-    # hierarchy against block occupancy dilated by one block.
+    # hierarchy against block occupancy dilated by one block and by two.
     half = 256
     sites = arrival_sites(grown("dla", 3000, 5))
     rows = np.ascontiguousarray(sites[:, 0], dtype=np.int32)
     cols = np.ascontiguousarray(sites[:, 1], dtype=np.int32)
-    closeness, has_site, near_site, offsets, tiles_per_row, top = _build_grid(
+    closeness, has_site, near_site, wide_site, offsets, tiles_per_row, top = _build_grid(
         rows, cols, len(rows), half, _FIRST_LEVEL, _NEAR_CAP
     )
     side = 2 * half
@@ -78,11 +78,12 @@ def test_the_maps_walkers_read_match_an_independent_computation():
     assert np.array_equal(_tiles_to_grid(closeness, side), expected)
     for level in range(_FIRST_LEVEL, top + 1):
         blocks = side >> level
-        words = near_site[offsets[level] : offsets[level + 1]].reshape(blocks // 8, blocks // 8)
-        bits = (words[..., None] >> np.arange(64)) & 1
-        near = _tiles_to_grid(bits, blocks).astype(bool)
         holds = occupied.reshape(blocks, 1 << level, blocks, 1 << level).any(axis=(1, 3))
-        assert np.array_equal(near, ndimage.binary_dilation(holds, np.ones((3, 3), bool))), level
+        for bits, reach in ((near_site, 1), (wide_site, 2)):
+            words = bits[offsets[level] : offsets[level + 1]].reshape(blocks // 8, blocks // 8)
+            flags = _tiles_to_grid((words[..., None] >> np.arange(64)) & 1, blocks).astype(bool)
+            square = np.ones((2 * reach + 1, 2 * reach + 1), bool)
+            assert np.array_equal(flags, ndimage.binary_dilation(holds, square)), (level, reach)
 
 
 def test_low_sticking_grows_denser_clusters():
