@@ -15,6 +15,7 @@ from service.simulate.ballistic import ballistic
 from service.simulate.dbm import dbm
 from service.simulate.dla import dla
 from service.simulate.eden import eden
+from service.simulate.offlattice import dla_offlattice
 
 #: Regime name -> growth function. The library builder and the matcher iterate over this;
 #: a new regime is one module plus one line here. (numba compiles each kernel on first call,
@@ -24,6 +25,7 @@ SIMULATORS: dict[str, Callable[..., np.ndarray]] = {
     "eden": eden,
     "ballistic": ballistic,
     "dbm": dbm,
+    "dla_offlattice": dla_offlattice,
 }
 REGIMES: tuple[str, ...] = tuple(SIMULATORS)
 
@@ -41,4 +43,4 @@ def grow(regime: str, n_particles: int, *, seed: int, **parameters) -> np.ndarra
     return simulator(regime)(n_particles, seed=seed, **parameters)
 
 
-__all__ = ["REGIMES", "SIMULATORS", "ballistic", "dbm", "dla", "eden", "grow", "simulator"]
+__all__ = ["REGIMES", "SIMULATORS", "ballistic", "dbm", "dla", "dla_offlattice", "eden", "grow", "simulator"]
