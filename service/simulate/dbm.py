@@ -32,6 +32,10 @@ LOCAL_WINDOWS = (4, 12, 32)
 MAX_LOCAL_SWEEPS = 20
 REGRID_TOLERANCE = 1e-6
 REGRID_CYCLES = 30
+#: Outer-electrode mode: growth stops once a site lies within STOP_GAP lattice units of
+#: the electrode circle; radii below MIN_OUTER_RADIUS are refused.
+STOP_GAP = 2.0
+MIN_OUTER_RADIUS = 8
 #: Every COARSE_EVERY sites the smooth far-field error is removed on blocks of
 #: COARSE_BLOCK x COARSE_BLOCK cells (a two-grid correction), with at most
 #: MAX_COARSE_SWEEPS coarse sweeps.
@@ -40,6 +44,17 @@ COARSE_BLOCK = 4
 MAX_COARSE_SWEEPS = 200
 
 _FREE, _CLUSTER, _ELECTRODE = 0, 1, 2
+
+#: Largest site distance from the seed of free-growing clusters (electrode far away),
+#: R_max(n) ~ R_1000 * (n / 1000) ** b, measured with this module: mean of 3 seeds
+#: (100-102) at n = 300 and 1,000, b the slope between them. Used only to choose an
+#: outer electrode radius (``outer_radius_for``); extrapolation beyond a few thousand
+#: sites is rough, which is why the reach actually attained is measured afterwards.
+RADIUS_TABLE_ETA = (0.0, 0.5, 1.0, 1.5, 2.0, 3.0, 4.0)
+RADIUS_TABLE_R1000 = (25.3, 32.8, 40.7, 64.9, 82.2, 155.1, 264.4)
+RADIUS_TABLE_EXPONENT = (0.40, 0.49, 0.55, 0.70, 0.73, 0.83, 0.94)
+#: Default target reach (max radius / outer radius) for ``outer_radius_for``.
+DEFAULT_REACH = 0.9
 
 
 @numba.njit(cache=True)
@@ -161,6 +176,8 @@ def _perimeter_weight(value, eta):
         return value
     if eta == 2.0:
         return value * value
+    if eta == 3.0:
+        return value * value * value
     if eta == 4.0:
         sq = value * value
         return sq * sq
@@ -313,14 +330,18 @@ def _make_grid(r_out: int, old_order: np.ndarray | None, old_phi: np.ndarray | N
     return order, kind, np.ascontiguousarray(phi, dtype=np.float64)
 
 
-def _grow(n_particles: int, eta: float, seed: int, *, windows=LOCAL_WINDOWS,
-          rel_tol: float = RELATIVE_TOLERANCE, coarse_every: int = COARSE_EVERY):
+def _grow(n_particles: int, eta: float, seed: int, *, outer_radius: int | None = None,
+          windows=LOCAL_WINDOWS, rel_tol: float = RELATIVE_TOLERANCE,
+          coarse_every: int = COARSE_EVERY):
     """Grow the cluster; return the full grid ``(order, kind, phi)`` as the solver left it.
 
-    The solver settings are exposed for the accuracy tests and the benchmark.
+    With ``outer_radius`` the electrode is fixed at that radius and growth stops once the
+    cluster radius reaches ``outer_radius - STOP_GAP``. The solver settings are exposed
+    for the accuracy tests and the benchmark.
     """
     uniforms = np.random.default_rng(seed).random(n_particles)
-    r_out = _electrode_radius(1.0)
+    fixed = outer_radius is not None
+    r_out = int(outer_radius) if fixed else _electrode_radius(1.0)
     order, kind, phi = _make_grid(r_out, None, None, None, 0.0)
     windows = np.array(windows, dtype=np.int64)
     k = 1
@@ -333,28 +354,39 @@ def _grow(n_particles: int, eta: float, seed: int, *, windows=LOCAL_WINDOWS,
             if _sor_window(phi, kind, 1, side - 1, 1, side - 1, omega_fine,
                            REGRID_TOLERANCE, 20) < 20:
                 break
+        # fixed electrode: grow while the cluster radius is below outer_radius - STOP_GAP
+        r_limit = r_out - STOP_GAP - 1e-9 if fixed else _radius_limit(r_out)
         k, r_cluster = _grow_on_grid(order, kind, phi, k, n_particles, uniforms, float(eta),
-                                     _radius_limit(r_out), windows, MAX_LOCAL_SWEEPS, rel_tol,
+                                     r_limit, windows, MAX_LOCAL_SWEEPS, rel_tol,
                                      coarse_every, COARSE_BLOCK, omega_coarse)
-        if k >= n_particles:
+        if k >= n_particles or fixed:
             return order, kind, phi
         new_r_out = _electrode_radius(r_cluster)
         order, kind, phi = _make_grid(new_r_out, order, phi, r_out, r_cluster)
         r_out = new_r_out
 
 
-def dbm(n_particles: int, *, eta: float, seed: int) -> np.ndarray:
+def dbm(n_particles: int, *, eta: float, seed: int, outer_radius: int | None = None) -> np.ndarray:
     """Grow a dielectric breakdown cluster of ``n_particles`` sites.
 
     Parameters
     ----------
     n_particles : int
-        Number of occupied sites, at least 1.
+        Number of occupied sites, at least 1 (fewer when ``outer_radius`` stops growth).
     eta : float
         Exponent of the growth law, ``eta >= 0``: 0 gives Eden-like compact growth,
         1 the DLA class, large values nearly linear growth.
     seed : int
         Seed of ``numpy.random.default_rng``; same seed, same cluster, bit for bit.
+    outer_radius : int or None
+        Radius (lattice units) of a fixed outer electrode about the seed, at least
+        ``MIN_OUTER_RADIUS`` (8). Growth then stops at ``n_particles`` sites or as soon
+        as a site lies within ``STOP_GAP`` (2) lattice units of the electrode circle,
+        whichever comes first: a deposit grown until it nearly reaches the rim
+        electrode, whose last growth feels that boundary. ``None`` (default): the
+        electrode stays far away (see Notes). ``outer_radius_for`` picks a radius that
+        a deposit of a given size nearly reaches, and ``reach`` measures how near it
+        came.
 
     Returns
     -------
@@ -367,7 +399,8 @@ def dbm(n_particles: int, *, eta: float, seed: int) -> np.ndarray:
     ------
     ValueError
         If ``n_particles`` is not a positive integer, ``eta`` is not a finite number
-        >= 0, or ``seed`` is not an integer.
+        >= 0, ``seed`` is not an integer, or ``outer_radius`` is neither None nor an
+        integer >= ``MIN_OUTER_RADIUS``.
 
     Notes
     -----
@@ -418,8 +451,59 @@ def dbm(n_particles: int, *, eta: float, seed: int) -> np.ndarray:
         raise ValueError(f"eta must be finite and >= 0, got {eta}")
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)):
         raise ValueError(f"seed must be an integer, got {seed!r}")
-    order, _, _ = _grow(int(n_particles), float(eta), int(seed))
+    if outer_radius is not None:
+        if isinstance(outer_radius, bool) or not isinstance(outer_radius, (int, np.integer)):
+            raise ValueError(f"outer_radius must be None or an integer number of lattice units, "
+                             f"got {outer_radius!r}")
+        if outer_radius < MIN_OUTER_RADIUS:
+            raise ValueError(f"outer_radius must be at least {MIN_OUTER_RADIUS}, got {outer_radius}")
+        outer_radius = int(outer_radius)
+    order, _, _ = _grow(int(n_particles), float(eta), int(seed), outer_radius=outer_radius)
     rows, cols = np.nonzero(order)
     centre = order.shape[0] // 2
     half = int(max(np.abs(rows - centre).max(), np.abs(cols - centre).max())) + 2
     return order[centre - half:centre + half + 1, centre - half:centre + half + 1].copy()
+
+
+def outer_radius_for(n_particles: int, *, eta: float, reach: float = DEFAULT_REACH) -> int:
+    """Outer electrode radius that a DBM deposit of ``n_particles`` sites nearly reaches.
+
+    The free-growth radius is estimated from a power law measured with this module
+    (``RADIUS_TABLE_*``: R_max(n) = R_1000 (n / 1000) ** b, R_1000 and b interpolated
+    linearly in eta, held at the eta = 4 values beyond), and divided by ``reach``.
+    Grown with ``dbm(n, eta=eta, seed=s, outer_radius=outer_radius_for(n, eta=eta))``,
+    a deposit either stops when it comes within 2 lattice units of the electrode (the
+    close electrode pulls its tips, so this is the usual case) or uses all n sites
+    short of it; record ``reach(cluster, radius)`` as the family parameter, not the
+    target.
+
+    Raises ValueError unless ``n_particles`` is a positive integer, ``eta`` a finite
+    number >= 0 and ``0 < reach <= 1``.
+    """
+    if isinstance(n_particles, bool) or not isinstance(n_particles, (int, np.integer)) or n_particles < 1:
+        raise ValueError(f"n_particles must be a positive integer, got {n_particles!r}")
+    if isinstance(eta, bool) or not isinstance(eta, (int, float, np.integer, np.floating)) or not (
+            math.isfinite(eta) and eta >= 0):
+        raise ValueError(f"eta must be a finite number >= 0, got {eta!r}")
+    if isinstance(reach, bool) or not isinstance(reach, (int, float, np.floating)) or not 0 < reach <= 1:
+        raise ValueError(f"reach must lie in (0, 1], got {reach!r}")
+    r1000 = math.exp(np.interp(eta, RADIUS_TABLE_ETA, np.log(RADIUS_TABLE_R1000)))
+    exponent = float(np.interp(eta, RADIUS_TABLE_ETA, RADIUS_TABLE_EXPONENT))
+    estimate = r1000 * (n_particles / 1000.0) ** exponent
+    return max(MIN_OUTER_RADIUS, int(math.ceil(estimate / reach)))
+
+
+def reach(cluster: np.ndarray, outer_radius: int) -> float:
+    """Largest distance of an occupied site from the seed, over ``outer_radius``.
+
+    ``cluster`` is a ``dbm`` result (seed at ``(h // 2, w // 2)``). A deposit grown with
+    ``outer_radius`` until it stopped at the electrode has a reach of at least
+    (outer_radius - 2) / outer_radius; one far from its electrode, much less.
+    """
+    if outer_radius is None or outer_radius <= 0:
+        raise ValueError(f"outer_radius must be positive, got {outer_radius!r}")
+    rows, cols = np.nonzero(cluster)
+    if rows.size == 0:
+        raise ValueError("the cluster has no occupied site")
+    centre = np.array(cluster.shape) // 2
+    return float(np.hypot(rows - centre[0], cols - centre[1]).max() / outer_radius)
