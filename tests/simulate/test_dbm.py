@@ -164,11 +164,13 @@ def test_eta_is_keyword_only():
 @pytest.mark.parametrize(
     ("n", "eta", "seed", "bound"),
     [
-        (400, 1.0, 0, 0.01),
-        (1000, 1.0, 1, 0.01),
-        (400, 2.0, 2, 0.02),
+        # sizes between V-cycles (the far field lags most there)
+        (403, 1.0, 0, 0.01),
+        (1003, 1.0, 1, 0.01),
+        (403, 2.0, 2, 0.02),
         # probabilities go as phi ** 4, so the relative error of phi is amplified 4-fold
-        (250, 4.0, 4, 0.05),
+        (251, 4.0, 4, 0.03),
+        (601, 4.0, 5, 0.03),
     ],
 )
 def test_warm_started_tip_probabilities_match_a_direct_solve(n, eta, seed, bound):
