@@ -58,7 +58,7 @@ MAX_LOCAL_SWEEPS = 20
 RELATIVE_TOLERANCE = 1e-4
 #: One V-cycle over the whole hierarchy every CYCLE_EVERY sites, with SWEEPS Gauss-Seidel
 #: sweeps before and after the coarse correction on each level.
-CYCLE_EVERY = 4
+CYCLE_EVERY = 8
 #: From eta = HIGH_ETA on, every CYCLE_EVERY_HIGH_ETA sites: growth probabilities go as
 #: phi ** eta, so the far-field lag between cycles weighs eta-fold.
 HIGH_ETA = 2.5
@@ -862,7 +862,7 @@ def dbm(n_particles: int, *, eta: float, seed: int, outer_radius: int | None = N
     lattice unit. After each new site (set to 0) fine windows of half-width 4, 12 and
     32 about it are relaxed by SOR (the correction is largest there) until a sweep
     corrects less than ``RELATIVE_TOLERANCE`` (1e-4) times the largest perimeter
-    potential, at most 20 sweeps each; every ``CYCLE_EVERY`` (4) sites, or every 2 from
+    potential, at most 20 sweeps each; every ``CYCLE_EVERY`` (8) sites, or every 2 from
     eta = 2.5 on, one FAS V(1, 1) cycle over the kept tiles of every level carries the
     change to the far field.
 
