@@ -106,12 +106,13 @@ def test_rebuild_replaces_the_set_and_keeps_its_cache(tiny_sets, dask_cluster, t
 
 def test_default_preset_covers_the_grid_the_library_promises():
     # The grid of the reference-library specification (issue 2): DLA sticking 1, 0.3, 0.1 in
-    # both neighbourhoods, Eden, ballistic, DBM eta 0.5-4, at least 12 realisations each.
+    # both neighbourhoods, Eden, ballistic, DBM eta 0.5-4, at least 12 realisations each; and
+    # the off-lattice DLA of unit discs that real deposits resemble (issue 10).
     specs = PRESETS["default"]
     grid = {(s.regime, tuple(sorted(s.parameters.items()))) for s in specs}
     dla = {("dla", (("neighborhood", nb), ("sticking", st))) for nb in ("von_neumann", "moore") for st in (1.0, 0.3, 0.1)}
     dbm = {("dbm", (("eta", eta),)) for eta in (0.5, 1.0, 1.5, 2.0, 3.0, 4.0)}
-    assert grid == dla | dbm | {("eden", ()), ("ballistic", ())}
+    assert grid == dla | dbm | {("eden", ()), ("ballistic", ()), ("dla_offlattice", ())}
     assert min(s.n_realisations for s in specs) >= 12
     assert len({s.id for s in specs}) == len(specs)
     # Finite-size effects are large below 10^4 sites: every regime but DBM reaches it.
