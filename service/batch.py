@@ -127,6 +127,8 @@ def run_analyze_command(args) -> int:
         mode=args.mode,
         polarity=args.polarity,
         threshold=args.threshold,
+        roi=args.roi,
+        exclude=tuple(args.exclude or ()),
         page=args.page,
         library_dir=args.library,
     )
