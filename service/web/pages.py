@@ -134,7 +134,8 @@ async def compare_page(
     lab: str | None = Depends(current_lab),
 ) -> HTMLResponse:
     records = await run_in_threadpool(store.get_many, ids, owner=lab) if ids else []
-    context: dict[str, Any] = {"records": records, "plots": {}, "rows": [], "distance": None}
+    context: dict[str, Any] = {"records": records, "plots": {}, "rows": [], "distance": None,
+                               "thumbnails": {r.id: file_url(r, "thumbnail.png") for r in records}}
     if len(records) >= 2:
         names = [r.label or r.filename or r.id[:8] for r in records]
         curves = await run_in_threadpool(
