@@ -108,6 +108,22 @@
         + `${shape} at (${e.cx.toFixed(0)}, ${e.cy.toFixed(0)}).`
         + (state.exclude.length ? ` ${state.exclude.length} area${state.exclude.length > 1 ? "s" : ""} left out.` : "");
       svg.classList.toggle("boxing", tool() === "exclude");
+      for (const input of numberInputs) {
+        if (document.activeElement !== input) input.value = String(Math.round(e[input.dataset.roi]));
+      }
+    }
+
+    // The same ellipse as numbers, for the keyboard and for exact values.
+    const numberInputs = Array.from(form.querySelectorAll("input[data-roi]"));
+    for (const input of numberInputs) {
+      input.addEventListener("input", () => {
+        const value = Number(input.value);
+        if (input.value === "" || !Number.isFinite(value)) return;
+        if ((input.dataset.roi === "rx" || input.dataset.roi === "ry") && value < 1) return;
+        state.ellipse[input.dataset.roi] = value;
+        state.roiSet = true;
+        changed();
+      });
     }
 
     function tool() { return form.elements.tool.value; }
