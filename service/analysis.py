@@ -19,6 +19,7 @@ from service.errors import LibraryError
 from service.features import Features, measure
 from service.imaging import LoadedImage, Segmentation, load_image, segment
 from service.imaging.load import DEFAULT_MAX_PIXELS
+from service.imaging.segmentation import LOW_CONFIDENCE
 
 
 @dataclass(frozen=True)
@@ -31,7 +32,8 @@ class AnalysisOptions:
     mode: str = "auto"
     polarity: str = "auto"
     threshold: float | None = None
-    roi: tuple[float, float, float] | None = None
+    roi: tuple[float, ...] | None = None
+    exclude: tuple[tuple[float, float, float, float], ...] | None = None
     page: int | None = None
     library_dir: str | None = None
     max_pixels: int | None = None
@@ -114,7 +116,8 @@ def analyze(
     mode: str = "auto",
     polarity: str = "auto",
     threshold: float | None = None,
-    roi: tuple[float, float, float] | None = None,
+    roi: tuple[float, ...] | None = None,
+    exclude=None,
     page: int | None = None,
     max_pixels: int | None = None,
     reference_set=None,
@@ -130,8 +133,10 @@ def analyze(
         The client's name for the file; kept as data only.
     pixel_size_mm : float, optional
         Calibration given by the user; overrides TIFF resolution tags.
-    mode, polarity, threshold, roi :
-        Segmentation overrides, see :func:`service.imaging.segment`.
+    mode, polarity, threshold, roi, exclude :
+        Segmentation overrides, see :func:`service.imaging.segment` (``roi`` a circle
+        ``(cx, cy, r)`` or an ellipse ``(cx, cy, rx, ry, angle_deg)``; ``exclude`` boxes
+        ``(x0, y0, x1, y1)`` in px).
     page : int, optional
         TIFF page to read (default: the first).
     max_pixels : int, optional
@@ -151,7 +156,7 @@ def analyze(
         filename = Path(source).name
     image = load_image(data, page=page, max_pixels=max_pixels or DEFAULT_MAX_PIXELS)
     calibration = _calibration(image, pixel_size_mm)
-    seg = segment(image, mode=mode, polarity=polarity, threshold=threshold, roi=roi)
+    seg = segment(image, mode=mode, polarity=polarity, threshold=threshold, roi=roi, exclude=exclude)
     features = measure(seg.mask, pixel_size_mm=calibration["pixel_size_mm"], center_rc=seg.center_rc)
     warnings = list(seg.warnings) + [w for w in features.warnings if w not in seg.warnings]
     if not calibration["calibrated"]:
@@ -167,6 +172,8 @@ def analyze(
             warnings.append(f"not ranked against the reference library: {exc}")
         else:
             warnings.extend(matching.pop("warnings", []))
+            if seg.confidence < LOW_CONFIDENCE:
+                warnings.append("the ranking rests on an uncertain mask: check the segmentation first")
     source_info = {
         "filename": filename,
         "sha256": hashlib.sha256(data).hexdigest(),
@@ -198,6 +205,7 @@ def analyze_with(source: bytes | str | Path, options: AnalysisOptions, *, refere
         polarity=options.polarity,
         threshold=options.threshold,
         roi=options.roi,
+        exclude=options.exclude,
         page=options.page,
         max_pixels=options.max_pixels,
         reference_set=reference_set,

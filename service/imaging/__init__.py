@@ -8,7 +8,7 @@ decoding; ``segment`` turns a photograph into a specimen mask with the settings 
 
 from service.imaging.load import ACCEPTED_FORMATS, LoadedImage, load_image, sniff_format
 from service.imaging.render import RenderedPhoto, render_photo, render_specimen
-from service.imaging.segment import MODES, POLARITIES, Segmentation, segment
+from service.imaging.segmentation import MODES, POLARITIES, Segmentation, segment
 
 __all__ = ["ACCEPTED_FORMATS", "MODES", "POLARITIES", "LoadedImage", "RenderedPhoto", "Segmentation", "load_image",
            "render_photo", "render_specimen", "segment", "sniff_format"]

@@ -1,0 +1,126 @@
+"""Cleanup in units of the specimen: specks, pinholes and the components kept, all scaled
+by the measured branch width, so a pattern drawn with 1 px strokes keeps its holes and tips."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+from scipy import ndimage
+
+from service.imaging.segmentation._common import EIGHT
+
+
+def branch_width_px(mask: np.ndarray) -> float:
+    """Typical branch width: twice the median distance-to-background on the ridge of the mask,
+    less one (a 1 px stroke is 1 px wide, a 3 px one 3 px).
+
+    The ridge is where the Euclidean distance transform is a local maximum; its median is
+    blind to the few wide blobs (an electrode) and to the many edge pixels. Large masks are
+    measured in tiles with a margin, so memory stays that of one tile.
+    """
+    if not mask.any():
+        return 1.0
+    rows = np.flatnonzero(mask.any(axis=1))
+    cols = np.flatnonzero(mask.any(axis=0))
+    crop = mask[rows[0]: rows[-1] + 1, cols[0]: cols[-1] + 1]
+    tile, margin = 1024, 64
+    values = []
+    for r0 in range(0, crop.shape[0], tile):
+        for c0 in range(0, crop.shape[1], tile):
+            a0, b0 = max(0, r0 - margin), max(0, c0 - margin)
+            piece = crop[a0: r0 + tile + margin, b0: c0 + tile + margin]
+            if not piece.any():
+                continue
+            dist = ndimage.distance_transform_edt(np.pad(piece, 1))[1:-1, 1:-1].astype(np.float32)
+            ridge = piece & (dist >= ndimage.maximum_filter(dist, size=3))
+            core = np.zeros_like(ridge)
+            core[r0 - a0: r0 - a0 + tile, c0 - b0: c0 - b0 + tile] = True
+            values.append(dist[ridge & core])
+    found = np.concatenate(values) if values else np.zeros(0, dtype=np.float32)
+    return float(max(1.0, 2.0 * float(np.median(found)) - 1.0)) if found.size else 1.0
+
+
+def cleanup_sizes(width_px: float) -> tuple[int, int]:
+    """Smallest component kept and largest hole filled, in px, for branches ``width_px`` wide.
+
+    A speck is anything under three branch-width squares (four pixels at the least); a pinhole
+    is a hole under half a branch-width square, and none is filled below 2.5 px widths, where
+    a one-pixel hole is as likely structure as noise.
+    """
+    min_object = max(4, int(round(3.0 * width_px * width_px)))
+    max_hole = int(0.5 * width_px * width_px) if width_px >= 2.5 else 0
+    return min_object, max_hole
+
+
+def keep_specimen(mask: np.ndarray, seed_rc: tuple[float, float], width_px: float,
+                  keep_all: bool) -> tuple[np.ndarray, dict[str, Any]]:
+    """Remove specks and pinholes; keep the component at or nearest the seed and sizeable others nearby."""
+    h, w = mask.shape
+    min_object_px, max_hole_px = cleanup_sizes(width_px)
+    labels, n = ndimage.label(mask, structure=EIGHT)
+    info: dict[str, Any] = {"min_object_px": min_object_px, "holes_filled_up_to_px": max_hole_px,
+                            "components_found": int(n)}
+    if n == 0:
+        info["components_kept"] = 0
+        return mask, info
+    sizes = np.bincount(labels.ravel())
+    sizes[0] = 0
+    big = sizes >= min_object_px
+    if not big.any():
+        info["components_kept"] = 0
+        return np.zeros_like(mask), info
+    if keep_all:
+        keep = big
+    else:
+        flat = labels.ravel()
+        idx = np.flatnonzero(flat)
+        lab = flat[idx]
+        rows_sum = np.bincount(lab, weights=idx // w, minlength=n + 1)
+        cols_sum = np.bincount(lab, weights=idx % w, minlength=n + 1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            cy, cx = rows_sum / sizes, cols_sum / sizes
+        dist = np.hypot(cy - seed_rc[0], cx - seed_rc[1])
+        r_seed, c_seed = int(round(seed_rc[0])), int(round(seed_rc[1]))
+        at_seed = labels[r_seed, c_seed] if 0 <= r_seed < h and 0 <= c_seed < w else 0
+        if at_seed and big[at_seed]:
+            main = [int(at_seed)]
+        else:
+            # Nearest sizeable component, favouring large ones: size / (1 + distance / side)^2.
+            score = np.where(big, sizes / (1.0 + dist / (0.1 * max(h, w))) ** 2, -1.0)
+            main = [int(np.argmax(score))]
+        largest = int(np.argmax(sizes))
+        if sizes[largest] > 5 * sizes[main[0]]:
+            main.append(largest)  # the seed sat on a small blob (an electrode standing free)
+        main_idx = idx[np.isin(lab, main)]
+        reach = float(np.sqrt(((main_idx // w - seed_rc[0]) ** 2 + (main_idx % w - seed_rc[1]) ** 2).max()))
+        keep = big & (sizes >= max(min_object_px, 0.002 * sizes[largest])) & (dist <= 1.1 * reach + 1.0)
+        keep[main] = True
+    keep[0] = False
+    kept = keep[labels]
+    del labels
+    if max_hole_px > 0:
+        kept = fill_small_holes(kept, max_hole_px)
+    info["components_kept"] = int(np.count_nonzero(keep))
+    return kept, info
+
+
+def fill_small_holes(mask: np.ndarray, max_hole_px: int) -> np.ndarray:
+    """Fill holes of at most ``max_hole_px`` pixels (in place, and returned)."""
+    rows = np.flatnonzero(mask.any(axis=1))
+    cols = np.flatnonzero(mask.any(axis=0))
+    if rows.size == 0:
+        return mask
+    r0, r1, c0, c1 = rows[0], rows[-1] + 1, cols[0], cols[-1] + 1
+    crop = mask[r0:r1, c0:c1]
+    holes, n = ndimage.label(~crop)  # 4-connected background, the dual of 8-connected foreground
+    if n == 0:
+        return mask
+    sizes = np.bincount(holes.ravel())
+    border = np.unique(np.concatenate([holes[0], holes[-1], holes[:, 0], holes[:, -1]]))
+    fill = sizes <= max_hole_px
+    fill[0] = False
+    fill[border] = False
+    if fill.any():
+        crop |= fill[holes]
+    return mask
