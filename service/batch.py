@@ -128,7 +128,7 @@ def run_analyze_command(args) -> int:
         polarity=args.polarity,
         threshold=args.threshold,
         roi=args.roi,
-        exclude=tuple(args.exclude or ()),
+        exclude=tuple(args.exclude) if args.exclude else None,
         page=args.page,
         library_dir=args.library,
     )

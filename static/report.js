@@ -203,9 +203,13 @@
       requestAnimationFrame(() => { previewQueued = false; preview(); });
     }
 
-    function polarityForPreview() {
+    // Pixels the threshold takes lie below it on the levels picture ("below") or above it; a
+    // polarity chosen against the one used turns the comparison round.
+    function takesBelow() {
+      const below = data.used.levels_compare ? data.used.levels_compare === "below" : data.used.polarity !== "bright";
       const chosen = form.elements.polarity.value;
-      return chosen === "auto" ? (data.used.polarity === "bright" ? "bright" : "dark") : chosen;
+      const flipped = chosen !== "auto" && data.used.polarity && chosen !== data.used.polarity;
+      return flipped ? !below : below;
     }
 
     function preview() {
@@ -218,7 +222,7 @@
       }
       const { width: lw, height: lh, values } = levels;
       const out = ctx.createImageData(lw, lh);
-      const t = Number(slider.value) * 255, dark = polarityForPreview() === "dark";
+      const t = Number(slider.value) * 255, dark = takesBelow();
       const region = state.roiSet ? state.ellipse : field;
       const sx = W / lw, sy = H / lh;
       let ca = 1, sa = 0;

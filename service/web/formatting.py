@@ -71,33 +71,29 @@ def uncertain(segmentation: dict[str, Any]) -> bool:
 
 
 def field_ellipse(field: Any, width_px: int, height_px: int) -> dict[str, float] | None:
-    """The segmentation's field of view as ``{cx, cy, rx, ry, angle_deg}`` in px, or None
-    (whole image, or a shape this page does not know)."""
-    if not isinstance(field, dict):
+    """The segmentation's field of view (``settings["field_of_view"]``) as ``{cx, cy, rx, ry,
+    angle_deg}`` in px, or None for the whole image.
+
+    The field reads ``{"center_rc": [row, col], "radius_px": r}`` for a circle, plus
+    ``"ellipse": {"semi_axes_px": [a, b], "angle_deg": t}`` when it is an ellipse (``a``
+    along the direction ``t`` degrees from +x towards +y).
+    """
+    if not isinstance(field, dict) or width_px <= 0 or height_px <= 0:
         return None
-    numbers = {k: v for k, v in field.items() if isinstance(v, (int, float, list))}
-    center = numbers.get("center_rc")
-    if isinstance(center, list) and len(center) == 2:
-        cy, cx = center
-    elif "cx" in numbers and "cy" in numbers:
-        cx, cy = numbers["cx"], numbers["cy"]
-    else:
+    center, radius = field.get("center_rc"), field.get("radius_px")
+    if not (isinstance(center, list) and len(center) == 2 and isinstance(radius, (int, float))):
         return None
-    angle = float(numbers.get("angle_deg", 0.0))
-    if "radius_px" in numbers:
-        rx = ry = numbers["radius_px"]
-    elif "rx_px" in numbers and "ry_px" in numbers:
-        rx, ry = numbers["rx_px"], numbers["ry_px"]
-    elif "rx" in numbers and "ry" in numbers:
-        rx, ry = numbers["rx"], numbers["ry"]
-    elif isinstance(numbers.get("radii_px"), list) and len(numbers["radii_px"]) == 2:
-        rx, ry = numbers["radii_px"]
-    elif "r" in numbers:
-        rx = ry = numbers["r"]
-    else:
+    rx = ry = radius
+    angle = 0.0
+    ellipse = field.get("ellipse")
+    if isinstance(ellipse, dict) and isinstance(ellipse.get("semi_axes_px"), list) and len(ellipse["semi_axes_px"]) == 2:
+        rx, ry = ellipse["semi_axes_px"]
+        angle = ellipse.get("angle_deg", 0.0)
+    try:
+        values = [float(v) for v in (center[1], center[0], rx, ry, angle)]
+    except (TypeError, ValueError):
         return None
-    values = [float(v) for v in (cx, cy, rx, ry, angle)]
-    if not all(math.isfinite(v) for v in values) or min(values[2:4]) <= 0 or width_px <= 0 or height_px <= 0:
+    if not all(math.isfinite(v) for v in values) or min(values[2:4]) <= 0:
         return None
     return dict(zip(("cx", "cy", "rx", "ry", "angle_deg"), values))
 

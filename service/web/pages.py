@@ -118,7 +118,7 @@ def reading_state(record, files: dict[str, str], history) -> dict[str, Any]:
         "height_px": height,
         "photo_url": files.get("photo.png"),
         "levels_url": files.get("levels.png"),
-        "used": {key: segmentation.get(key) for key in ("mode", "polarity", "threshold")},
+        "used": {key: segmentation.get(key) for key in ("mode", "polarity", "threshold", "levels_compare")},
         "field": formatting.field_ellipse(segmentation.get("field_of_view"), width, height),
         "requested": (history[-1].details.get("requested") if history else None) or {},
     }

@@ -178,7 +178,7 @@ def options_fields(requested: dict[str, Any]) -> dict[str, Any]:
         "polarity": requested.get("polarity", "auto"),
         "threshold": requested.get("threshold"),
         "roi": tuple(roi) if roi is not None else None,
-        "exclude": tuple(tuple(box) for box in requested.get("exclude") or ()),
+        "exclude": tuple(tuple(box) for box in requested["exclude"]) if requested.get("exclude") else None,
     }
 
 

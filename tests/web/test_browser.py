@@ -239,12 +239,12 @@ def test_fix_the_reading_on_the_report_without_uploading_again(server, browser, 
     threshold = float(page.input_value("#threshold"))
     first = _tinted(page)
     levels = np.asarray(Image.open(_io.BytesIO(httpx.get(server + body["files"]["levels.png"]).content)))
-    dark = body["segmentation"]["polarity"] == "dark"
+    dark = body["segmentation"]["levels_compare"] == "below"  # the threshold takes pixels below it
     expected = _expected_tint(levels, threshold, dark, _ellipse(page), width, height, boxes)
     assert first == pytest.approx(expected, rel=0.02, abs=20)  # edge pixels of the ellipse may differ
     for _ in range(20):
         page.keyboard.press("ArrowRight")
-    # a higher threshold takes more of a dark specimen's background, less of a bright one's
+    # a higher threshold takes more pixels when it takes those below it, fewer otherwise
     assert (_tinted(page) > first) is dark and _tinted(page) != first
     page.screenshot(path=shots / "reading-editor.png", full_page=True)
     assert not [s for s in sent if "/reanalyze" in s[1]], "the preview must not measure anything"

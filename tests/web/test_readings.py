@@ -43,7 +43,7 @@ def test_regions_and_boxes_become_what_segment_takes():
     fields = options_fields(requested)
     assert fields["roi"] == (5.0, 6.0, 7.0, 4.0, 30.0)
     assert fields["exclude"] == ((1, 2, 4, 4),)  # whole pixels, outward
-    assert options_fields({})["exclude"] == () and options_fields({})["polarity"] == "auto"
+    assert options_fields({})["exclude"] is None and options_fields({})["polarity"] == "auto"
 
 
 def test_a_region_or_box_wholly_outside_the_image_is_refused_with_the_reason():

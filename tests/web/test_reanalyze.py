@@ -149,7 +149,7 @@ def test_alternative_previews_and_the_threshold_picture_are_served(client, png):
     segmentation = analyze(png, match=False).segmentation
     t = body["segmentation"]["threshold"]
     values = np.asarray(segmentation.levels, dtype=float) / 255
-    predicted = values < t if body["segmentation"]["polarity"] == "dark" else values > t
+    predicted = values < t if body["segmentation"]["levels_compare"] == "below" else values > t
     specimen = segmentation.mask
     agreement = np.count_nonzero(predicted[specimen]) / np.count_nonzero(specimen)
     assert agreement > 0.8, agreement
@@ -175,8 +175,8 @@ BAD = [
     ({"reading": -1}, "reading"),
     ({"colour": "red"}, "colour"),
     # The box around this thin slanted ellipse overlaps the image's corner, the ellipse does
-    # not: only the segmentation's own check can refuse it.
-    ({"roi": {"cx": -20, "cy": -20, "rx": 60, "ry": 3, "angle_deg": -45}}, "outside"),
+    # not: only the segmentation's own check can refuse it (in its words).
+    ({"roi": {"cx": -20, "cy": -20, "rx": 60, "ry": 3, "angle_deg": -45}}, "field of view"),
 ]
 
 
