@@ -287,3 +287,40 @@ def test_fix_the_reading_on_the_report_without_uploading_again(server, browser, 
     phone.screenshot(path=shots / "report-375px.png", full_page=True)
     for name in ("reading-editor.png", "after-alternative.png", "report-375px.png"):
         assert (shots / name).stat().st_size > 0
+
+
+def test_the_upload_queue_marks_an_unsure_reading_needs_a_look(server, browser, tmp_path):
+    import json
+
+    paths = []
+    for seed in (6, 7):
+        path = tmp_path / f"dish-{seed}.png"
+        path.write_bytes(specimen_png(seed, size_px=300))
+        paths.append(str(path))
+    # The service's own answer for the first image, with its confidence lowered as an unsure
+    # reading would have it (a route cannot pass a page's file upload on and edit the answer).
+    answer = httpx.post(f"{server}/api/specimens", files={"image": ("dish-6.png", Path(paths[0]).read_bytes())},
+                        timeout=180)
+    assert answer.status_code == 201, answer.text
+    doubtful = answer.json()
+    doubtful["segmentation"]["confidence"] = 0.21
+    page = browser.new_page(viewport={"width": 375, "height": 812})
+    answered = []
+
+    def doubt_the_first(route):
+        if answered:
+            route.continue_()
+            return
+        answered.append(True)
+        route.fulfill(status=201, content_type="application/json", body=json.dumps(doubtful))
+
+    page.route(f"{server}/api/specimens", doubt_the_first)
+    page.goto(server + "/")
+    page.set_input_files("#files", paths)
+    page.locator("#queue li.done, #queue li.needs-look, #queue li.failed").nth(1).wait_for(timeout=180_000)
+    unsure = page.locator("#queue li.needs-look")
+    assert unsure.count() == 1 and "needs a look" in unsure.inner_text() and "0.21" in unsure.inner_text()
+    assert unsure.locator("a.report-link").get_attribute("href") == doubtful["report_url"]
+    assert page.locator("#queue li.done a.report-link").count() == 1
+    assert page.evaluate("document.documentElement.scrollWidth") <= 375
+    page.screenshot(path=ARTIFACTS / "upload-queue-needs-a-look.png", full_page=True)
