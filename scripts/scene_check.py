@@ -5,6 +5,8 @@ photo with ``service.imaging.segment`` (automatic everything), and prints per sc
 with the true deposit and what was drawn, then the IoU distribution, the pass rate, a
 breakdown by nuisance, and the worst scenes. ``--save-worst K --out DIR`` writes the K
 worst as PNGs: photo | photo with the reading (white: right, red: missed, green: extra).
+"took" lists what the reading took besides the deposit (electrode, wire, tape, glare, rim,
+solution, bench) and what it missed, as fractions of the deposit's area.
 
     python scripts/scene_check.py 100
     python scripts/scene_check.py 300 --dimension --save-worst 12 --out /tmp/worst
@@ -70,6 +72,8 @@ def main(argv: list[str] | None = None) -> int:
                 d_seg = "-" if record["d_seg"] is None else f"{record['d_seg']:.3f}"
                 dims = f" D {record['d_true']:.3f}->{d_seg}{'' if record['d_usable'] else '(unusable)'}"
             err = f" [{record['error']}]" if record["error"] else ""
+            if record.get("taken"):
+                err += " took " + ", ".join(f"{k} {v:.2f}" for k, v in record["taken"].items())
             print(f"IoU {record['iou']:.3f}{dims} {record['seconds']:.2f}s{err}  {summary(scene.description)}",
                   flush=True)
         if args.save_worst:

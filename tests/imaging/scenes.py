@@ -29,7 +29,7 @@ from __future__ import annotations
 import functools
 import io
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -37,7 +37,7 @@ from PIL import Image, ImageDraw, ImageFont
 from scipy import ndimage
 
 __all__ = ["CLUSTER_KINDS", "Scene", "box_dimension", "cluster", "iou", "judge", "random_deposit", "random_scene",
-           "render_scene", "report", "scene_switches", "summary"]
+           "render_scene", "report", "scene_switches", "summary", "taken"]
 
 #: Cluster families the scenes draw from: (regime, parameters, particle counts). DBM is slow
 #: (a Laplace solve per site) and grows ever more linear with eta, so its clusters stay small.
@@ -78,11 +78,15 @@ class Scene:
         The visible deposit (without electrode, wire, tape, rim).
     description : dict
         Every random choice made (JSON-serialisable); ``summary`` turns it into one line.
+    parts : dict of str to ndarray of bool
+        Where the other things were drawn, for diagnosis: ``solution`` (inside the dish),
+        and when drawn ``rim``, ``tape``, ``electrode``, ``wire``, ``glare``.
     """
 
     photo: np.ndarray
     truth: np.ndarray
     description: dict[str, Any]
+    parts: dict[str, np.ndarray] = field(default_factory=dict)
 
 
 # ----------------------------------------------------------------------------- deposits
@@ -316,8 +320,9 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
 
     axes_ratio = rng.uniform(0.75, 1.0) if on["slant"] else 1.0
     tilt = rng.uniform(0.0, math.pi)
-    # Dish centre: where the deposit (extent * radius) stays inside the frame with a margin.
-    margin = 8.0
+    # Dish centre: where the deposit stays inside the frame with a margin, whatever its shift
+    # from the dish centre (below 0.08 radius) and its thickening (below 3 sites and 2 px).
+    margin = 8.0 + 0.08 * radius_px + 3.0 * scale + 2.0
     reach_x = extent * radius_px * math.hypot(math.cos(tilt), axes_ratio * math.sin(tilt)) + margin
     reach_y = extent * radius_px * math.hypot(math.sin(tilt), axes_ratio * math.cos(tilt)) + margin
     spread = 0.35 if on["off_centre"] or on["cut_by_frame"] else 0.04
@@ -403,6 +408,7 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
         "switches": dict(on),
     }
     nuis = description["nuisances"]
+    parts: dict[str, np.ndarray] = {}
 
     # --- dish wall (rim band) and solution ----------------------------------------------------
     if on["rim_band"] or on["light_ring"]:
@@ -414,10 +420,13 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
             wall = _with_luma(_grey(1.0, 0.05, rng), rng.uniform(0.45, 0.9))
         else:
             wall = _with_luma(rng.uniform(0.2, 1.0, 3), rng.uniform(0.1, 0.9))
-        _mix(img, wall, _soft(np.minimum(radius_px + width_here - rho, rho - radius_px + 2.0)))
+        wall_alpha = _soft(np.minimum(radius_px + width_here - rho, rho - radius_px + 2.0))
+        _mix(img, wall, wall_alpha)
+        parts["rim"] = (wall_alpha >= 0.5) & (rho >= radius_px)
         nuis["rim_band"] = {"width_px": round(wall_width, 1), "wobble": round(wobble, 2),
                             "colour": [round(v, 3) for v in wall], "lighter_ring": on["light_ring"]}
     _mix(img, solution, _soft(radius_px - rho))
+    parts["solution"] = rho < radius_px
 
     if on["copper_tape"]:
         tape_width = rng.uniform(0.02, 0.06) * radius_px
@@ -426,11 +435,15 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
                  * _arc_window(psi, tape_at, tape_half))
         tape = _with_luma(_TAPE, rng.uniform(0.45, 0.8))
         _mix(img, tape, alpha)
+        parts["tape"] = alpha >= 0.5
         nuis["copper_tape"] = {"width_px": round(tape_width, 1), "arc_deg": round(math.degrees(2 * tape_half), 0)}
 
     # --- the deposit ---------------------------------------------------------------------------
-    blur = rng.uniform(0.5, 2.0) if on["soft_edges"] else 0.35
-    blur = min(blur, 0.45 * float(thick_info["branch_width_px"][0]) + 0.3)
+    # Soft edges up to 2 px, but never beyond a quarter of the narrowest branch: there the
+    # branch still reaches 95% of its contrast at its centre (erf(2 / sqrt 2)), so its outline
+    # is in the photo; a blur that wipes a branch out asks the camera, not the segmenter.
+    blur_max = min(2.0, max(0.5, 0.25 * float(thick_info["branch_width_px"][0])))
+    blur = rng.uniform(0.5, blur_max) if on["soft_edges"] else 0.35
     alpha = ndimage.gaussian_filter(deposit_img.astype(np.float64), blur)
     if on["deposit_texture"]:
         texture = 1.0 + 0.12 * _smooth_field(rng, (h, w), rng.uniform(1.0, 4.0))
@@ -452,6 +465,7 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
         el_alpha = _soft(el_radius - seed_rho)
         _mix(img, el_colour, el_alpha)
         truth &= el_alpha < 0.5
+        parts["electrode"] = el_alpha >= 0.5
         nuis["electrode"] = {"radius_px": round(el_radius, 1), "brighter_than_deposit": brighter}
         # where the electrode sits in the image
         sa, sb = q0a, q0b
@@ -481,6 +495,7 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
             wire_kind = str(rng.choice(list(wire_colour)))
             _mix(img, wire_colour[wire_kind], wire_alpha)
             truth &= wire_alpha < 0.5
+            parts["wire"] = wire_alpha >= 0.5
             nuis["wire"] = {"width_px": round(wire_width, 1), "colour": wire_kind, "from_side": side,
                             "shadow": on["wire_shadow"]}
 
@@ -568,6 +583,8 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
                 d2 = (xx[r0:r1, c0:c1] - gx) ** 2 + (yy[r0:r1, c0:c1] - gy) ** 2
                 if not (near_deposit[r0:r1, c0:c1] & (d2 <= (1.3 * spot_r) ** 2)).any():
                     img[r0:r1, c0:c1] += 1.6 * np.exp(-0.5 * d2 / (0.6 * spot_r) ** 2)[..., None]
+                    glare_part = parts.setdefault("glare", np.zeros((h, w), dtype=bool))
+                    glare_part[r0:r1, c0:c1] |= d2 <= spot_r**2
                     spots.append([round(gx, 1), round(gy, 1), round(spot_r, 1)])
                     break
         nuis["glare"] = {"spots_xyr": spots}
@@ -593,7 +610,7 @@ def render_scene(deposit: np.ndarray, seed: int, *, dense: bool = False,
     description["deposit"]["fill_of_dish"] = round(float(deposit_img.sum()) / dish_area, 3)
     description["deposit"]["envelope_of_dish"] = round(
         float(np.count_nonzero(seed_rho <= float(seed_rho[deposit_img].max()))) / dish_area, 3)
-    return Scene(photo=photo, truth=truth, description=description)
+    return Scene(photo=photo, truth=truth, description=description, parts=parts)
 
 
 def random_scene(seed: int) -> Scene:
@@ -650,11 +667,31 @@ def box_dimension(mask: np.ndarray) -> tuple[float, bool]:
     return float(fit["value"]), bool(usable)
 
 
+def taken(mask: np.ndarray, scene: Scene) -> dict[str, float]:
+    """What a reading took besides the deposit, and what it missed, as fractions of the truth's area.
+
+    Keys: each drawn part (``electrode``, ``wire``, ``tape``, ``rim``, ``glare``), ``solution``
+    (the rest of the dish), ``bench`` (outside the dish), and ``missed`` (deposit left out).
+    Only the non-zero ones are returned.
+    """
+    area = max(1, int(np.count_nonzero(scene.truth)))
+    extra = np.asarray(mask, bool) & ~scene.truth
+    out: dict[str, float] = {}
+    for name in ("electrode", "wire", "tape", "glare", "rim"):
+        if name in scene.parts:
+            out[name] = np.count_nonzero(extra & scene.parts[name]) / area
+            extra = extra & ~scene.parts[name]
+    out["solution"] = np.count_nonzero(extra & scene.parts["solution"]) / area
+    out["bench"] = np.count_nonzero(extra & ~scene.parts["solution"]) / area
+    out["missed"] = np.count_nonzero(scene.truth & ~np.asarray(mask, bool)) / area
+    return {k: round(float(v), 3) for k, v in out.items() if v > 0}
+
+
 def judge(scene: Scene, *, dimension: bool = True) -> dict[str, Any]:
     """Segment the scene's photo automatically (public API only) and compare with the truth.
 
-    Returns ``seed``, ``iou``, ``error`` (the exception text when segmentation refused), and
-    with ``dimension``: ``d_true``, ``d_seg``, ``d_usable`` (the true mask's fit is usable).
+    Returns ``seed``, ``iou``, ``error`` (the exception text when segmentation refused),
+    ``taken`` (see ``taken``), ``mask`` (the reading, or None), and with ``dimension``: ``d_true``, ``d_seg``, ``d_usable`` (the true mask's fit is usable).
     """
     from service.imaging import segment
 
@@ -667,14 +704,18 @@ def judge(scene: Scene, *, dimension: bool = True) -> dict[str, Any]:
     else:
         record["iou"] = iou(mask, scene.truth)
         record["mask"] = mask
+        record["taken"] = taken(mask, scene)
     if dimension:
         d_true, usable = box_dimension(scene.truth)
         record.update(d_true=d_true, d_usable=usable, d_seg=None)
         if mask is not None and mask.any():
+            from service.errors import SpecimenError
+
             try:
-                record["d_seg"] = box_dimension(mask)[0]
-            except ValueError:
-                pass
+                d_seg = box_dimension(mask)[0]
+            except (ValueError, SpecimenError):  # too small a reading to measure: no dimension
+                d_seg = math.nan
+            record["d_seg"] = d_seg if math.isfinite(d_seg) else None
     return record
 
 
@@ -709,6 +750,8 @@ def report(records: list[dict[str, Any]], descriptions: dict[int, dict[str, Any]
     lines.append(f"worst {min(worst, len(records))}:")
     for r in sorted(records, key=lambda r: r["iou"])[:worst]:
         extra = f" [{r['error']}]" if r.get("error") else ""
+        if r.get("taken"):
+            extra += " took " + ", ".join(f"{k} {v:.2f}" for k, v in r["taken"].items())
         lines.append(f"  IoU {r['iou']:.3f}{extra}  {summary(descriptions[r['seed']])}")
     return "\n".join(lines)
 

@@ -85,16 +85,20 @@ def test_the_truth_is_the_visible_deposit_in_the_photo(seed):
     ring = ndimage.binary_dilation(scene.truth, iterations=8) & ~ndimage.binary_dilation(scene.truth, iterations=4)
     contrast = np.median(gray[core]) - np.median(gray[ring])
     assert (contrast < -30) if d["polarity"] == "dark" else (contrast > 30), contrast
-    # Inside the dish ellipse.
+    # Inside the dish ellipse described.
     cx, cy = d["dish"]["center_xy"]
     t = np.deg2rad(d["dish"]["angle_deg"])
     rows, cols = np.nonzero(scene.truth)
     qa = np.cos(t) * (cols - cx) + np.sin(t) * (rows - cy)
     qb = (-np.sin(t) * (cols - cx) + np.cos(t) * (rows - cy)) / d["dish"]["axes_ratio"]
     assert np.hypot(qa, qb).max() < d["dish"]["radius_px"]
-    # Both scenes draw an electrode (and a wire): the truth has a hole where it sits.
-    assert "electrode" in d["nuisances"] and "wire" in d["nuisances"]
-    labels, n = ndimage.label(~scene.truth)
+    assert not (scene.truth & ~scene.parts["solution"]).any()
+    # Both scenes draw an electrode and a wire to it, across the deposit: neither is truth.
+    electrode, wire = scene.parts["electrode"], scene.parts["wire"]
+    assert not (scene.truth & (electrode | wire)).any()
+    near_deposit = ndimage.binary_dilation(scene.truth, iterations=3)
+    assert (near_deposit & wire & ~ndimage.binary_dilation(electrode, iterations=3)).any()
+    _, n = ndimage.label(~scene.truth)
     assert n >= 2  # the background and at least the electrode's hole
 
 
@@ -108,12 +112,14 @@ def test_dense_deposits_spread_over_about_half_the_dish(seed):
     assert deposit["fill_of_dish"] >= 0.25, summary(scene.description)
 
 
-def test_branches_are_drawn_at_least_three_pixels_wide():
+def test_branches_are_drawn_at_least_three_pixels_wide_and_not_blurred_away():
     """The bench never asks for lines a blurred, compressed photograph cannot hold."""
-    for seed in (0, 5, 13):
+    for seed in (0, 5, 13, 40, 70):
         scene = random_scene(seed)
         lo, hi = scene.description["deposit"]["branch_width_px"]
         assert 3.0 <= lo <= hi
+        # ... nor blurs them beyond a quarter of the narrowest branch.
+        assert scene.description["nuisances"]["soft_edges_px"] <= max(0.5, 0.25 * lo)
 
 
 # ----------------------------------------------------------------------------- segmentation
