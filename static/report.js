@@ -6,6 +6,7 @@
   const SVG = "http://www.w3.org/2000/svg";
   const HANDLE_SCREEN_PX = 11;
   const MIN_BOX_PX = 3;
+  let dropWindowListeners = null;
 
   function initDelete() {
     const button = document.getElementById("delete-button");
@@ -288,7 +289,10 @@
     document.getElementById("reading-reset").addEventListener("click", () => {
       measure({ mode: null, polarity: null, threshold: null, roi: null, exclude: null }, "every setting automatic");
     });
-    window.addEventListener("resize", draw);
+    // One resize listener per editor: the one of a report swapped out is dropped.
+    if (dropWindowListeners) dropWindowListeners.abort();
+    dropWindowListeners = new AbortController();
+    window.addEventListener("resize", draw, { signal: dropWindowListeners.signal });
 
     form.addEventListener("submit", (event) => {
       event.preventDefault();

@@ -12,8 +12,7 @@ from pydantic import BaseModel, ConfigDict, Field
 from sqlalchemy import text
 
 from service import __version__
-from service.store import SpecimenRecord, Store, specimens_csv
-from service.store.store import Reading
+from service.store import Reading, SpecimenRecord, Store, specimens_csv
 from service.web import readings
 from service.web.deps import current_lab, get_pool, get_settings, get_store
 from service.web.jobs import AnalysisOptions, AnalysisPool, run_analysis
