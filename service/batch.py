@@ -128,6 +128,8 @@ def run_analyze_command(args) -> int:
         mode=args.mode,
         polarity=args.polarity,
         threshold=args.threshold,
+        roi=args.roi,
+        exclude=tuple(args.exclude) if args.exclude else None,
         page=args.page,
         library_dir=args.library,
     )

@@ -7,8 +7,43 @@ numeric core or the web layer; nothing else lives in this module.
 from __future__ import annotations
 
 import argparse
+import math
 import sys
 from collections.abc import Sequence
+
+
+def _numbers(text: str, counts: tuple[int, ...], what: str) -> tuple[float, ...]:
+    try:
+        numbers = tuple(float(part) for part in text.split(","))
+    except ValueError:
+        numbers = ()
+    if len(numbers) not in counts or not all(math.isfinite(v) for v in numbers):
+        raise argparse.ArgumentTypeError(f"{what}, got {text!r}")
+    return numbers
+
+
+def region_of_interest(text: str) -> tuple[float, ...]:
+    """``--roi``: CX,CY,R (a circle) or CX,CY,RX,RY,ANGLE (an ellipse; degrees from +x towards +y), px."""
+    expected = "expected CX,CY,R (a circle) or CX,CY,RX,RY,ANGLE (an ellipse) in pixels"
+    numbers = _numbers(text, (3, 5), expected)
+    if not all(radius > 0 for radius in numbers[2:4]):
+        raise argparse.ArgumentTypeError(f"the radii must be positive ({expected}), got {text!r}")
+    return numbers
+
+
+def exclusion_box(text: str) -> tuple[int, int, int, int]:
+    """``--exclude``: X0,Y0,X1,Y1 in px, columns x0..x1 and rows y0..y1 (ends excluded)."""
+    x0, y0, x1, y1 = _numbers(text, (4,), "expected X0,Y0,X1,Y1 in pixels")
+    if not (x1 > x0 and y1 > y0):
+        raise argparse.ArgumentTypeError(f"the box needs X1 > X0 and Y1 > Y0, got {text!r}")
+    return (math.floor(x0), math.floor(y0), math.ceil(x1), math.ceil(y1))
+
+
+def _threshold(text: str) -> float:
+    value = _numbers(text, (1,), "expected a number strictly between 0 and 1")[0]
+    if not 0 < value < 1:
+        raise argparse.ArgumentTypeError(f"expected a number strictly between 0 and 1, got {text!r}")
+    return value
 
 
 def _add_analyze(sub: argparse._SubParsersAction) -> None:
@@ -23,7 +58,13 @@ def _add_analyze(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--mode", choices=["auto", "threshold", "ridge"], default="auto", help="segmentation mode")
     p.add_argument("--polarity", choices=["auto", "dark", "bright"], default="auto",
                    help="whether the specimen is darker or brighter than its background")
-    p.add_argument("--threshold", type=float, default=None, help="fixed threshold on the flattened image (0-1)")
+    p.add_argument("--threshold", type=_threshold, default=None,
+                   help="fixed threshold on the flattened image (strictly between 0 and 1)")
+    p.add_argument("--roi", type=region_of_interest, default=None, metavar="CX,CY,R|CX,CY,RX,RY,ANGLE",
+                   help="the dish or region to analyse, in px: a circle, or an ellipse whose RX axis lies ANGLE "
+                        "degrees from +x towards +y (default: found in the image)")
+    p.add_argument("--exclude", type=exclusion_box, action="append", default=None, metavar="X0,Y0,X1,Y1",
+                   help="a box to leave out (a label, a wire, glare), px, end excluded; repeat for several")
     p.add_argument("--page", type=int, default=None, help="TIFF page to read (default: the first)")
     p.set_defaults(func=_run_analyze)
 

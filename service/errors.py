@@ -34,3 +34,9 @@ class LibraryError(RamiformError):
     """A reference set is missing, damaged, or of a schema this version does not read."""
 
     status_code = 500
+
+
+class ConflictError(RamiformError):
+    """The request raced another one that changed the same specimen first; nothing was changed."""
+
+    status_code = 409

@@ -8,6 +8,7 @@
   const queue = document.getElementById("queue");
   const demo = document.getElementById("demo-button");
   const CONCURRENT = 2;
+  const UNCERTAIN_BELOW = 0.5; // service.web.formatting.UNCERTAIN_BELOW
   let waiting = [];
   let running = 0;
   let batchSize = 0;
@@ -60,15 +61,18 @@
     xhr.onload = () => {
       const body = xhr.response || {};
       if (xhr.status === 201) {
-        view.li.className = "done";
+        // A reading the segmentation itself doubts is not "done": the outline needs a person's look.
+        const confidence = body.segmentation ? body.segmentation.confidence : null;
+        const doubtful = typeof confidence === "number" && confidence < UNCERTAIN_BELOW;
+        view.li.className = doubtful ? "needs-look" : "done";
         view.bar.value = 100;
         view.state.replaceChildren();
         const link = document.createElement("a");
         link.href = body.report_url;
         link.className = "report-link";
         const d = body.features && body.features.box_dimension ? body.features.box_dimension.value : null;
-        text(link, "report" + (typeof d === "number" ? " · D = " + d.toFixed(3) : ""));
-        view.state.append("done: ", link);
+        text(link, (doubtful ? "check the outline" : "report") + (typeof d === "number" ? " · D = " + d.toFixed(3) : ""));
+        view.state.append(doubtful ? "needs a look (unsure reading, confidence " + confidence.toFixed(2) + "): " : "done: ", link);
         if (batchSize === 1) window.location.assign(body.report_url);
       } else {
         fail(view, body.detail || ("the server answered " + xhr.status));

@@ -2,9 +2,10 @@
 
 from service.store.export import specimen_row, specimens_csv
 from service.store.files import write_durably, write_folder_durably
-from service.store.store import SpecimenRecord, Store, make_engine, new_specimen_id
+from service.store.store import Reading, SpecimenRecord, Store, make_engine, new_specimen_id
 
 __all__ = [
+    "Reading",
     "SpecimenRecord",
     "Store",
     "make_engine",

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from functools import partial
 from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Depends, File, Form, HTTPException, Query, Request, UploadFile
@@ -11,9 +12,11 @@ from pydantic import BaseModel, ConfigDict, Field
 from sqlalchemy import text
 
 from service import __version__
-from service.store import SpecimenRecord, Store, specimens_csv
+from service.store import Reading, SpecimenRecord, Store, specimens_csv
+from service.web import readings
 from service.web.deps import current_lab, get_pool, get_settings, get_store
 from service.web.jobs import AnalysisOptions, AnalysisPool, run_analysis
+from service.web.readings import Reanalysis
 from service.web.references import reference_set_or_error
 from service.web.settings import Settings
 
@@ -35,6 +38,12 @@ _UPLOAD_ERRORS: dict[int | str, dict[str, Any]] = {
     503: {"model": ErrorBody, "description": "the analysis worker stopped; try again"},
 }
 _NOT_FOUND: dict[int | str, dict[str, Any]] = {404: {"model": ErrorBody, "description": "no such specimen"}}
+_REANALYSIS_ERRORS: dict[int | str, dict[str, Any]] = {
+    **_NOT_FOUND,
+    409: {"model": ErrorBody, "description": "another request measured the specimen again meanwhile; nothing changed"},
+    422: {"model": ErrorBody, "description": "an override is invalid (e.g. a region outside the image); nothing changed"},
+    503: {"model": ErrorBody, "description": "the analysis worker stopped; try again"},
+}
 
 
 class SpecimenSummary(BaseModel):
@@ -83,18 +92,24 @@ class Specimen(BaseModel):
     parameter_estimates: Any = None
     explanation: Any = None
     warnings: list[str]
+    history: list[dict[str, Any]] | None = Field(
+        None, description="the readings of this specimen, oldest first: 1 is the upload, then each re-measurement")
 
 
 def file_url(record: SpecimenRecord, name: str) -> str:
-    return f"/api/specimens/{record.id}/files/{name}"
+    """The file's URL; a file of a later reading carries its reading folder, so the browser
+    (which may keep a file for a year) never shows a replaced picture under a new analysis."""
+    url = f"/api/specimens/{record.id}/files/{name}"
+    stored = record.stored_path(name) or name
+    return f"{url}?v={stored.rsplit('/', 1)[0]}" if "/" in stored else url
 
 
 def report_url(record: SpecimenRecord) -> str:
     return f"/specimens/{record.id}"
 
 
-def specimen_body(record: SpecimenRecord) -> dict[str, Any]:
-    return {
+def specimen_body(record: SpecimenRecord, history: list[Reading] | None = None) -> dict[str, Any]:
+    body = {
         **record.analysis,
         "id": record.id,
         "report_url": report_url(record),
@@ -103,6 +118,9 @@ def specimen_body(record: SpecimenRecord) -> dict[str, Any]:
         "created_at": record.created_at.isoformat(),
         "files": {name: file_url(record, name) for name in record.files},
     }
+    if history is not None:
+        body["history"] = [reading.to_dict() for reading in history]
+    return body
 
 
 def summary(record: SpecimenRecord) -> dict[str, Any]:
@@ -129,16 +147,23 @@ def summary(record: SpecimenRecord) -> dict[str, Any]:
     }
 
 
-def _roi(value: str | None) -> tuple[float, float, float] | None:
+def _roi(value: str | None) -> tuple[float, ...] | None:
+    """The upload field 'cx,cy,r' (circle) or 'cx,cy,rx,ry,angle_deg' (ellipse), in px."""
     if value is None or not value.strip():
         return None
     try:
-        cx, cy, r = (float(part) for part in value.split(","))
+        numbers = [float(part) for part in value.split(",")]
     except ValueError:
-        raise HTTPException(422, f"roi must read 'cx,cy,r' in pixels, got {value!r}") from None
-    if not r > 0:
-        raise HTTPException(422, f"roi radius must be positive, got {r}")
-    return cx, cy, r
+        numbers = []
+    fields = ("cx", "cy", "r") if len(numbers) == 3 else ("cx", "cy", "rx", "ry", "angle_deg")
+    try:
+        region = readings.RegionOfInterest(**dict(zip(fields, numbers)))
+    except ValueError:
+        region = None
+    if len(numbers) not in (3, 5) or region is None:
+        raise HTTPException(422, "roi must read 'cx,cy,r' (a circle) or 'cx,cy,rx,ry,angle_deg' (an ellipse), "
+                                 f"in pixels with positive radii, got {value!r}")
+    return region.as_tuple()
 
 
 def _display_name(filename: str | None) -> str | None:
@@ -171,7 +196,8 @@ async def create_specimen(
     polarity: Annotated[Literal["auto", "dark", "bright"],
                         Form(description="specimen darker (dark) or brighter (bright) than its background")] = "auto",
     threshold: Annotated[float | None, Form(ge=0, le=1, description="fixed threshold, 0-1")] = None,
-    roi: Annotated[str | None, Form(description="circle to analyse: 'cx,cy,r' in px")] = None,
+    roi: Annotated[str | None, Form(description="region to analyse: 'cx,cy,r' (circle) or "
+                                                "'cx,cy,rx,ry,angle_deg' (ellipse) in px")] = None,
     page: Annotated[int | None, Form(ge=0, description="TIFF page (0-based)")] = None,
     settings: Settings = Depends(get_settings),
     store: Store = Depends(get_store),
@@ -193,10 +219,12 @@ async def create_specimen(
         result = await pool.run(run_analysis, data, options)
     except ValueError as exc:  # the pipeline's message says what was wrong with the input
         raise HTTPException(422, str(exc)) from exc
-    record = await run_in_threadpool(
-        store.add, result["analysis"], result["files"], label=label, kind=kind, filename=filename, owner=lab
-    )
-    return specimen_body(record)
+    asked = readings.upload_overrides(mode=mode, polarity=polarity, threshold=threshold, roi=options.roi)
+    first = readings.history_entry(result["analysis"], asked, origin="upload")
+    record = await run_in_threadpool(partial(
+        store.add, result["analysis"], result["files"], label=label, kind=kind, filename=filename, owner=lab,
+        reading=first))
+    return specimen_body(record, await run_in_threadpool(store.history, record.id, owner=lab))
 
 
 @router.get("/specimens", response_model=SpecimenPage, summary="List specimens, newest first")
@@ -227,7 +255,73 @@ async def export_all(
 async def read_specimen(
     specimen_id: str, store: Store = Depends(get_store), lab: str | None = Depends(current_lab)
 ) -> dict[str, Any]:
-    return specimen_body(await _found(store, specimen_id, lab))
+    record = await _found(store, specimen_id, lab)
+    return specimen_body(record, await run_in_threadpool(store.history, specimen_id, owner=lab))
+
+
+@router.get("/specimens/{specimen_id}/history", responses=_NOT_FOUND,
+            summary="The readings of one specimen, oldest first")
+async def specimen_history(
+    specimen_id: str, store: Store = Depends(get_store), lab: str | None = Depends(current_lab)
+) -> list[dict[str, Any]]:
+    history = await run_in_threadpool(store.history, specimen_id, owner=lab)
+    if history is None:
+        raise HTTPException(404, f"no specimen {specimen_id!r}")
+    return [reading.to_dict() for reading in history]
+
+
+@router.post("/specimens/{specimen_id}/reanalyze", response_model=Specimen, responses=_REANALYSIS_ERRORS,
+             summary="Measure a stored specimen again with other settings (no re-upload)")
+async def reanalyze_specimen(
+    specimen_id: str,
+    body: Reanalysis,
+    settings: Settings = Depends(get_settings),
+    store: Store = Depends(get_store),
+    pool: AnalysisPool = Depends(get_pool),
+    lab: str | None = Depends(current_lab),
+) -> dict[str, Any]:
+    """Segment and measure the stored original again with the overrides given.
+
+    Fields left out keep what the current reading asked for; ``null`` returns a field to the
+    automatic choice; ``reading`` takes one of the current analysis's alternatives. The
+    specimen keeps its id, label and kind; the new reading is appended to its history and
+    its pictures are replaced. Invalid overrides change nothing.
+    """
+    record = await _found(store, specimen_id, lab)
+    history = await run_in_threadpool(store.history, specimen_id, owner=lab) or []
+    previous = history[-1].details.get("requested", {}) if history else {}
+    analysis = record.analysis
+    image = analysis.get("image") or {}
+    try:
+        requested, taken = readings.resolve(body, previous, analysis)
+        readings.check_against_image(requested, int(image.get("width_px") or 0), int(image.get("height_px") or 0))
+    except ValueError as exc:
+        raise HTTPException(422, str(exc)) from exc
+    source = next((name for name in record.files if name.startswith("source.")), None)
+    if source is None:
+        raise HTTPException(409, "the original image of this specimen is not stored; upload it again")
+    data = await run_in_threadpool(store.file_path(record, source).read_bytes)
+    calibration = analysis.get("calibration") or {}
+    options = AnalysisOptions(
+        filename=record.filename,
+        pixel_size_mm=calibration.get("pixel_size_mm") if calibration.get("source") == "user" else None,
+        page=image.get("page"),
+        library_dir=str(settings.library_dir) if settings.library_dir else None,
+        max_pixels=settings.max_pixels,
+        **readings.options_fields(requested),
+    )
+    try:
+        result = await pool.run(run_analysis, data, options)
+    except ValueError as exc:
+        raise HTTPException(422, str(exc)) from exc
+    files = {name: content for name, content in result["files"].items() if name != source}
+    entry = readings.history_entry(result["analysis"], requested, origin="re-measured", alternative=taken)
+    updated = await run_in_threadpool(partial(
+        store.replace, specimen_id, result["analysis"], files, keep=(source,), reading=entry, owner=lab,
+        first_reading=readings.history_entry(analysis, {}, origin="upload")))
+    if updated is None:
+        raise HTTPException(404, f"no specimen {specimen_id!r}")
+    return specimen_body(updated, await run_in_threadpool(store.history, specimen_id, owner=lab))
 
 
 @router.delete("/specimens/{specimen_id}", status_code=204, response_class=Response, responses=_NOT_FOUND,
@@ -256,7 +350,8 @@ async def specimen_file(
 ) -> FileResponse:
     record = await _found(store, specimen_id, lab)
     path = store.file_path(record, name)
-    if path is None:
+    # is_file: a reader holding the record of a reading just replaced finds its files gone
+    if path is None or not await run_in_threadpool(path.is_file):
         raise HTTPException(404, f"specimen {specimen_id!r} has no file {name!r}")
     media_type = _MEDIA_TYPES.get(name.rsplit(".", 1)[-1], "application/octet-stream")
     headers = {"Cache-Control": "private, max-age=31536000, immutable", "X-Content-Type-Options": "nosniff"}

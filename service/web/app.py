@@ -38,6 +38,10 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         swept = app.state.store.sweep_orphans()
         if swept:
             log.info("removed %d specimen folders that no record names (left by an interrupted upload)", len(swept))
+        unused = app.state.store.sweep_unused_readings()
+        if unused:
+            log.info("removed %d reading folders that no record names (left by an interrupted re-measurement)",
+                     len(unused))
         app.state.pool = AnalysisPool(settings.worker_count)
         log.info("ramiform %s: database %s, data folder %s, %d analysis processes", __version__,
                  app.state.store.engine.dialect.name, settings.data_dir.resolve(), settings.worker_count)

@@ -29,7 +29,9 @@ def install_error_handlers(app: FastAPI) -> None:
 
     @app.exception_handler(RequestValidationError)
     async def _invalid_request(request: Request, exc: RequestValidationError) -> JSONResponse:
-        detail = "; ".join(f"{_location(tuple(e.get('loc', ())))}: {e.get('msg', 'invalid')}" for e in exc.errors())
+        # Pydantic prefixes a validator's own sentence with "Value error, "; the sentence is the reason.
+        detail = "; ".join(f"{_location(tuple(e.get('loc', ())))}: {str(e.get('msg', 'invalid')).removeprefix('Value error, ')}"
+                           for e in exc.errors())
         return JSONResponse({"detail": detail or "invalid request"}, status_code=422)
 
     @app.exception_handler(Exception)

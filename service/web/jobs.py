@@ -56,7 +56,9 @@ def run_analysis(data: bytes, options: AnalysisOptions) -> dict[str, Any]:
 
     Files: ``source.<format>`` (the upload), ``photo.png`` and ``overlay.png`` (display
     size), ``mask.png`` (full size, 1 bit), ``thumbnail.png``, ``box_counting.svg``,
-    ``lacunarity.svg`` and, when ranked, ``references.svg``.
+    ``lacunarity.svg``, when ranked ``references.svg``, a small ``alternative_<i>.png`` per
+    alternative reading the segmentation offers, and ``levels.png`` (display size), the
+    picture its threshold applies to, when it has one.
 
     Raises the pipeline's own errors (``RamiformError`` subclasses, ``ValueError``) unchanged.
     """
@@ -73,15 +75,17 @@ def run_analysis(data: bytes, options: AnalysisOptions) -> dict[str, Any]:
     mask = result.segmentation.mask
     features = result.features
     overlay = pictures.annotated_overlay(rgb, mask, features.skeleton_mask, features.tips_rc, features.junctions_rc)
+    photo = pictures.display_photo(rgb)
     files = {
         f"source.{_SOURCE_SUFFIX.get(result.image.format, 'img')}": bytes(data),
-        "photo.png": pictures.png_bytes(pictures.display_photo(rgb)),
+        "photo.png": pictures.png_bytes(photo),
         "overlay.png": pictures.png_bytes(overlay),
         "mask.png": pictures.png_bytes(mask),
         "thumbnail.png": pictures.png_bytes(pictures.thumbnail(overlay)),
         "box_counting.svg": plots.box_counting_svg(analysis["features"].get("box_dimension", {})),
         "lacunarity.svg": plots.lacunarity_svg(analysis["features"].get("lacunarity", {})),
     }
+    files.update(reading_pictures(result.segmentation, photo.shape[:2]))
     rows = matcher_rows(analysis)
     if rows:
         explanation = analysis["explanation"]
@@ -89,6 +93,17 @@ def run_analysis(data: bytes, options: AnalysisOptions) -> dict[str, Any]:
             rows, family_name(explanation.get("best")) or "best match", family_name(explanation.get("runner_up"))
         )
     return {"analysis": analysis, "files": files}
+
+
+def reading_pictures(segmentation, display_shape: tuple[int, int]) -> dict[str, bytes]:
+    """``alternative_<i>.png`` for each alternative reading and ``levels.png`` (at ``display_shape``)."""
+    from service.web import pictures
+
+    files = {f"alternative_{i}.png": pictures.png_bytes(pictures.mask_preview(alternative.preview))
+             for i, alternative in enumerate(segmentation.alternatives)}
+    if segmentation.levels is not None:
+        files["levels.png"] = pictures.png_bytes(pictures.levels_picture(segmentation.levels, display_shape))
+    return files
 
 
 def matcher_distances(vectors: list[list[float]], library_dir: str | None) -> list[list[float]]:

@@ -14,7 +14,7 @@ from fastapi.templating import Jinja2Templates
 from service.errors import LibraryError
 from service.store import Store
 from service.store.export import flatten
-from service.web import compare, formatting, plots
+from service.web import compare, formatting, plots, readings
 from service.web.api import file_url, summary
 from service.web.deps import current_lab, get_pool, get_settings, get_store
 from service.web.demo import DEMO_FILENAME, DEMO_LABEL, DEMO_STORY, ensure_demo_jpeg
@@ -95,9 +95,33 @@ async def report_page(
     files = {name: file_url(record, name) for name in record.files}
     measurements = [(k, v) for k, v in flatten("", analysis.get("features", {})) if v is not None]
     explanation = analysis.get("explanation") if isinstance(analysis.get("explanation"), dict) else {}
+    history = await run_in_threadpool(store.history, specimen_id, owner=lab) or []
+    segmentation = analysis.get("segmentation") or {}
     return _page(request, "report.html", record=record, a=analysis, files=files, matches=matches,
                  nearest=nearest, measurements=measurements, cautions=cautions_for(record.kind),
-                 explanation=explanation, deciding=formatting.deciding_in_words(explanation))
+                 explanation=explanation, deciding=formatting.deciding_in_words(explanation),
+                 confidence=segmentation.get("confidence"), uncertain=formatting.uncertain(segmentation),
+                 alternatives=readings.alternatives_of(analysis),
+                 history=[formatting.reading_in_words(r.to_dict()) for r in reversed(history)],
+                 reading=reading_state(record, files, history))
+
+
+def reading_state(record, files: dict[str, str], history) -> dict[str, Any]:
+    """What the report's reading editor starts from (read by report.js from a JSON block)."""
+    analysis = record.analysis
+    image = analysis.get("image") or {}
+    segmentation = analysis.get("segmentation") or {}
+    width, height = int(image.get("width_px") or 0), int(image.get("height_px") or 0)
+    return {
+        "id": record.id,
+        "width_px": width,
+        "height_px": height,
+        "photo_url": files.get("photo.png"),
+        "levels_url": files.get("levels.png"),
+        "used": {key: segmentation.get(key) for key in ("mode", "polarity", "threshold", "levels_compare")},
+        "field": formatting.field_ellipse(segmentation.get("field_of_view"), width, height),
+        "requested": (history[-1].details.get("requested") if history else None) or {},
+    }
 
 
 @router.get("/compare", response_class=HTMLResponse)
@@ -110,7 +134,8 @@ async def compare_page(
     lab: str | None = Depends(current_lab),
 ) -> HTMLResponse:
     records = await run_in_threadpool(store.get_many, ids, owner=lab) if ids else []
-    context: dict[str, Any] = {"records": records, "plots": {}, "rows": [], "distance": None}
+    context: dict[str, Any] = {"records": records, "plots": {}, "rows": [], "distance": None,
+                               "thumbnails": {r.id: file_url(r, "thumbnail.png") for r in records}}
     if len(records) >= 2:
         names = [r.label or r.filename or r.id[:8] for r in records]
         curves = await run_in_threadpool(

@@ -85,3 +85,27 @@ def annotated_overlay(
 
 def thumbnail(rgb: np.ndarray, longest_px: int = THUMBNAIL_PX) -> np.ndarray:
     return display_photo(rgb, longest_px)
+
+
+PAPER_RGB = (251, 250, 247)
+INK_RGB = (29, 42, 51)
+
+
+def mask_preview(mask: np.ndarray) -> np.ndarray:
+    """A small mask as a picture: the specimen in ink on paper (RGB)."""
+    out = np.empty((*mask.shape, 3), dtype=np.uint8)
+    out[...] = PAPER_RGB
+    out[np.asarray(mask, dtype=bool)] = INK_RGB
+    return out
+
+
+def levels_picture(levels: np.ndarray, display_shape: tuple[int, int]) -> np.ndarray:
+    """The picture a threshold is applied to, at the size of the displayed photo (uint8 gray).
+
+    The report page compares it with a slider's value in the browser, pixel by pixel, to
+    preview a threshold before anything is measured.
+    """
+    levels = np.asarray(levels, dtype=np.uint8)
+    if levels.shape == tuple(display_shape):
+        return levels
+    return np.asarray(Image.fromarray(levels).resize((display_shape[1], display_shape[0]), Image.Resampling.BOX))

@@ -112,3 +112,39 @@ def test_a_dask_cluster_gives_the_same_lines_in_the_same_order(images, capsys):
         assert fr["lacunarity"]["values"] == pytest.approx(fl["lacunarity"]["values"], rel=1e-9)
         assert fr["skeleton"] == fl["skeleton"]
         assert [m["regime"] for m in r["matches"]] == [m["regime"] for m in l["matches"]]
+
+
+def test_region_and_exclusion_boxes_reach_the_segmentation(images, capsys):
+    from service.analysis import analyze
+
+    path = images[0]
+    for roi_flag, roi in (("210,230,190", (210.0, 230.0, 190.0)),
+                          ("210,230,200,170,-15", (210.0, 230.0, 200.0, 170.0, -15.0))):
+        status = main(["analyze", str(path), "--json", "--workers", "1", "--roi", roi_flag,
+                       "--exclude", "0,0,60,40", "--exclude", "350.5,0,420,30"])
+        assert status == 0
+        record = json.loads(capsys.readouterr().out)
+        # The same file through the pipeline with the same choices (boxes as whole pixels, outward).
+        direct = analyze(path, roi=roi, exclude=((0, 0, 60, 40), (350, 0, 420, 30)), match=False).to_dict()
+        assert record["segmentation"] == direct["segmentation"], roi_flag
+        assert record["features"] == direct["features"], roi_flag
+
+
+@pytest.mark.parametrize(("flags", "reason"), [
+    (["--roi", "1,2"], "CX,CY,R"),
+    (["--roi", "1,2,3,4"], "CX,CY,R"),
+    (["--roi", "a,b,c"], "CX,CY,R"),
+    (["--roi", "10,10,-5"], "radii must be positive"),
+    (["--roi", "10,10,5,0,30"], "radii must be positive"),
+    (["--roi", "10,10,nan"], "CX,CY,R"),
+    (["--exclude", "0,0,10"], "X0,Y0,X1,Y1"),
+    (["--exclude", "10,0,5,10"], "X1 > X0"),
+    (["--threshold", "3"], "between 0 and 1"),
+    (["--polarity", "purple"], "invalid choice"),
+])
+def test_bad_overrides_are_argparse_errors_that_say_what_was_expected(images, capsys, flags, reason):
+    with pytest.raises(SystemExit) as stop:
+        main(["analyze", str(images[0]), *flags])
+    assert stop.value.code == 2  # argparse's usage error
+    err = capsys.readouterr().err
+    assert reason in err and flags[0] in err, err

@@ -57,6 +57,7 @@ def _routes(specimen_id: str) -> list[tuple[str, str]]:
     return [("GET", "/api/specimens"), ("GET", "/api/specimens/export.csv"), ("GET", f"/api/specimens/{specimen_id}"),
             ("GET", f"/api/specimens/{specimen_id}/export.csv"),
             ("GET", f"/api/specimens/{specimen_id}/files/thumbnail.png"), ("DELETE", f"/api/specimens/{specimen_id}"),
+            ("GET", f"/api/specimens/{specimen_id}/history"), ("POST", f"/api/specimens/{specimen_id}/reanalyze"),
             ("GET", "/api/references")]
 
 
@@ -99,10 +100,16 @@ def test_another_labs_id_answers_exactly_like_a_missing_one(labs):
         absent = client.request(method, template.format(missing), headers=bearer(KEY_A))
         assert foreign.status_code == absent.status_code == 404, (template, foreign.status_code)
         assert foreign.json()["detail"].replace(theirs, "ID") == absent.json()["detail"].replace(missing, "ID")
+    for path in ("/api/specimens/{}/reanalyze",):
+        foreign = client.post(path.format(theirs), json={"threshold": 0.4}, headers=bearer(KEY_A))
+        absent = client.post(path.format(missing), json={"threshold": 0.4}, headers=bearer(KEY_A))
+        assert foreign.status_code == absent.status_code == 404, (path, foreign.status_code)
+        assert foreign.json()["detail"].replace(theirs, "ID") == absent.json()["detail"].replace(missing, "ID")
     compare = client.get("/compare", params=[("ids", ids["lab-a"]), ("ids", theirs)], headers=bearer(KEY_A))
     assert compare.status_code == 200 and theirs not in compare.text
-    # Lab B's specimen survived lab A's attempt to delete it.
-    assert client.get(f"/api/specimens/{theirs}", headers=bearer(KEY_B)).status_code == 200
+    # Lab B's specimen survived lab A's attempts to delete and to re-measure it.
+    kept = client.get(f"/api/specimens/{theirs}", headers=bearer(KEY_B))
+    assert kept.status_code == 200 and [h["number"] for h in kept.json()["history"]] == [1]
 
 
 def test_pages_ask_for_the_key_once_and_keep_a_signed_cookie(labs):

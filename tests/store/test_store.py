@@ -5,6 +5,7 @@ from __future__ import annotations
 import csv
 import io
 import os
+import unittest.mock as mock
 from pathlib import Path
 
 import pytest
@@ -165,3 +166,89 @@ def test_sweep_removes_only_old_folders_without_a_record(store):
     # instance's upload between its files and its commit, so it is left alone.
     assert store.folder(kept.id).is_dir() and store.get(kept.id) is not None
     assert store.folder(fresh).is_dir()
+
+
+def test_a_new_reading_replaces_analysis_and_pictures_and_keeps_the_history(store):
+    source = b"\x89PNG original bytes"
+    first = store.add(_analysis(0), {"source.png": source, "overlay.png": b"overlay 1", "mask.png": b"mask 1"},
+                      label="cell A", kind="coral", filename="dish-0.png", reading={"origin": "upload"})
+    assert [r.number for r in store.history(first.id)] == [1]
+
+    second = store.replace(first.id, _analysis(1), {"overlay.png": b"overlay 2", "mask.png": b"mask 2"},
+                           keep=("source.png",), reading={"origin": "re-measured", "requested": {"threshold": 0.4}})
+    # same identity, new analysis, the original kept byte for byte, the pictures replaced
+    assert (second.id, second.label, second.kind, second.filename, second.created_at) == \
+        (first.id, "cell A", "coral", "dish-0.png", first.created_at)
+    assert second.analysis == _analysis(1) and store.get(first.id) == second
+    assert second.files == ("mask.png", "overlay.png", "source.png")
+    assert store.file_path(second, "source.png").read_bytes() == source
+    assert store.file_path(second, "overlay.png").read_bytes() == b"overlay 2"
+    # the replaced pictures are gone from disk; only the record's files remain
+    on_disk = sorted(p.relative_to(store.folder(first.id)).as_posix()
+                     for p in store.folder(first.id).rglob("*") if p.is_file())
+    assert on_disk == sorted(second.stored_paths)
+
+    history = store.history(first.id)
+    assert [(r.number, r.details.get("origin")) for r in history] == [(1, "upload"), (2, "re-measured")]
+    assert history[1].details["requested"] == {"threshold": 0.4}
+    assert history[0].created_at == first.created_at and history[1].created_at >= first.created_at
+
+    third = store.replace(first.id, _analysis(2), {"overlay.png": b"overlay 3"}, keep=("source.png",),
+                          reading={"origin": "re-measured"})
+    assert third.files == ("overlay.png", "source.png") and [r.number for r in store.history(first.id)] == [1, 2, 3]
+    assert len(list(store.folder(first.id).glob("reading-*"))) == 1
+
+    # another owner sees neither the specimen nor its history, and cannot replace it
+    owned = store.add(_analysis(3), {"source.png": source}, owner="lab-a", reading={})
+    assert store.history(owned.id, owner="lab-b") is None
+    assert store.replace(owned.id, _analysis(4), {"overlay.png": b"x"}, keep=("source.png",), reading={},
+                         owner="lab-b") is None
+    assert store.get(owned.id).analysis == _analysis(3)
+
+    # deleting removes the history with the record
+    assert store.delete(first.id)
+    assert store.history(first.id) is None and not store.folder(first.id).exists()
+
+
+def test_a_stale_reading_is_refused_and_leaves_nothing_behind(store):
+    from service.errors import ConflictError
+
+    record = store.add(_analysis(0), {"source.png": b"src", "overlay.png": b"1"}, reading={"origin": "upload"})
+    store.replace(record.id, _analysis(1), {"overlay.png": b"2"}, keep=("source.png",), reading={"n": 2})
+    before = sorted(p.as_posix() for p in store.folder(record.id).rglob("*"))
+    # A writer that read the record before the reading above and commits after it.
+    with mock.patch.object(type(store), "get", return_value=record), pytest.raises(ConflictError, match="meanwhile"):
+        store.replace(record.id, _analysis(2), {"overlay.png": b"3"}, keep=("source.png",), reading={"n": 3})
+    assert sorted(p.as_posix() for p in store.folder(record.id).rglob("*")) == before
+    assert store.get(record.id).analysis == _analysis(1)
+    assert [r.number for r in store.history(record.id)] == [1, 2]
+    with pytest.raises(ValueError, match="does not have"):
+        store.replace(record.id, _analysis(2), {"overlay.png": b"3"}, keep=("source.tif",), reading={})
+
+
+def test_a_specimen_stored_before_readings_were_kept_gains_its_first_reading(store):
+    from sqlalchemy import delete as sql_delete
+    from sqlalchemy.orm import Session
+
+    from service.store.models import ReadingRow
+
+    record = store.add(_analysis(0), {"source.png": b"src", "overlay.png": b"1"})
+    with Session(store.engine) as session, session.begin():  # as an earlier version left it
+        session.execute(sql_delete(ReadingRow))
+    assert store.history(record.id) == []
+    store.replace(record.id, _analysis(1), {"overlay.png": b"2"}, keep=("source.png",), reading={"origin": "again"},
+                  first_reading={"origin": "upload", "recorded": "afterwards"})
+    assert [(r.number, r.details["origin"]) for r in store.history(record.id)] == [(1, "upload"), (2, "again")]
+
+
+def test_sweep_removes_reading_folders_no_record_names(store):
+    record = store.add(_analysis(0), {"source.png": b"src", "overlay.png": b"1"}, reading={})
+    record = store.replace(record.id, _analysis(1), {"overlay.png": b"2"}, keep=("source.png",), reading={})
+    used = record.stored_path("overlay.png").split("/")[0]
+    interrupted = store.folder(record.id) / "reading-3-deadbeef"
+    write_folder_durably(interrupted, {"overlay.png": b"never committed"})
+    two_hours_ago = os.path.getmtime(interrupted) - 7200
+    for folder in (interrupted, store.folder(record.id) / used):
+        os.utime(folder, (two_hours_ago, two_hours_ago))
+    assert store.sweep_unused_readings(older_than_s=3600) == [f"{record.id}/reading-3-deadbeef"]
+    assert not interrupted.exists() and store.file_path(record, "overlay.png").read_bytes() == b"2"

@@ -14,6 +14,7 @@ import time
 from pathlib import Path
 
 import httpx
+import numpy as np
 import pytest
 
 from tests.web.conftest import specimen_png
@@ -113,9 +114,11 @@ def test_several_images_dropped_at_once_show_progress_and_links(server, browser,
     page.goto(server + "/")
     page.set_input_files("#files", paths)
     # A locator wait, not wait_for_function: the pages' CSP forbids evaluating strings as script.
-    page.locator("#queue li.done, #queue li.failed").nth(1).wait_for(timeout=120_000)
+    finished = "#queue li.done, #queue li.needs-look, #queue li.failed"
+    page.locator(finished).nth(1).wait_for(timeout=120_000)
     page.screenshot(path=ARTIFACTS / "upload-queue.png", full_page=True)
-    assert page.locator("#queue li.done a.report-link").count() == 2
+    # measured: "done", or "needs a look" when the segmentation doubts its own reading
+    assert page.locator("#queue li.done a.report-link, #queue li.needs-look a.report-link").count() == 2
     ids = [href.rsplit("/", 1)[-1] for href in
            page.eval_on_selector_all("#queue a.report-link", "links => links.map(a => a.getAttribute('href'))")]
     page.goto(server + "/compare?" + "&".join(f"ids={i}" for i in ids))
@@ -143,3 +146,181 @@ def test_library_page_shows_every_reference_thumbnail(server, browser, tiny_libr
     loaded = page.eval_on_selector_all(".library img", "imgs => imgs.map(i => i.complete && i.naturalWidth > 0)")
     assert loaded == [True] * len(load_reference_set(tiny_library).ensembles)
     page.screenshot(path=ARTIFACTS / "library-page.png", full_page=True)
+
+
+def _tinted(page) -> int:
+    return int(page.get_attribute("#threshold-preview", "data-tinted") or 0)
+
+
+def _ellipse(page) -> dict[str, float]:
+    attrs = page.eval_on_selector(".roi ellipse", "e => [e.getAttribute('cx'), e.getAttribute('cy'), "
+                                                  "e.getAttribute('rx'), e.getAttribute('ry'), e.getAttribute('transform')]")
+    angle = float(attrs[4].split("(")[1].split()[0])
+    return dict(zip(("cx", "cy", "rx", "ry"), map(float, attrs[:4]))) | {"angle": angle}
+
+
+def _drag(page, selector: str, dx: float, dy: float) -> None:
+    box = page.locator(selector).bounding_box()
+    x, y = box["x"] + box["width"] / 2, box["y"] + box["height"] / 2
+    page.mouse.move(x, y)
+    page.mouse.down()
+    page.mouse.move(x + dx, y + dy, steps=8)
+    page.mouse.up()
+
+
+def _expected_tint(levels: np.ndarray, threshold: float, dark: bool, ellipse: dict, width_px: int,
+                   height_px: int, boxes: list) -> int:
+    """The preview computed here from levels.png: pixels past the threshold inside the ellipse, outside boxes."""
+    lh, lw = levels.shape
+    sx, sy = width_px / lw, height_px / lh
+    jj, ii = np.meshgrid((np.arange(lw) + 0.5) * sx, (np.arange(lh) + 0.5) * sy)
+    a = np.radians(ellipse["angle"])
+    dx, dy = jj - ellipse["cx"], ii - ellipse["cy"]
+    u = (dx * np.cos(a) + dy * np.sin(a)) / ellipse["rx"]
+    v = (-dx * np.sin(a) + dy * np.cos(a)) / ellipse["ry"]
+    inside = u * u + v * v <= 1
+    for x0, y0, x1, y1 in boxes:
+        cols, rows = np.arange(lw)[None, :], np.arange(lh)[:, None]
+        inside &= ~((cols >= x0 / sx) & (cols < x1 / sx) & (rows >= y0 / sy) & (rows < y1 / sy))
+    past = levels < threshold * 255 if dark else levels > threshold * 255
+    return int(np.count_nonzero(inside & past))
+
+
+def test_fix_the_reading_on_the_report_without_uploading_again(server, browser, tmp_path_factory, capsys):
+    import io as _io
+
+    from PIL import Image
+
+    shots = tmp_path_factory.mktemp("reading-screenshots")
+    with capsys.disabled():
+        print(f"\nscreenshots of the reading editor: {shots}")
+    upload = httpx.post(f"{server}/api/specimens", files={"image": ("dish-5.png", specimen_png(5, size_px=420))},
+                        data={"label": "dish 5", "kind": "electrodeposit"}, timeout=180)
+    assert upload.status_code == 201, upload.text
+    body = upload.json()
+    width, height = body["image"]["width_px"], body["image"]["height_px"]
+    total = httpx.get(f"{server}/api/specimens").json()["total"]
+    page = browser.new_page(viewport={"width": 1280, "height": 900})
+    sent = []
+    page.on("request", lambda r: sent.append((r.method, r.url)) if r.method != "GET" else None)
+    page.goto(server + body["report_url"])
+    page.wait_for_load_state("networkidle")
+    page.locator("#reading").scroll_into_view_if_needed()
+
+    # The dish: move the ellipse by its centre, then stretch and turn it by its long handle.
+    before = _ellipse(page)
+    _drag(page, ".handle.centre", 30, 18)
+    moved = _ellipse(page)
+    scale = width / page.locator("#stage-marks").bounding_box()["width"]  # image px per screen px
+    assert moved["cx"] - before["cx"] == pytest.approx(30 * scale, abs=2 * scale)
+    assert moved["cy"] - before["cy"] == pytest.approx(18 * scale, abs=2 * scale)
+    _drag(page, ".handle[data-handle=rx]", -25, 20)
+    stretched = _ellipse(page)
+    assert stretched["rx"] != pytest.approx(moved["rx"], abs=1) and stretched["angle"] != pytest.approx(0, abs=1)
+    assert "set by hand" in page.inner_text("#region-state")
+
+    # A box to leave out, drawn with the box tool in the photo's top-left corner.
+    page.check("input[name=tool][value=exclude]")
+    stage = page.locator("#stage-marks").bounding_box()
+    page.mouse.move(stage["x"] + 4, stage["y"] + 4)
+    page.mouse.down()
+    page.mouse.move(stage["x"] + 70, stage["y"] + 50, steps=6)
+    page.mouse.up()
+    assert page.locator("rect.exclude").count() == 1
+    boxes = [[float(v) for v in page.eval_on_selector(
+        "rect.exclude", "r => [r.getAttribute('x'), r.getAttribute('y'), r.getAttribute('width'), r.getAttribute('height')]")]]
+    boxes = [[b[0], b[1], b[0] + b[2], b[1] + b[3]] for b in boxes]
+
+    # The threshold: moved with the keyboard, previewed over the photo before anything is measured.
+    page.locator("#threshold-preview[data-ready='1']").wait_for()
+    page.focus("#threshold")
+    for _ in range(6):
+        page.keyboard.press("ArrowLeft")
+    threshold = float(page.input_value("#threshold"))
+    first = _tinted(page)
+    levels = np.asarray(Image.open(_io.BytesIO(httpx.get(server + body["files"]["levels.png"]).content)))
+    dark = body["segmentation"]["levels_compare"] == "below"  # the threshold takes pixels below it
+    expected = _expected_tint(levels, threshold, dark, _ellipse(page), width, height, boxes)
+    assert first == pytest.approx(expected, rel=0.02, abs=20)  # edge pixels of the ellipse may differ
+    for _ in range(20):
+        page.keyboard.press("ArrowRight")
+    # a higher threshold takes more pixels when it takes those below it, fewer otherwise
+    assert (_tinted(page) > first) is dark and _tinted(page) != first
+    page.screenshot(path=shots / "reading-editor.png", full_page=True)
+    assert not [s for s in sent if "/reanalyze" in s[1]], "the preview must not measure anything"
+
+    # Measure again with the dish, the box and the threshold: the report updates in place.
+    overlay_before = page.get_attribute("#specimen-overlay", "src")
+    page.click("#remeasure")
+    page.locator("#history tbody tr").nth(1).wait_for(timeout=180_000)
+    assert page.url == server + body["report_url"]
+    assert page.get_attribute("#specimen-overlay", "src") != overlay_before
+    assert _loaded(page, "#specimen-overlay")
+    record = httpx.get(f"{server}/api/specimens/{body['id']}").json()
+    asked = record["history"][-1]["requested"]
+    assert len(asked["roi"]) == 5 and asked["exclude"] and asked["threshold"] == pytest.approx(
+        float(page.input_value("#threshold")), abs=1e-9)
+
+    # One click on another reading: measured again, the report shows it, the history says so.
+    alternatives = record["segmentation"].get("alternatives") or []
+    assert alternatives, "the segmentation offered no alternative reading"
+    page.locator("button.alternative").first.click()
+    page.locator("#history tbody tr").nth(2).wait_for(timeout=180_000)
+    record = httpx.get(f"{server}/api/specimens/{body['id']}").json()
+    assert record["history"][-1]["alternative"]["label"] == alternatives[0]["label"]
+    assert alternatives[0]["label"] in page.inner_text("#history")
+    assert page.inner_text("h1") == "dish 5"
+    assert "reading 3" in page.inner_text("#reading-status")
+    page.screenshot(path=shots / "after-alternative.png", full_page=True)
+
+    # No upload happened: the page sent only re-measurements, and there is still one specimen.
+    assert [m for m, url in sent if not url.endswith("/reanalyze")] == []
+    assert [url.rsplit("/", 2)[-2] for _, url in sent] == [body["id"], body["id"]]
+    assert httpx.get(f"{server}/api/specimens").json()["total"] == total
+    assert httpx.get(f"{server}/api/specimens/{body['id']}").json()["label"] == "dish 5"
+
+    # The same page on a phone: nothing wider than the screen.
+    phone = browser.new_page(viewport={"width": 375, "height": 812})
+    phone.goto(server + body["report_url"])
+    phone.wait_for_load_state("networkidle")
+    assert phone.evaluate("document.documentElement.scrollWidth") <= 375
+    phone.screenshot(path=shots / "report-375px.png", full_page=True)
+    for name in ("reading-editor.png", "after-alternative.png", "report-375px.png"):
+        assert (shots / name).stat().st_size > 0
+
+
+def test_the_upload_queue_marks_an_unsure_reading_needs_a_look(server, browser, tmp_path):
+    import json
+
+    paths = []
+    for seed in (6, 7):
+        path = tmp_path / f"dish-{seed}.png"
+        path.write_bytes(specimen_png(seed, size_px=300))
+        paths.append(str(path))
+    # The service's own answer for the first image, with its confidence lowered as an unsure
+    # reading would have it (a route cannot pass a page's file upload on and edit the answer).
+    answer = httpx.post(f"{server}/api/specimens", files={"image": ("dish-6.png", Path(paths[0]).read_bytes())},
+                        timeout=180)
+    assert answer.status_code == 201, answer.text
+    doubtful = answer.json()
+    doubtful["segmentation"]["confidence"] = 0.21
+    page = browser.new_page(viewport={"width": 375, "height": 812})
+    answered = []
+
+    def doubt_the_first(route):
+        if answered:
+            route.continue_()
+            return
+        answered.append(True)
+        route.fulfill(status=201, content_type="application/json", body=json.dumps(doubtful))
+
+    page.route(f"{server}/api/specimens", doubt_the_first)
+    page.goto(server + "/")
+    page.set_input_files("#files", paths)
+    page.locator("#queue li.done, #queue li.needs-look, #queue li.failed").nth(1).wait_for(timeout=180_000)
+    unsure = page.locator("#queue li.needs-look")
+    assert unsure.count() == 1 and "needs a look" in unsure.inner_text() and "0.21" in unsure.inner_text()
+    assert unsure.locator("a.report-link").get_attribute("href") == doubtful["report_url"]
+    assert page.locator("#queue li.done a.report-link").count() == 1
+    assert page.evaluate("document.documentElement.scrollWidth") <= 375
+    page.screenshot(path=ARTIFACTS / "upload-queue-needs-a-look.png", full_page=True)

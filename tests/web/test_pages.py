@@ -70,3 +70,31 @@ def test_demo_specimen_gives_a_full_report(client):
     body = _upload(client, data, label=DEMO_LABEL, kind="electrodeposit")
     html = client.get(body["report_url"]).text
     assert "DEMO" in html and body["features"]["skeleton"]["tips"] > 10
+
+
+def test_an_unsure_reading_is_a_plain_warning_on_the_report(client, dla_png):
+    import json
+
+    body = _upload(client, dla_png, label="unsure")
+    store = client.app.state.store
+    for confidence, warned in ((0.31, True), (0.93, False)):
+        record = store.get(body["id"])
+        segmentation = {**record.analysis["segmentation"], "confidence": confidence}
+        store.replace(record.id, {**record.analysis, "segmentation": segmentation}, {}, keep=record.files,
+                      reading={"origin": "re-measured", "requested": {}})
+        html = client.get(body["report_url"]).text
+        assert ('id="confidence-warning"' in html) is warned, confidence
+        assert ('id="ranking-uncertain"' in html) is warned, confidence
+        assert f"{confidence:.2f}" in html
+    # The editor's starting state travels as data (a JSON block the CSP does not run), and
+    # the history lists the upload and both readings, newest first.
+    block = re.search(r'<script type="application/json" id="reading-data">(.*?)</script>', html, re.S).group(1)
+    state = json.loads(block)
+    assert (state["id"], state["width_px"], state["height_px"]) == \
+        (body["id"], body["image"]["width_px"], body["image"]["height_px"])
+    assert state["levels_url"] == body["files"].get("levels.png")
+    assert state["used"]["polarity"] == body["segmentation"]["polarity"]
+    rows = re.findall(r"<tr><td>(\d+)</td>", html.split('id="history"')[1])
+    assert rows == ["3", "2", "1"]
+    for i in range(len(body["segmentation"].get("alternatives", []))):
+        assert f'data-reading="{i}"' in html
