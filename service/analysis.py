@@ -31,6 +31,7 @@ class AnalysisOptions:
     pixel_size_mm: float | None = None
     mode: str = "auto"
     polarity: str = "auto"
+    lighting: str = "auto"
     threshold: float | None = None
     roi: tuple[float, ...] | None = None
     exclude: tuple[tuple[float, float, float, float], ...] | None = None
@@ -118,6 +119,7 @@ def analyze(
     threshold: float | None = None,
     roi: tuple[float, ...] | None = None,
     exclude=None,
+    lighting: str = "auto",
     page: int | None = None,
     max_pixels: int | None = None,
     reference_set=None,
@@ -133,7 +135,7 @@ def analyze(
         The client's name for the file; kept as data only.
     pixel_size_mm : float, optional
         Calibration given by the user; overrides TIFF resolution tags.
-    mode, polarity, threshold, roi, exclude :
+    mode, polarity, threshold, roi, exclude, lighting :
         Segmentation overrides, see :func:`service.imaging.segment` (``roi`` a circle
         ``(cx, cy, r)`` or an ellipse ``(cx, cy, rx, ry, angle_deg)``; ``exclude`` boxes
         ``(x0, y0, x1, y1)`` in px).
@@ -156,7 +158,8 @@ def analyze(
         filename = Path(source).name
     image = load_image(data, page=page, max_pixels=max_pixels or DEFAULT_MAX_PIXELS)
     calibration = _calibration(image, pixel_size_mm)
-    seg = segment(image, mode=mode, polarity=polarity, threshold=threshold, roi=roi, exclude=exclude)
+    seg = segment(image, mode=mode, polarity=polarity, threshold=threshold, roi=roi, exclude=exclude,
+                  lighting=lighting)
     features = measure(seg.mask, pixel_size_mm=calibration["pixel_size_mm"], center_rc=seg.center_rc)
     warnings = list(seg.warnings) + [w for w in features.warnings if w not in seg.warnings]
     if not calibration["calibrated"]:
@@ -206,6 +209,7 @@ def analyze_with(source: bytes | str | Path, options: AnalysisOptions, *, refere
         threshold=options.threshold,
         roi=options.roi,
         exclude=options.exclude,
+        lighting=options.lighting,
         page=options.page,
         max_pixels=options.max_pixels,
         reference_set=reference_set,

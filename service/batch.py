@@ -127,6 +127,7 @@ def run_analyze_command(args) -> int:
         pixel_size_mm=args.pixel_size,
         mode=args.mode,
         polarity=args.polarity,
+        lighting=args.lighting,
         threshold=args.threshold,
         roi=args.roi,
         exclude=tuple(args.exclude) if args.exclude else None,

@@ -58,6 +58,8 @@ def _add_analyze(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--mode", choices=["auto", "threshold", "ridge"], default="auto", help="segmentation mode")
     p.add_argument("--polarity", choices=["auto", "dark", "bright"], default="auto",
                    help="whether the specimen is darker or brighter than its background")
+    p.add_argument("--lighting", choices=["auto", "smooth", "patchy"], default="auto",
+                   help="how the light is evened: smooth (gradients, vignetting) or patchy (shadows)")
     p.add_argument("--threshold", type=_threshold, default=None,
                    help="fixed threshold on the flattened image (strictly between 0 and 1)")
     p.add_argument("--roi", type=region_of_interest, default=None, metavar="CX,CY,R|CX,CY,RX,RY,ANGLE",

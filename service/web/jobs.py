@@ -11,7 +11,6 @@ import asyncio
 import concurrent.futures
 import concurrent.futures.process  # BrokenProcessPool, also when the pool runs threads
 import multiprocessing
-import os
 from functools import lru_cache
 from typing import Any
 

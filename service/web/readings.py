@@ -82,6 +82,8 @@ class Reanalysis(BaseModel):
     polarity: Literal["auto", "dark", "bright"] | None = Field(
         None, description="specimen darker (dark) or brighter (bright) than its background; null = automatic")
     threshold: float | None = Field(None, gt=0, lt=1, description="fixed threshold, strictly between 0 and 1")
+    lighting: Literal["auto", "smooth", "patchy"] | None = Field(
+        None, description="how the light is evened: smooth (gradients) or patchy (shadows); null = automatic")
     roi: RegionOfInterest | None = Field(None, description="the dish or region to analyse; null = find it")
     exclude: list[ExcludeBox] | None = Field(None, max_length=MAX_EXCLUDE_BOXES,
                                              description="areas to leave out; [] or null = none")
@@ -90,12 +92,12 @@ class Reanalysis(BaseModel):
 
 
 #: The override keys a reading can ask for, in the order they are shown.
-OVERRIDE_KEYS = ("mode", "polarity", "threshold", "roi", "exclude")
+OVERRIDE_KEYS = ("mode", "polarity", "lighting", "threshold", "roi", "exclude")
 
 
 def _normalised(key: str, value: Any) -> Any:
     """An override as stored (JSON-plain), or None for "automatic"."""
-    if value is None or (key in ("mode", "polarity") and value == "auto"):
+    if value is None or (key in ("mode", "polarity", "lighting") and value == "auto"):
         return None
     if key == "roi":
         return [float(v) for v in (value.as_tuple() if isinstance(value, RegionOfInterest) else value)]
@@ -176,6 +178,7 @@ def options_fields(requested: dict[str, Any]) -> dict[str, Any]:
     return {
         "mode": requested.get("mode", "auto"),
         "polarity": requested.get("polarity", "auto"),
+        "lighting": requested.get("lighting", "auto"),
         "threshold": requested.get("threshold"),
         "roi": tuple(roi) if roi is not None else None,
         "exclude": tuple(tuple(box) for box in requested["exclude"]) if requested.get("exclude") else None,

@@ -10,7 +10,6 @@ interval can cover the truth.
 
 from __future__ import annotations
 
-import numpy as np
 import pytest
 
 from service.match import match, verdict_of

@@ -226,7 +226,6 @@ def wire_paths(mask: np.ndarray, rgb: np.ndarray, fov: Field, seed_rc: tuple[flo
     out = np.zeros(mask.shape, dtype=bool)
     leads = 0
     for b in entries:
-        theta = (b + 0.5) / n_bins * 2 * math.pi - math.pi
         in_bin = bins == int(b)
         if not in_bin.any():
             continue
