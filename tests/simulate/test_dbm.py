@@ -145,7 +145,7 @@ def test_bad_outer_radius_raises_value_error(outer_radius):
     "kwargs",
     [{"n_particles": 0, "eta": 1.0}, {"n_particles": 100, "eta": -1.0},
      {"n_particles": 100, "eta": float("nan")}, {"n_particles": 100, "eta": 1.0, "reach": 0.0},
-     {"n_particles": 100, "eta": 1.0, "reach": 1.5}, {"n_particles": 1.5, "eta": 1.0}],
+     {"n_particles": 100, "eta": 1.0, "reach": 2.5}, {"n_particles": 1.5, "eta": 1.0}],
 )
 def test_outer_radius_for_rejects_bad_input(kwargs):
     n = kwargs.pop("n_particles")
