@@ -117,7 +117,7 @@ def test_taking_an_alternative_reading_reproduces_it(client, png):
     assert alternatives, "the segmentation offers no alternative reading of this photograph"
     for i, alternative in enumerate(alternatives):
         assert set(alternative) >= {"label", "overrides", "score"}
-        assert set(alternative["overrides"]) <= {"mode", "polarity", "threshold", "roi"}
+        assert set(alternative["overrides"]) <= {"mode", "polarity", "lighting", "threshold", "roi"}
     chosen = alternatives[0]
     again = client.post(f"/api/specimens/{body['id']}/reanalyze", json={"reading": 0})
     assert again.status_code == 200, again.text

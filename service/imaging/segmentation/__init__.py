@@ -423,7 +423,7 @@ def _score_plan(plan: _Plan, small: np.ndarray, factor: int, small_excluded: np.
     kept_share = area / max(1.0, float(np.count_nonzero(raw)))
     terms = {
         "fills_field": -8.0 * max(0.0, fill - 0.45),
-        "runs_round_edge": -6.0 * max(0.0, edge_cover - 0.1),
+        "runs_round_edge": -6.0 * max(0.0, edge_cover - 0.5) / 0.5,
         "away_from_centre": -4.0 * min(1.0, max(0.0, seed_gap - 0.05) / 0.3),
         "scattered": -3.0 * max(0.0, 0.85 - kept_share),
         "contrast": 0.5 * math.log(max(min(contrast, 60.0), 0.5) / 3.0),
