@@ -43,17 +43,16 @@ from service.library.storage import (
 #: electrode's distance, say) when it estimates the others. A regime of a known universality
 #: class is named in ``service.match.universality``.
 PARAMETER_GRID: dict[str, tuple[dict[str, Any], ...]] = {
+    # Discs of unit diameter off the lattice (Meakin's algorithm) are the DLA class as real
+    # deposits grow it, with no lattice axes; they stick on first contact.
     "dla": tuple(
         {"neighborhood": neighborhood, "sticking": sticking}
         for neighborhood in ("von_neumann", "moore")
         for sticking in (1.0, 0.3, 0.1)
-    ),
+    ) + ({"off_lattice": True, "sticking": 1.0},),
     "eden": ({},),
     "ballistic": ({},),
     "dbm": tuple({"eta": eta} for eta in (0.5, 1.0, 1.5, 2.0, 3.0, 4.0)),
-    # Discs of unit diameter off the lattice (Meakin's algorithm): the DLA class as real
-    # deposits grow it, with no lattice axes.
-    "dla_offlattice": ({},),
 }
 
 
@@ -77,7 +76,6 @@ _FULL_SIZES = (1000, 3000, 10000, 30000)
 #: Cluster sizes of each regime in the ``default`` preset.
 DEFAULT_SIZES: dict[str, tuple[int, ...]] = {
     "dla": _FULL_SIZES, "eden": _FULL_SIZES, "ballistic": _FULL_SIZES, "dbm": (1000, 3000),
-    "dla_offlattice": _FULL_SIZES,
 }
 #: (regime, parameters, sizes) rows of ``default`` that differ from ``DEFAULT_SIZES``.
 DEFAULT_OVERRIDES: tuple[tuple[str, dict[str, Any], tuple[int, ...]], ...] = (
@@ -134,7 +132,7 @@ def estimated_seconds(regime: str, parameters: dict[str, Any], n_particles: int)
 
 #: Single-core seconds per grown site of the regimes whose cost grows linearly (DBM is modelled
 #: in ``estimated_seconds``).
-SECONDS_PER_SITE: dict[str, float] = {"dla": 5e-6, "dla_offlattice": 7e-6, "eden": 1e-7, "ballistic": 4e-7}
+SECONDS_PER_SITE: dict[str, float] = {"dla": 6e-6, "eden": 1e-7, "ballistic": 4e-7}
 
 
 # --------------------------------------------------------------------------- Dask

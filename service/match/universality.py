@@ -14,7 +14,7 @@ from typing import Any
 UNIVERSALITY_CLASSES: tuple[dict[str, Any], ...] = (
     {
         "name": "diffusion-limited growth",
-        "members": (("dla", {}), ("dla_offlattice", {}), ("dbm", {"eta": (1.0, 1.0)})),
+        "members": (("dla", {}), ("dbm", {"eta": (1.0, 1.0)})),
         "note": (
             "DLA (on a lattice or off it) and the dielectric breakdown model with eta = 1 belong to one "
             "universality class (growth probability proportional to the Laplacian field; Niemeyer, "

@@ -17,7 +17,8 @@ from service.simulate.dla import dla
 from service.simulate.eden import eden
 from service.simulate.offlattice import dla_offlattice
 
-#: Regime name -> growth function. The library builder and the matcher iterate over this;
+#: Regime name -> growth function (off-lattice DLA is ``dla`` with ``off_lattice=True``, one
+#: regime with the lattice ones). The library builder and the matcher iterate over this;
 #: a new regime is one module plus one line here. (numba compiles each kernel on first call,
 #: so importing all of them costs nothing.)
 SIMULATORS: dict[str, Callable[..., np.ndarray]] = {
@@ -25,7 +26,6 @@ SIMULATORS: dict[str, Callable[..., np.ndarray]] = {
     "eden": eden,
     "ballistic": ballistic,
     "dbm": dbm,
-    "dla_offlattice": dla_offlattice,
 }
 REGIMES: tuple[str, ...] = tuple(SIMULATORS)
 

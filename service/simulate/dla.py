@@ -339,8 +339,9 @@ def dla(
     seed: int,
     neighborhood: str = "von_neumann",
     sticking: float = 1.0,
+    off_lattice: bool = False,
 ) -> np.ndarray:
-    """Grow an on-lattice diffusion-limited aggregate on the square lattice.
+    """Grow a diffusion-limited aggregate on the square lattice (or of discs off it).
 
     Walkers perform nearest-neighbour random walks (four directions) and join the cluster
     at the empty site where they first make contact.
@@ -357,6 +358,10 @@ def dla(
     sticking : float
         Probability in (0, 1] that a walker sticks at a contact site; each time it stands on
         one and does not stick it keeps walking (moves onto occupied sites are refused).
+    off_lattice : bool
+        Grow discs of unit diameter off the lattice instead (Meakin's algorithm, see
+        :func:`service.simulate.offlattice.dla_offlattice`; sticking 1, no neighbourhood),
+        drawn one cell per diameter: the DLA class as real deposits grow it, with no lattice axes.
 
     Returns
     -------
@@ -389,6 +394,13 @@ def dla(
     .. [2] P. Meakin, "Diffusion-controlled cluster formation in 2-6-dimensional space",
        Phys. Rev. A 27, 1495 (1983).
     """
+    if off_lattice:
+        if sticking != 1.0 or neighborhood != "von_neumann":
+            raise ValueError("off-lattice DLA sticks on first contact and has no lattice neighbourhood: "
+                             "give neither sticking nor neighborhood with off_lattice=True")
+        from service.simulate.offlattice import dla_offlattice
+
+        return dla_offlattice(n_particles, seed=seed)
     n = check_particles(n_particles)
     seed = check_seed(seed)
     if neighborhood not in NEIGHBORHOODS:

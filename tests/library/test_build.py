@@ -111,8 +111,9 @@ def test_default_preset_covers_the_grid_the_library_promises():
     specs = PRESETS["default"]
     grid = {(s.regime, tuple(sorted(s.parameters.items()))) for s in specs}
     dla = {("dla", (("neighborhood", nb), ("sticking", st))) for nb in ("von_neumann", "moore") for st in (1.0, 0.3, 0.1)}
+    dla.add(("dla", (("off_lattice", True), ("sticking", 1.0))))
     dbm = {("dbm", (("eta", eta),)) for eta in (0.5, 1.0, 1.5, 2.0, 3.0, 4.0)}
-    assert grid == dla | dbm | {("eden", ()), ("ballistic", ()), ("dla_offlattice", ())}
+    assert grid == dla | dbm | {("eden", ()), ("ballistic", ())}
     assert min(s.n_realisations for s in specs) >= 12
     assert len({s.id for s in specs}) == len(specs)
     # Finite-size effects are large below 10^4 sites: every regime but DBM reaches it.

@@ -26,6 +26,8 @@ CASES = (
     ("dla", {"neighborhood": MOORE, "sticking": 1.0}, (2500, 7000, 4000, 10000)),
     ("dla", {"neighborhood": MOORE, "sticking": 0.3}, (3000, 8000, 5000)),
     ("dla", {"neighborhood": MOORE, "sticking": 0.1}, (3000, 6000, 4000)),
+    # Discs of unit diameter off the lattice (issue 10: 10,000-30,000 discs rank as the DLA class).
+    ("dla", {"off_lattice": True, "sticking": 1.0}, (10000, 20000, 30000)),
     ("eden", {}, (2000, 6000, 15000, 4000, 9000)),
     ("ballistic", {}, (2000, 6000, 15000, 4000, 9000)),
     ("dbm", {"eta": 0.5}, (800, 1500, 1200, 1000)),
@@ -97,3 +99,13 @@ def test_the_parameter_intervals_cover_the_truth(ranked):
     report = "\n".join(_lines(ranked))
     print(report, f"\ncovered {covered}/{checked}")
     assert covered >= MIN_COVERAGE * checked, report
+
+
+@pytest.mark.slow
+def test_off_lattice_dla_ranks_as_the_dla_class(ranked):
+    # Issue 10: an off-lattice DLA of unit discs (Tolman & Meakin, Phys. Rev. A 40, 428, 1989,
+    # from memory: D = 1.715, the DLA class) must rank as DLA, not by the lattice's axes.
+    verdicts = [result.explanation["verdict"]["best"] for (regime, parameters, n), result in zip(SPECIMENS, ranked)
+                if parameters.get("off_lattice")]
+    assert len(verdicts) == 3
+    assert all(v == verdict_of("dla", {}) for v in verdicts), (verdicts, "\n".join(_lines(ranked)))

@@ -61,9 +61,13 @@ def test_raster_is_one_8_connected_component_in_arrival_order():
 
 
 def test_the_library_stores_and_reloads_it():
-    assert "dla_offlattice" in REGIMES
-    lattice = grow("dla_offlattice", 2000, seed=4)
+    # Off-lattice DLA is the DLA regime with off_lattice=True (the library's family of it).
+    assert "dla" in REGIMES
+    lattice = grow("dla", 2000, seed=4, off_lattice=True, sticking=1.0)
+    assert np.array_equal(lattice, dla_offlattice(2000, seed=4))
     assert np.array_equal(lattice_from_sites(sites_from_lattice(lattice)), lattice)
+    with pytest.raises(ValueError, match="off-lattice"):
+        grow("dla", 100, seed=4, off_lattice=True, sticking=0.3)
 
 
 def test_same_seed_same_cluster_other_seed_other_cluster():
