@@ -48,9 +48,11 @@ def small_set(reference_set, table, tmp_path):
     chosen = smallest_of_three_regimes(reference_set)
     subset = load_reference_set(write_subset(reference_set, chosen, tmp_path / "set"))
     index = {e.id: i for i, e in enumerate(reference_set.ensembles)}
-    rows = np.concatenate([np.flatnonzero(table.ensemble == index[e.id]) for e in subset.ensembles])
+    per_ensemble = [np.flatnonzero(table.ensemble == index[e.id]) for e in subset.ensembles]
+    rows = np.concatenate(per_ensemble)
     columns = table.arrays()
-    columns["ensemble"] = np.repeat(np.arange(len(subset.ensembles)), [e.n_realisations for e in subset.ensembles])
+    # One row per drawing of each cluster (every drawing style of the nuisance grid).
+    columns["ensemble"] = np.repeat(np.arange(len(subset.ensembles)), [len(r) for r in per_ensemble])
     columns.update({k: v[rows] for k, v in columns.items() if k != "ensemble"})
     _write(subset, ReferenceTable(**columns), 0.0)
     return subset
