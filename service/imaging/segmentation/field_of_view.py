@@ -53,12 +53,16 @@ def parse_roi(roi, shape: tuple[int, int]) -> Field:
 
 def find_field(small: np.ndarray, small_rgb: np.ndarray, factor: int) -> tuple[Field | None, str]:
     """Field of view in full-resolution px from the reduced grey and RGB copies."""
-    found = _dark_surround_field(small, factor)
-    if found is not None:
-        return found, "dark surround"
-    found = _dish_field(small, small_rgb, factor)
-    if found is not None:
-        return found, "dish rim"
+    surround = _dark_surround_field(small, factor)
+    dish = _dish_field(small, small_rgb, factor)
+    if surround is not None:
+        # A bright field on a dark surround: a fundus camera's, or a dish on a dark bench. The
+        # dish finder's ellipse follows a field seen at a slant better than an equal-area circle.
+        if dish is not None:
+            surround = Field(dish.cy, dish.cx, dish.a, dish.b, dish.theta, "dark surround")
+        return surround, "dark surround"
+    if dish is not None:
+        return dish, "dish rim"
     found = _hough_rim_field(small, factor)
     if found is not None:
         return found, "dish rim"
@@ -164,21 +168,21 @@ def _dish_field(small: np.ndarray, small_rgb: np.ndarray, factor: int) -> Field 
     # A compact specimen, or the solution inside a lighter ring, can close a strong edge of
     # its own; the dish is the closed edge with the bench just beyond it, so step outwards
     # past each edge that fails that, a few times at most.
-    for _ in range(3):
-        found = _closed_ellipse(grad, bench, inner, th, tw)
-        if found is None:
+    for _ in range(4):
+        ell, inliers_pts, region = _closed_ellipse(grad, bench, inner, th, tw)
+        if region is None:
             return None
-        ell, inliers_pts = found
-        if min(ell.a, ell.b) <= 0.1 * min(th, tw) or min(ell.a, ell.b) < 0.5 * max(ell.a, ell.b):
-            return None  # too small, or too flat for a dish photographed from above
+        if ell is None or min(ell.a, ell.b) <= 0.1 * min(th, tw) or min(ell.a, ell.b) < 0.5 * max(ell.a, ell.b):
+            # Not a dish's outline (a rough compact deposit, say): look beyond it.
+            inner = ndimage.binary_dilation(region, iterations=max(2, int(0.05 * math.sqrt(region.sum()))))
+            continue
         edge = float(np.median(grad[np.clip(np.rint(inliers_pts[:, 1]).astype(int), 0, th - 1),
                                     np.clip(np.rint(inliers_pts[:, 0]).astype(int), 0, tw - 1)]))
-        if edge < 3.0 * texture:
-            return None  # the edge does not stand far above the bench's own texture
         rho = ell.rho(rows_f, cols_f)
         beyond = (rho >= 1.12) & (rho <= 1.3)
-        if np.count_nonzero(beyond) < 0.1 * math.pi * (1.3 ** 2 - 1.12 ** 2) * ell.a * ell.b \
-                or float(bench_like[beyond].mean()) >= 0.5:
+        if edge >= 3.0 * texture and (
+                np.count_nonzero(beyond) < 0.1 * math.pi * (1.3 ** 2 - 1.12 ** 2) * ell.a * ell.b
+                or float(bench_like[beyond].mean()) >= 0.5):
             break
         inner = rho <= 1.1
     else:
@@ -195,9 +199,10 @@ def _dish_field(small: np.ndarray, small_rgb: np.ndarray, factor: int) -> Field 
 
 
 def _closed_ellipse(grad: np.ndarray, bench: np.ndarray, inner: np.ndarray, th: int,
-                    tw: int) -> tuple[Field, np.ndarray] | None:
-    """The ellipse of the strongest closed edge between ``inner`` and the bench, with the
-    outline points (x, y) that lie on it; None unless most of the outline does."""
+                    tw: int) -> tuple[Field | None, np.ndarray | None, np.ndarray | None]:
+    """The region the strongest closed edge between ``inner`` and the bench bounds, with the
+    ellipse of that edge and its outline points (x, y) on it when most of the outline lies on
+    one (else None for both); all None when no usable region is found."""
     from skimage.measure import find_contours
     from skimage.segmentation import watershed
 
@@ -206,25 +211,25 @@ def _closed_ellipse(grad: np.ndarray, bench: np.ndarray, inner: np.ndarray, th: 
     markers[inner & ~bench] = 2
     region = ndimage.binary_fill_holes(watershed(grad, markers) == 2)
     share = np.count_nonzero(region) / region.size
-    if not 0.06 <= share <= 0.97:
-        return None
+    if not share <= 0.97:
+        return None, None, None
     contours = find_contours(np.pad(region, 1).astype(np.float32), 0.5)
     if not contours:
-        return None
+        return None, None, None
     outline = max(contours, key=len) - 1.0  # (row, col), back to unpadded coordinates
     on_frame = (outline[:, 0] <= 1.0) | (outline[:, 1] <= 1.0) | (outline[:, 0] >= th - 2.0) | (outline[:, 1] >= tw - 2.0)
     pts = outline[~on_frame][:, ::-1]  # (x, y)
     if len(pts) < 40:
-        return None
+        return None, None, region
     pts = pts[:: max(1, len(pts) // 400)]
     size = math.sqrt(np.count_nonzero(region) / math.pi)
-    fitted = fit_ellipse_robust(pts, tolerance_px=max(1.0, 0.02 * size))
-    if fitted is None:
-        return None
+    # A watershed line wanders a pixel either side of the wall's edge, and a lead or a wall
+    # highlight pulls parts of it away: 70% of the outline within 1.5 px (or 3%) must fit.
+    fitted = fit_ellipse_robust(pts, tolerance_px=max(1.5, 0.03 * size))
+    if fitted is None or share < 0.06 or float(fitted[1].mean()) < 0.7:
+        return None, None, region
     (xc, yc, a, b, theta), inliers = fitted
-    if float(inliers.mean()) < 0.75:
-        return None
-    return Field(yc, xc, a, b, theta, "dish rim"), pts[inliers]
+    return Field(yc, xc, a, b, theta, "dish rim"), pts[inliers], region
 
 
 def fit_ellipse_robust(pts: np.ndarray, *, tolerance_px: float, trials: int = 80,
