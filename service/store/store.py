@@ -149,11 +149,15 @@ class Store:
     def create_schema(self) -> None:
         """Create missing tables; safe when several instances start at the same moment."""
         self.specimens_dir.mkdir(parents=True, exist_ok=True)
-        try:
-            Base.metadata.create_all(self.engine)
-        except (IntegrityError, ProgrammingError, OperationalError):
-            # Another instance created the same table between our check and our CREATE.
-            Base.metadata.create_all(self.engine)
+        # Another instance may create a table between our check and our CREATE; with several
+        # tables that can happen once per table, so try again as many times as there are.
+        for attempt in range(len(Base.metadata.tables) + 1):
+            try:
+                Base.metadata.create_all(self.engine)
+                return
+            except (IntegrityError, ProgrammingError, OperationalError):
+                if attempt == len(Base.metadata.tables):
+                    raise
 
     def close(self) -> None:
         self.engine.dispose()

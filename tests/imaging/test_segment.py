@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import io
 import json
-import time
 
 import numpy as np
 import pytest
@@ -151,43 +150,6 @@ def test_bad_input_is_refused_clearly():
         segment(image, roi=(10.0, 10.0, -1.0))
     with pytest.raises(ValueError, match="float image"):
         segment(np.full((64, 64), 2.0))
-
-
-@pytest.mark.slow
-def test_segmentation_is_cheap_next_to_the_primitives():
-    # Issue 3 budgets the whole analysis at 2.5x (Otsu + labelling + skeletonize + EDT) on a
-    # 2048 x 2048 photo, most of it for the features; segmentation gets well under one share.
-    from scipy import ndimage
-    from skimage.filters import threshold_otsu
-    from skimage.morphology import skeletonize
-
-    rendered = render_specimen(random_tree(512, seed=8, depth=7), seed=8, size_px=2048, thickness_px=8.0)
-    gray = load_image(_png(rendered.image)).gray
-
-    def primitives():
-        mask = gray < threshold_otsu(gray)
-        ndimage.label(mask)
-        skeletonize(mask)
-        ndimage.distance_transform_edt(mask)
-
-    t_primitives = _best_of(primitives)
-    t_segment = _best_of(lambda: segment(rendered.image))
-    assert t_segment < 0.6 * t_primitives, (t_segment, t_primitives)
-
-
-def _png(image: np.ndarray) -> bytes:
-    buffer = io.BytesIO()
-    Image.fromarray(image).save(buffer, format="PNG")
-    return buffer.getvalue()
-
-
-def _best_of(fn, repeats: int = 2) -> float:
-    times = []
-    for _ in range(repeats):
-        start = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - start)
-    return min(times)
 
 
 @pytest.mark.slow
