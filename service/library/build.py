@@ -42,6 +42,7 @@ from service.library.storage import (
 #: and sums families that differ only in a parameter it does not estimate (a DBM outer
 #: electrode's distance, say) when it estimates the others. A regime of a known universality
 #: class is named in ``service.match.universality``.
+DBM_ETAS = (0.5, 1.0, 1.5, 2.0, 3.0, 4.0)
 PARAMETER_GRID: dict[str, tuple[dict[str, Any], ...]] = {
     # Discs of unit diameter off the lattice (Meakin's algorithm) are the DLA class as real
     # deposits grow it, with no lattice axes; they stick on first contact.
@@ -52,7 +53,9 @@ PARAMETER_GRID: dict[str, tuple[dict[str, Any], ...]] = {
     ) + ({"off_lattice": True, "sticking": 1.0},),
     "eden": ({},),
     "ballistic": ({},),
-    "dbm": tuple({"eta": eta} for eta in (0.5, 1.0, 1.5, 2.0, 3.0, 4.0)),
+    # The outer electrode far away (moving out as the deposit grows), and near: fixed where
+    # the deposit nearly reaches it, as a lab deposit grown up to the rim electrode.
+    "dbm": tuple({"eta": eta} for eta in DBM_ETAS) + tuple({"eta": eta, "electrode": "near"} for eta in DBM_ETAS),
 }
 
 
@@ -79,7 +82,7 @@ DEFAULT_SIZES: dict[str, tuple[int, ...]] = {
 }
 #: (regime, parameters, sizes) rows of ``default`` that differ from ``DEFAULT_SIZES``.
 DEFAULT_OVERRIDES: tuple[tuple[str, dict[str, Any], tuple[int, ...]], ...] = (
-    ("dbm", {"eta": 3.0}, (1000,)), ("dbm", {"eta": 4.0}, (1000,)),
+    *(("dbm", {"eta": eta, **near}, (1000,)) for eta in (3.0, 4.0) for near in ({}, {"electrode": "near"})),
 )
 
 #: Named presets. ``default`` is the bundled set; ``tiny`` grows every regime and parameter

@@ -95,7 +95,9 @@ class ReferenceSet:
                     sites = decode_ensemble(arrays)
             except (OSError, ValueError, KeyError) as exc:
                 raise LibraryError(f"{self.path / ensemble.clusters} is damaged: {exc}") from exc
-            if len(sites) != ensemble.n_realisations or any(len(s) != ensemble.n_particles for s in sites):
+            expected = (lambda n: 0 < n <= ensemble.n_particles) if ensemble.stops_early else (
+                lambda n: n == ensemble.n_particles)
+            if len(sites) != ensemble.n_realisations or not all(expected(len(s)) for s in sites):
                 raise LibraryError(f"{self.path / ensemble.clusters} does not hold the clusters its manifest lists")
             self._sites[ensemble.id] = sites
         return self._sites[ensemble.id]

@@ -88,6 +88,12 @@ class EnsembleSpec:
         parts = [self.regime, *(f"{k}-{v}" for k, v in sorted(self.parameters.items()))]
         return "_".join(parts) + f"_n{self.n_particles}"
 
+    @property
+    def stops_early(self) -> bool:
+        """Whether a realisation may hold fewer than ``n_particles`` sites: a DBM deposit grown
+        towards a near outer electrode stops once it nearly touches it."""
+        return self.parameters.get("electrode") == "near"
+
     def __hash__(self) -> int:  # parameters is a dict; equal specs share an id
         return hash(self.id)
 

@@ -117,6 +117,27 @@ def interval_estimate(grid: np.ndarray, mass: np.ndarray, nuisance_range: float 
     }
 
 
+#: A setting of the non-numeric family parameters (a DBM outer electrode near or far) that keeps
+#: at least this share of its regime's probability has its own interval joined to the estimate's:
+#: eta and the electrode's distance trade off (a near electrode straightens branches as a higher
+#: eta does), so the interval must hold eta under every setting still in play.
+SETTING_SHARE = 0.05
+
+
+def _setting_of(family) -> tuple:
+    return tuple(sorted((k, v) for k, v in family.parameters.items() if not _numeric(v)))
+
+
+def _unestimated_settings(families, weights: np.ndarray) -> list[tuple[tuple, float]]:
+    """Each distinct setting of the families' non-numeric parameters with its share of ``weights``."""
+    total = float(weights.sum()) or 1.0
+    shares: dict[tuple, float] = {}
+    for family, w in zip(families, weights):
+        key = _setting_of(family)
+        shares[key] = shares.get(key, 0.0) + float(w) / total
+    return list(shares.items())
+
+
 def parameter_estimates(families, probability: np.ndarray, nuisance_range: dict | None = None) -> dict[str, Any]:
     """Every numeric parameter that varies within a regime, estimated from ``probability``.
 
@@ -145,7 +166,25 @@ def parameter_estimates(families, probability: np.ndarray, nuisance_range: dict 
                 continue
             w = weights[having]
             mass = np.array([w[values == v].sum() for v in grid])
-            estimate = interval_estimate(grid, mass, (nuisance_range or {}).get((regime, name), 0.0))
+            reach = (nuisance_range or {}).get((regime, name), 0.0)
+            estimate = interval_estimate(grid, mass, reach)
+            settings = _unestimated_settings([families[members[k]] for k in having], w)
+            widened_by = []
+            for setting, share in settings:
+                if len(settings) < 2 or share < SETTING_SHARE:
+                    continue
+                own = np.array([_setting_of(families[members[k]]) == setting for k in having])
+                own_mass = np.array([w[own & (values == v)].sum() for v in grid])
+                if own_mass.sum() <= 0 or np.count_nonzero(own_mass) == 0:
+                    continue
+                lo_s, hi_s = interval_estimate(grid, own_mass, reach)["ci95"]
+                lo_e, hi_e = estimate["ci95"]
+                if lo_s < lo_e or hi_s > hi_e:
+                    estimate["ci95"] = [min(lo_e, lo_s), max(hi_e, hi_s)]
+                    widened_by.append(dict(setting))
+            if widened_by:
+                estimate["spans_library_range"] = bool(
+                    estimate["ci95"][0] <= grid.min() * (1 + 1e-9) and estimate["ci95"][1] >= grid.max() * (1 - 1e-9))
             lo, hi = estimate["ci95"]
             if estimate["spans_library_range"]:
                 note = (f"the 95% interval spans the whole library range ({grid.min():g} to {grid.max():g}): "
@@ -154,6 +193,7 @@ def parameter_estimates(families, probability: np.ndarray, nuisance_range: dict 
                 note = f"{name} between {lo:.3g} and {hi:.3g} (95%), estimate {estimate['value']:.3g}"
             out.setdefault(regime, {})[name] = {
                 **estimate,
+                "widened_for": widened_by,
                 "values_in_library": grid.tolist(),
                 "posterior_at_library_values": mass.tolist(),
                 "regime_probability": regime_probability,
@@ -161,8 +201,10 @@ def parameter_estimates(families, probability: np.ndarray, nuisance_range: dict 
                 "method": (
                     "median and 95% highest-density interval of the posterior over the library's values, "
                     f"log-posterior interpolated on a {estimate['axis']} axis; always holding the cell of the "
-                    "library value nearest the estimate (half-way to its neighbours) and reaching on both sides "
-                    "at least as far as drawing style alone moves the estimate"
+                    "library value nearest the estimate (half-way to its neighbours), reaching on both sides "
+                    "at least as far as drawing style alone moves the estimate, and holding the interval found "
+                    "under each setting the library does not estimate (such as how near the outer electrode "
+                    "was) that keeps at least 5% of the regime's probability"
                 ),
             }
     return out

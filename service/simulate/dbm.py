@@ -806,7 +806,8 @@ def _check_arguments(n_particles, eta, seed, outer_radius) -> None:
                              f"got {outer_radius}")
 
 
-def dbm(n_particles: int, *, eta: float, seed: int, outer_radius: int | None = None) -> np.ndarray:
+def dbm(n_particles: int, *, eta: float, seed: int, outer_radius: int | None = None,
+        electrode: str = "far") -> np.ndarray:
     """Grow a dielectric breakdown cluster of ``n_particles`` sites.
 
     Parameters
@@ -825,6 +826,11 @@ def dbm(n_particles: int, *, eta: float, seed: int, outer_radius: int | None = N
         reaches the rim electrode). ``None`` (default): the electrode stays far away,
         2 to 2.5 cluster radii, moving out as the cluster grows. ``outer_radius_for``
         picks a radius that a deposit of a given size nearly reaches.
+    electrode : {"far", "near"}
+        ``"near"`` fixes the outer electrode at ``outer_radius_for(n_particles, eta=eta)``,
+        so the deposit grows until it nearly reaches it, as a lab deposit grown up to the
+        rim electrode does (the library's near-electrode families); ``outer_radius`` must
+        then be None. ``"far"`` (default) leaves ``outer_radius`` in charge.
 
     Returns
     -------
@@ -838,7 +844,8 @@ def dbm(n_particles: int, *, eta: float, seed: int, outer_radius: int | None = N
     ValueError
         If ``n_particles`` is not a positive integer, ``eta`` is not a finite number
         >= 0, ``seed`` is not an integer, or ``outer_radius`` is not None or an integer
-        of at least ``MIN_OUTER_RADIUS`` (8).
+        of at least ``MIN_OUTER_RADIUS`` (8), or ``electrode`` is neither "far" nor "near"
+        (or "near" with an ``outer_radius`` given).
 
     Notes
     -----
@@ -895,6 +902,12 @@ def dbm(n_particles: int, *, eta: float, seed: int, outer_radius: int | None = N
        dielectric breakdown model", Phys. Rev. Lett. 88, 235505 (2002).
     """
     _check_arguments(n_particles, eta, seed, outer_radius)
+    if electrode not in ("far", "near"):
+        raise ValueError(f'electrode must be "far" or "near", got {electrode!r}')
+    if electrode == "near":
+        if outer_radius is not None:
+            raise ValueError('electrode="near" chooses the outer radius itself; give outer_radius=None')
+        outer_radius = outer_radius_for(int(n_particles), eta=float(eta))
     sites_i, sites_j, grid = _grow_sites(
         int(n_particles), float(eta), int(seed),
         outer_radius=None if outer_radius is None else int(outer_radius))

@@ -62,3 +62,28 @@ def test_a_sticking_of_one_keeps_one_inside_its_interval():
     lo, hi = estimate["ci95"]
     assert hi == pytest.approx(1.0)
     assert 0.3 < estimate["value"] <= 1.0
+
+
+def _dbm_families():
+    from service.match.model import Family
+
+    etas = (1.0, 2.0, 3.0, 4.0)
+    return [Family("dbm", {"eta": eta, **near}, (0,)) for near in ({}, {"electrode": "near"}) for eta in etas]
+
+
+def test_the_interval_holds_eta_under_every_electrode_setting_still_in_play():
+    # Worked example: 88% of the probability on (near electrode, eta 3), 12% on (far, eta 4).
+    # Under the far setting alone eta is 4, so the joined 95% interval must reach 4.
+    from service.match.parameters import parameter_estimates
+
+    families = _dbm_families()
+    probability = np.zeros(len(families))
+    probability[families.index(next(f for f in families if f.parameters == {"eta": 3.0, "electrode": "near"}))] = 0.88
+    probability[families.index(next(f for f in families if f.parameters == {"eta": 4.0}))] = 0.12
+    eta = parameter_estimates(families, probability)["dbm"]["eta"]
+    assert eta["ci95"][1] == pytest.approx(4.0)
+    assert eta["widened_for"] == [{}]
+    # A setting holding under 5% of the probability does not widen the interval.
+    probability[families.index(next(f for f in families if f.parameters == {"eta": 4.0}))] = 0.01
+    eta = parameter_estimates(families, probability)["dbm"]["eta"]
+    assert eta["widened_for"] == [] and eta["ci95"][1] < 4.0

@@ -102,15 +102,18 @@ def test_fresh_photographs_are_ranked_to_their_regime(analysed):
 @pytest.mark.slow
 def test_dbm_eta_is_estimated_within_tolerance(analysed):
     # Issue 10 changed this check: a specimen outside every reference gets no point claim
-    # but an honest interval, so there the 95% interval must hold the true eta instead.
+    # but an honest interval, so there the 95% interval must hold the true eta instead; and
+    # where the electrode's distance is still in play (the interval joined over near and far
+    # electrode families, which trade off against eta) the interval must hold it too.
     errors = []
     for (regime, parameters, *_), result in zip(SPECIMENS, analysed):
         if regime == "dbm":
             estimate = result["parameter_estimates"]["dbm"]["eta"]
-            errors.append((parameters["eta"], estimate["value"], estimate["ci95"], result["in_library"]))
-    print("eta true, estimated, ci95, in library:", errors)
-    for true, value, (lo, hi), inside in errors:
-        assert abs(true - value) <= ETA_TOLERANCE or (not inside and lo <= true <= hi), errors
+            open_question = not result["in_library"] or bool(estimate["widened_for"])
+            errors.append((parameters["eta"], estimate["value"], estimate["ci95"], open_question))
+    print("eta true, estimated, ci95, electrode or library in question:", errors)
+    for true, value, (lo, hi), open_question in errors:
+        assert abs(true - value) <= ETA_TOLERANCE or (open_question and lo <= true <= hi), errors
 
 
 @pytest.mark.slow

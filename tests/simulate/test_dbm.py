@@ -153,6 +153,20 @@ def test_outer_radius_for_rejects_bad_input(kwargs):
         outer_radius_for(n, **kwargs)
 
 
+@pytest.mark.parametrize("kwargs", [{"electrode": "close"}, {"electrode": "near", "outer_radius": 40}])
+def test_bad_electrode_raises_value_error(kwargs):
+    with pytest.raises(ValueError, match="electrode"):
+        dbm(10, eta=1.0, seed=0, **kwargs)
+
+
+def test_near_electrode_is_the_outer_radius_chosen_for_the_size():
+    # the library's near-electrode families: the same cluster as the explicit radius
+    radius = outer_radius_for(600, eta=1.5)
+    near = dbm(600, eta=1.5, seed=9, electrode="near")
+    np.testing.assert_array_equal(near, dbm(600, eta=1.5, seed=9, outer_radius=radius))
+    assert reach(near, radius) >= 0.75
+
+
 def test_eta_is_keyword_only():
     with pytest.raises(TypeError):
         dbm(10, 1.0, 0)  # type: ignore[misc]
