@@ -225,6 +225,10 @@ def family_label(match: dict | None, *, short: bool = False) -> str:
             continue
         if isinstance(v, float):
             v = f"{v:g}"
-        parts.append(f"{PARAMETERS.get(k, k.replace('_', ' '))} {value_words(v)}" if k == "neighborhood"
-                     else f"{PARAMETERS.get(k, k.replace('_', ' '))} = {value_words(v)}")
+        if short:
+            parts.append(f"{VALUES.get(v, v).split(' (')[0]} contact" if k == "neighborhood"
+                         else f"{PARAMETERS.get(k, k.replace('_', ' '))} {v}")
+        else:
+            parts.append(f"{PARAMETERS.get(k, k.replace('_', ' '))} {value_words(v)}" if k == "neighborhood"
+                         else f"{PARAMETERS.get(k, k.replace('_', ' '))} = {value_words(v)}")
     return name + (", " + ", ".join(parts) if parts else "")

@@ -13,8 +13,7 @@ from fastapi.templating import Jinja2Templates
 
 from service.errors import LibraryError
 from service.store import Store
-from service.store.export import flatten
-from service.web import compare, formatting, plots, readings
+from service.web import compare, formatting, labels, plots, readings, report_view
 from service.web.api import file_url, summary
 from service.web.deps import current_lab, get_pool, get_settings, get_store
 from service.web.demo import DEMO_FILENAME, DEMO_LABEL, DEMO_STORY, ensure_demo_jpeg
@@ -93,13 +92,16 @@ async def report_page(
         except LibraryError:
             nearest = []
     files = {name: file_url(record, name) for name in record.files}
-    measurements = [(k, v) for k, v in flatten("", analysis.get("features", {})) if v is not None]
     explanation = analysis.get("explanation") if isinstance(analysis.get("explanation"), dict) else {}
     history = await run_in_threadpool(store.history, specimen_id, owner=lab) or []
     segmentation = analysis.get("segmentation") or {}
+    others, _ = await run_in_threadpool(store.list, owner=lab, limit=100)
+    view = report_view.build_report(analysis, record.kind)
+    pictures = await run_in_threadpool(plots.report_plots_or_files, analysis, files)
     return _page(request, "report.html", record=record, a=analysis, files=files, matches=matches,
-                 nearest=nearest, measurements=measurements, cautions=cautions_for(record.kind),
-                 explanation=explanation, deciding=formatting.deciding_in_words(explanation),
+                 nearest=[n | {"name": labels.family_label(n, short=True)} for n in nearest],
+                 cautions=cautions_for(record.kind), explanation=explanation, view=view, **pictures,
+                 others=[{"id": o.id, "name": o.label or o.filename or o.id[:8]} for o in others if o.id != record.id],
                  confidence=segmentation.get("confidence"), uncertain=formatting.uncertain(segmentation),
                  alternatives=readings.alternatives_of(analysis),
                  history=[formatting.reading_in_words(r.to_dict()) for r in reversed(history)],

@@ -6,6 +6,7 @@ be drawn in an analysis worker or, for the compare page, from stored records.
 
 from __future__ import annotations
 
+import base64
 import functools
 import io
 from collections.abc import Mapping, Sequence
@@ -387,3 +388,29 @@ def distance_matrix_svg(names: Sequence[str], matrix: Sequence[Sequence[float | 
     key.set_label(title)
     key.outline.set_visible(False)
     return _svg(fig)
+
+
+def skeleton_svgs(skeleton, features: Mapping[str, Any]) -> dict[str, bytes]:
+    """``branches.svg`` (histograms) and ``horton.svg`` of one analysis, from the skeleton graph's
+    per-branch arrays (``service.features.skeleton.SkeletonGraph``) and the ``features`` dict."""
+    scale = features.get("pixel_size_mm") if features.get("calibrated") else None
+    arrays = {"branch_lengths": skeleton.branch_lengths_px, "widths": skeleton.widths_px,
+              "angles_deg": skeleton.branching_angles_deg, "tortuosity": skeleton.tortuosity}
+    strahler = (features.get("skeleton") or {}).get("strahler") or {}
+    return {"branches.svg": branch_distributions_svg(arrays, pixel_size_mm=scale),
+            "horton.svg": horton_svg(strahler, calibrated=scale is not None)}
+
+
+def svg_data_uri(svg: bytes) -> str:
+    return "data:image/svg+xml;base64," + base64.b64encode(svg).decode("ascii")
+
+
+def report_plots_or_files(analysis: Mapping[str, Any], files: Mapping[str, str]) -> dict[str, str]:
+    """``branch_plot`` and ``horton_plot`` for the report: the stored files when the reading has
+    them, else drawn now from the summaries in the analysis (readings stored before these plots)."""
+    features = analysis.get("features") or {}
+    skeleton = features.get("skeleton") or {}
+    calibrated = bool(features.get("calibrated"))
+    branch = files.get("branches.svg") or svg_data_uri(branch_summary_svg(skeleton, calibrated=calibrated))
+    horton = files.get("horton.svg") or svg_data_uri(horton_svg(skeleton.get("strahler") or {}, calibrated=calibrated))
+    return {"branch_plot": branch, "horton_plot": horton}

@@ -410,7 +410,7 @@ def match_rows(analysis: dict[str, Any], v: Verdict) -> list[MatchRow]:
         else:
             words = "nearer than its farthest members"
         p = _number(m.get("probability")) if v.show_probabilities else None
-        rows.append(MatchRow(labels.family_label(m), p, _percent(p) if v.show_probabilities else "not given",
+        rows.append(MatchRow(labels.family_label(m, short=True), p, _percent(p) if v.show_probabilities else "not given",
                              num(d), words))
     return rows
 
@@ -648,6 +648,17 @@ def all_features(analysis: dict[str, Any]) -> list[tuple[str, str, str]]:
     return out
 
 
+def _report_warnings(analysis: dict[str, Any]) -> list[str]:
+    """The analysis warnings, less those of the dimension fits: the measurement table flags
+    those rows itself, with the range actually fitted."""
+    features = analysis.get("features") or {}
+    own = set()
+    for fit in dimension_fits(features):
+        if fit.status != "ok":
+            own.update(warning_texts((features.get(fit.key) or {}).get("warnings")))
+    return [w for w in warning_texts(analysis.get("warnings")) if w not in own]
+
+
 @dataclass(frozen=True)
 class ReportView:
     verdict: Verdict
@@ -684,7 +695,7 @@ def build_report(analysis: dict[str, Any], kind: str | None = None) -> ReportVie
         settings=settings_rows(analysis, kind),
         matcher=matcher_rows(analysis),
         features=all_features(analysis),
-        warnings=warning_texts(analysis.get("warnings")),
+        warnings=_report_warnings(analysis),
         calibrated=scale is not None,
         scale_text=f"{num(scale, 4)} mm per pixel" if scale else "no scale given: lengths in pixels",
     )
