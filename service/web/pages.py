@@ -58,6 +58,13 @@ async def demo_image(settings: Settings = Depends(get_settings), pool: AnalysisP
     return Response(data, media_type="image/jpeg", headers={"Cache-Control": "public, max-age=3600"})
 
 
+@router.get("/demo/specimen")
+async def demo_specimen(store: Store = Depends(get_store), lab: str | None = Depends(current_lab)) -> dict[str, Any]:
+    """The demo specimen already measured for this lab (``report_url`` None when there is none yet)."""
+    records, _ = await run_in_threadpool(store.list, owner=lab, label=DEMO_LABEL, limit=1)
+    return {"report_url": str(f"/specimens/{records[0].id}") if records else None}
+
+
 @router.get("/specimens", response_class=HTMLResponse)
 async def specimens_page(
     request: Request,
@@ -67,9 +74,10 @@ async def specimens_page(
     lab: str | None = Depends(current_lab),
 ) -> HTMLResponse:
     limit = 50
-    records, total = await run_in_threadpool(store.list, owner=lab, label=label or None, limit=limit, offset=offset)
-    return _page(request, "specimens.html", items=[summary(r) for r in records], total=total,
-                 offset=offset, limit=limit, label=label or "")
+    records, total = await run_in_threadpool(store.list, owner=lab, label_contains=label or None, limit=limit,
+                                             offset=offset)
+    items = [summary(r) | report_view.list_marks(r.analysis) for r in records]
+    return _page(request, "specimens.html", items=items, total=total, offset=offset, limit=limit, label=label or "")
 
 
 @router.get("/specimens/{specimen_id}", response_class=HTMLResponse, name="report_page")
@@ -146,6 +154,14 @@ async def compare_page(
         context["plots"] = {k: _svg_data_uri(v) for k, v in curves.items()}
         context["rows"] = compare.side_by_side(records)
         context["distance"] = {"names": names, **await _distances(records, store, lab, pool, settings)}
+        context["distance"]["feature_labels"] = [labels.matcher_feature_label(f) for f in context["distance"]["features"]]
+        if context["distance"]["features"]:
+            context["distance_plot"] = _svg_data_uri(await run_in_threadpool(
+                plots.distance_matrix_svg, names, context["distance"]["matrix"], title="distance"))
+    else:
+        stored, _ = await run_in_threadpool(store.list, owner=lab, limit=100)
+        chosen = {r.id for r in records}
+        context["choices"] = [{"id": r.id, "name": r.label or r.filename or r.id[:8]} for r in stored if r.id not in chosen]
     return _page(request, "compare.html", **context)
 
 

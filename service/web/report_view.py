@@ -699,3 +699,23 @@ def build_report(analysis: dict[str, Any], kind: str | None = None) -> ReportVie
         calibrated=scale is not None,
         scale_text=f"{num(scale, 4)} mm per pixel" if scale else "no scale given: lengths in pixels",
     )
+
+
+def list_marks(analysis: dict[str, Any]) -> dict[str, Any]:
+    """What the specimen list shows beside the best match: ``best_words`` (family and
+    probability, or the nearest family marked as outside or without a verdict) and ``mark``."""
+    matches = analysis.get("matches") or []
+    v = verdict(analysis)
+    confidence = _number((analysis.get("segmentation") or {}).get("confidence"))
+    mark = ""
+    if v.kind == "outside":
+        mark = "outside the library"
+    elif v.kind == "abstained":
+        mark = "no confident verdict"
+    if confidence is not None and confidence < UNSURE_BELOW:
+        mark = (mark + "; " if mark else "") + "unsure outline"
+    if not matches:
+        return {"best_words": "not ranked", "mark": mark}
+    best = labels.family_label(matches[0], short=True)
+    words = best if not v.show_probabilities else f"{best} {_percent(_number(matches[0].get('probability')))}"
+    return {"best_words": words, "mark": mark}
