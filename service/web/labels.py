@@ -232,3 +232,20 @@ def family_label(match: dict | None, *, short: bool = False) -> str:
             parts.append(f"{PARAMETERS.get(k, k.replace('_', ' '))} {value_words(v)}" if k == "neighborhood"
                          else f"{PARAMETERS.get(k, k.replace('_', ' '))} = {value_words(v)}")
     return name + (", " + ", ".join(parts) if parts else "")
+
+
+#: The files ``GET /api/specimens/{id}/files/{name}`` serves for a specimen, with what each is.
+STORED_FILES: tuple[tuple[str, str], ...] = (
+    ("source.png | source.jpg | source.tif | source.bmp", "the uploaded image, unchanged (sent as a download)"),
+    ("photo.png", "the photograph at display size"),
+    ("overlay.png", "the photograph with outline, skeleton, tips and junctions"),
+    ("mask.png", "the segmented specimen at full size, 1 bit"),
+    ("thumbnail.png", "a small overlay for lists"),
+    ("levels.png", "the grey levels the threshold applies to, at display size"),
+    ("alternative_0.png, alternative_1.png, …", "a preview of each other reading the segmentation offers"),
+    ("box_counting.svg", "box-counting plot"),
+    ("lacunarity.svg", "lacunarity plot"),
+    ("branches.svg", "distributions of branch length, width, angle and tortuosity"),
+    ("horton.svg", "streams and mean stream length per Strahler order"),
+    ("references.svg", "the specimen on the reference distributions (when ranked)"),
+)

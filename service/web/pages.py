@@ -210,4 +210,4 @@ async def api_docs(request: Request) -> HTMLResponse:
         for method, op in item.items()
         if method in ("get", "post", "put", "patch", "delete")
     ]
-    return _page(request, "api_docs.html", schema=schema, operations=operations)
+    return _page(request, "api_docs.html", schema=schema, operations=operations, stored_files=labels.STORED_FILES)

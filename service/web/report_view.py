@@ -135,7 +135,7 @@ def check_dimension(value: Any, ci95: Any) -> tuple[str, str]:
         return "withheld", (f"its 95% interval ({lo:.2f} to {hi:.2f}) spans more than half of the range 0 to 2: "
                             "too loose to tell growth regimes apart")
     if lo < lo_d or hi > hi_d:
-        return "flagged", (f"its 95% interval ({lo:.2f} to {hi:.2f}) runs past {'0' if lo < lo_d else '2'}, "
+        return "flagged", (f"its 95% interval ({lo:.3f} to {hi:.3f}) runs past {'0' if lo < lo_d else '2'}, "
                            "a bound no plane pattern crosses; read it as reaching that bound")
     return "ok", ""
 
