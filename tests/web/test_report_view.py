@@ -99,8 +99,14 @@ def test_a_parameter_spread_finer_than_the_library_grid_is_not_shown(analysis, r
     lo, hi = (float(x) for x in estimate.interval.split(" – "))
     i = grid.index(value)
     # the interval shown is the grid cell at least: it reaches half-way to a neighbouring library value
-    gaps = [abs(grid[j] - value) for j in (i - 1, i + 1) if 0 <= j < len(grid)]
-    assert lo <= value <= hi and hi - lo >= 0.5 * min(gaps) - 1e-9
+    # (on the estimate's own axis: geometric half-way for sticking, which the library spaces in ratios)
+    neighbours = [grid[j] for j in (i - 1, i + 1) if 0 <= j < len(grid)]
+    assert lo <= value <= hi
+    if name == "sticking":
+        reach = max(hi / value, value / lo)
+        assert reach >= 0.99 * min(max(n / value, value / n) ** 0.5 for n in neighbours)
+    else:
+        assert max(hi - value, value - lo) >= 0.99 * min(abs(n - value) for n in neighbours) / 2
     assert f"{std:.2g}" not in estimate.value + estimate.interval
 
 
