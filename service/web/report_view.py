@@ -430,7 +430,9 @@ def distance_explained(analysis: dict[str, Any]) -> str:
 
 
 def _odds(weight: float) -> str:
-    ratio = math.exp(abs(weight))
+    ratio = math.exp(min(abs(weight), 50.0))
+    if ratio >= 1000:
+        return "more than 1,000 to 1"
     return f"{ratio:.1f} to 1" if ratio < 10 else f"{ratio:,.0f} to 1"
 
 
