@@ -43,7 +43,7 @@ HOUSE_STYLE = {
     "svg.fonttype": "none",
     "svg.hashsalt": "ramiform",
     "font.family": "sans-serif",
-    "font.sans-serif": ["Liberation Sans", "DejaVu Sans"],  # metrics; the SVG names the page's own font stack
+    "font.sans-serif": ["DejaVu Sans", "Liberation Sans"],  # metrics; the SVG names the page's own font stack
     "font.size": 9,
     "axes.titlesize": 10,
     "axes.titleweight": "bold",
@@ -106,11 +106,26 @@ def _svg(fig: Figure) -> bytes:
     return out.getvalue()
 
 
+_SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
+
+
+def _log_label(value: float, _position=None) -> str:
+    """Plain numbers from 0.01 to 99999, powers of ten (10⁻⁵) beyond."""
+    if 0.01 <= value < 1e5:
+        return f"{value:g}"
+    exponent = int(np.round(np.log10(value)))
+    return "10" + str(exponent).translate(_SUPERSCRIPT)
+
+
 def _style(ax) -> None:
-    for axis in (ax.xaxis, ax.yaxis):
-        if axis.get_scale() == "log":  # plain numbers at 1-2-5 steps; a short axis still gets labels
-            axis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0)))
-            axis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
+    for axis, limits in ((ax.xaxis, ax.get_xlim()), (ax.yaxis, ax.get_ylim())):
+        if axis.get_scale() == "log":
+            lo, hi = sorted(limits)
+            decades = np.log10(hi / lo) if lo > 0 else 0
+            # 1-2-5 steps on a short axis so it still gets labels; decades only on a long one
+            subs = (1.0, 2.0, 5.0) if decades <= 3 else (1.0,)
+            axis.set_major_locator(LogLocator(base=10, subs=subs))
+            axis.set_major_formatter(FuncFormatter(_log_label))
             axis.set_minor_formatter(NullFormatter())
 
 
