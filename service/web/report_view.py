@@ -606,14 +606,16 @@ def settings_rows(analysis: dict[str, Any], kind: str | None = None) -> list[tup
     """The segmentation as it was used, in words; positions and bookkeeping left out, and scene
     parts that do not belong to this kind of specimen (an electrode on a vessel tree) not shown."""
     segmentation = analysis.get("segmentation") or {}
+    field = segmentation.get("field_of_view") if isinstance(segmentation.get("field_of_view"), dict) else {}
+    in_a_cell = kind == "electrodeposit" or (kind in (None, "other") and "dish" in str(field.get("source", "")))
     rows = []
     for key, value in _flat("", segmentation):
         if any(key == h or key.startswith(h + ".") for h in labels.HIDDEN_SETTINGS) or key.startswith("alternatives"):
             continue
-        if kind in ("vessel", "coral", "root", "river") and (key.startswith("electrode") or key == "scene.leads"):
-            continue
-        if key == "polarity_source" and isinstance(value, str) and "vessels" in value and kind == "electrodeposit":
-            value = "assumed (thin-line reading)"
+        if (key.startswith("electrode") or key == "scene.leads") and not in_a_cell:
+            continue  # an "electrode" found on a river map or a vessel tree is a blob, not a finding
+        if key == "polarity_source" and isinstance(value, str) and "vessels" in value and kind != "vessel":
+            value = "assumed darker (thin-line reading)"
         if key == "contrast_to_noise" and _number(value) is not None and value >= 1e5:
             rows.append((labels.setting_label(key), "no measurable noise (a drawn or synthetic image)"))
             continue

@@ -183,3 +183,13 @@ def test_no_code_keys_in_the_shown_text(analysis):
 
 def test_unranked_is_said_plainly(analysis):
     assert verdict(analysis).kind == "unranked"
+
+
+def test_scene_parts_follow_the_kind_of_specimen(analysis):
+    a = copy.deepcopy(analysis)
+    a["segmentation"].update(electrode={"center_rc": [5.0, 5.0], "radius_px": 4.0}, polarity_source="dark vessels assumed",
+                             field_of_view={"source": "whole image"})
+    river = dict(build_report(a, kind="other").settings)
+    assert "centre electrode radius" not in river
+    copper = dict(build_report(a, kind="electrodeposit").settings)
+    assert "centre electrode radius" in copper and "vessels" not in copper["how that was decided"]
