@@ -175,7 +175,7 @@ def dimension_fits(features: dict[str, Any]) -> list[DimensionFit]:
         r = _interval(fit.get("fit_range_px"))
         decades = math.log10(r[1] / r[0]) if r and r[0] > 0 else None
         if status == "ok" and decades is not None and decades < MIN_DECADES:
-            status, reason = "flagged", (f"fitted over {decades:.1f} of a decade of scale; the common practice is at "
+            status, reason = "flagged", (f"fitted over {decades:.2f} of a decade of scale; the common practice is at "
                                          "least one decade, so read it with care")
         out.append(DimensionFit(key, label, _number(fit.get("value")), _interval(fit.get("ci95")), r, decades,
                                 status, reason))
@@ -193,7 +193,7 @@ def measurements(analysis: dict[str, Any]) -> list[Measurement]:
         interval = f"{fit.ci95[0]:.3f} – {fit.ci95[1]:.3f}" if (shown and fit.ci95) else ""
         fitted = _range_text(*fit.fit_range_px, scale, whats[fit.key]) if fit.fit_range_px else ""
         if fitted and fit.decades is not None:
-            fitted += f", {fit.decades:.1f} decades"
+            fitted += f", {fit.decades:.2f} decades"
         n_points = (features.get(fit.key) or {}).get("n_fit_points")
         rows.append(Measurement(fit.key, fit.label, f"{fit.value:.3f}" if shown and fit.value is not None else "",
                                 interval, fitted, "", fit.status, fit.reason,
@@ -222,7 +222,7 @@ def measurements(analysis: dict[str, Any]) -> list[Measurement]:
             rows.append(Measurement(key, label, str(v), "", "", ""))
     strahler = skeleton.get("strahler") or {}
     orders = strahler.get("max_order")
-    for key, label in (("bifurcation_ratio", "Horton bifurcation ratio R_B"), ("length_ratio", "Horton length ratio R_L")):
+    for key, label in (("bifurcation_ratio", "Horton bifurcation ratio"), ("length_ratio", "Horton length ratio")):
         v = _number(strahler.get(key))
         if v is None:
             continue
@@ -259,7 +259,7 @@ def dimension_advice(analysis: dict[str, Any]) -> str:
     chosen = max(sound, key=lambda f: ((f.decades or 0.0), preference.get(f.key, 0)))
     width = _number(features.get("branch_width_px"))
     radius = _number(((features.get("profile") or {}).get("bounding_circle") or {}).get("radius_px"))
-    decades = f"{chosen.decades:.1f} decades" if chosen.decades is not None else "its range"
+    decades = f"{chosen.decades:.2f} decades" if chosen.decades is not None else "its range"
     text = (f"Report the {chosen.label.lower()}, {chosen.value:.3f} (95% interval {chosen.ci95[0]:.3f}–"
             f"{chosen.ci95[1]:.3f}): its fit spans {decades}"
             + (", the widest of the estimates here" if len(usable) > 1 else "")
@@ -277,7 +277,7 @@ def dimension_advice(analysis: dict[str, Any]) -> str:
     for f in usable:
         parts = []
         if f.decades is not None and f.decades < MIN_DECADES:
-            parts.append(f"is fitted over only {f.decades:.1f} of a decade of scale")
+            parts.append(f"is fitted over only {f.decades:.2f} of a decade of scale")
         if f.fit_range_px and width and f.fit_range_px[0] < DRAWING_SCALE_WIDTHS * width:
             parts.append("drawing")
         if f.fit_range_px and radius and f.fit_range_px[1] > FINITE_SIZE_SHARE * radius:
@@ -351,7 +351,7 @@ def verdict(analysis: dict[str, Any]) -> Verdict:
                        "The measurements below stand on their own; no growth regime was compared." + outline,
                        show_probabilities=False)
     best = matches[0]
-    nearest = labels.family_label(best)
+    nearest = labels.family_label(best, short=True)
     if analysis.get("in_library") is False:
         novelty = explanation.get("novelty") or {}
         far = [labels.matcher_feature_label(f) for f in novelty.get("features_beyond_3_sd") or []]

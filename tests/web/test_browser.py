@@ -237,6 +237,8 @@ def test_fix_the_reading_on_the_report_without_uploading_again(server, browser, 
     for _ in range(6):
         page.keyboard.press("ArrowLeft")
     threshold = float(page.input_value("#threshold"))
+    # the preview is drawn on the next animation frame: wait for it (a long report takes a while to paint)
+    page.locator("#threshold-preview:not([data-tinted='0'])").wait_for()
     first = _tinted(page)
     levels = np.asarray(Image.open(_io.BytesIO(httpx.get(server + body["files"]["levels.png"]).content)))
     dark = body["segmentation"]["levels_compare"] == "below"  # the threshold takes pixels below it
@@ -244,6 +246,7 @@ def test_fix_the_reading_on_the_report_without_uploading_again(server, browser, 
     assert first == pytest.approx(expected, rel=0.02, abs=20)  # edge pixels of the ellipse may differ
     for _ in range(20):
         page.keyboard.press("ArrowRight")
+    page.locator(f"#threshold-preview:not([data-tinted='{first}'])").wait_for()
     # a higher threshold takes more pixels when it takes those below it, fewer otherwise
     assert (_tinted(page) > first) is dark and _tinted(page) != first
     page.screenshot(path=shots / "reading-editor.png", full_page=True)
@@ -424,3 +427,35 @@ def test_a_second_demo_click_opens_the_same_specimen(server, browser):
     assert urls[0] == urls[1]
     demos = [r for r in httpx.get(f"{server}/api/specimens").json()["items"] if r["label"] and "DEMO" in r["label"]]
     assert len(demos) == 1
+
+
+def test_the_upload_queue_marks_out_of_library_and_undecided_results(server, browser, tmp_path):
+    import copy
+    import json
+
+    paths = []
+    for seed in (12, 13):
+        path = tmp_path / f"dish-{seed}.png"
+        path.write_bytes(specimen_png(seed, size_px=300))
+        paths.append(str(path))
+    answer = httpx.post(f"{server}/api/specimens", files={"image": ("dish-12.png", Path(paths[0]).read_bytes())},
+                        timeout=180)
+    assert answer.status_code == 201, answer.text
+    # The service's own answer, edited as an out-of-library and an undecided result would read.
+    outside, undecided = copy.deepcopy(answer.json()), copy.deepcopy(answer.json())
+    outside["in_library"] = False
+    undecided["in_library"] = True
+    undecided.setdefault("explanation", {})["verdict"] = {"name": "no confident verdict", "confident": False}
+    for body in (outside, undecided):
+        body["segmentation"]["confidence"] = 0.9
+    answers = [outside, undecided]
+    page = browser.new_page(viewport={"width": 375, "height": 812})
+    page.route(f"{server}/api/specimens", lambda route: route.fulfill(
+        status=201, content_type="application/json", body=json.dumps(answers.pop(0))))
+    page.goto(server + "/")
+    page.set_input_files("#files", paths)
+    page.locator("#queue li.done, #queue li.needs-look, #queue li.failed").nth(1).wait_for(timeout=60_000)
+    marked = page.locator("#queue li.needs-look")
+    assert marked.count() == 2 and page.locator("#queue li.done").count() == 0
+    text = page.inner_text("#queue")
+    assert "outside every reference" in text and "no confident verdict" in text
