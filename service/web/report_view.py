@@ -711,6 +711,10 @@ def list_marks(analysis: dict[str, Any]) -> dict[str, Any]:
     matches = analysis.get("matches") or []
     v = verdict(analysis)
     confidence = _number((analysis.get("segmentation") or {}).get("confidence"))
+    box = (analysis.get("features") or {}).get("box_dimension") or {}
+    box_status, _ = check_dimension(box.get("value"), box.get("ci95"))
+    box_words = "withheld" if box_status == "withheld" else fixed(box.get("value"))
+    box_interval = _interval(box.get("ci95")) if box_status != "withheld" else None
     mark = ""
     if v.kind == "outside":
         mark = "outside the library"
@@ -718,8 +722,10 @@ def list_marks(analysis: dict[str, Any]) -> dict[str, Any]:
         mark = "no confident verdict"
     if confidence is not None and confidence < UNSURE_BELOW:
         mark = (mark + "; " if mark else "") + "unsure outline"
+    out = {"box_words": box_words, "box_interval": f"{box_interval[0]:.3f}–{box_interval[1]:.3f}" if box_interval else "",
+           "mark": mark}
     if not matches:
-        return {"best_words": "not ranked", "mark": mark}
+        return out | {"best_words": "not ranked"}
     best = labels.family_label(matches[0], short=True)
     words = best if not v.show_probabilities else f"{best} {_percent(_number(matches[0].get('probability')))}"
-    return {"best_words": words, "mark": mark}
+    return out | {"best_words": words}

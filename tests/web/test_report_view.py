@@ -181,6 +181,22 @@ def test_no_code_keys_in_the_shown_text(analysis):
         assert word not in shown
 
 
+def test_a_noiseless_image_and_a_missing_scale_are_said_in_words(analysis):
+    a = copy.deepcopy(analysis)
+    a["segmentation"]["contrast_to_noise"] = 1000000.0
+    a["calibration"] = {"pixel_size_mm": None, "source": "none", "calibrated": False}
+    settings = dict(build_report(a).settings)
+    assert "1000000" not in " ".join(settings.values()) and "no measurable noise" in settings["contrast over noise"]
+    assert settings["scale"].startswith("not given")
+
+
+def test_the_list_withholds_an_impossible_box_dimension(analysis):
+    a = copy.deepcopy(analysis)
+    a["features"]["box_dimension"].update(value=2.26, ci95=[2.1, 2.4])
+    marks = list_marks(a)
+    assert marks["box_words"] == "withheld" and marks["box_interval"] == "" and "2.26" not in str(marks)
+
+
 def test_unranked_is_said_plainly(analysis):
     assert verdict(analysis).kind == "unranked"
 
