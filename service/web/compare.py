@@ -8,7 +8,6 @@ measurements the specimens share.
 from __future__ import annotations
 
 import math
-from typing import Any
 
 from service.store import SpecimenRecord
 from service.store.export import flatten
