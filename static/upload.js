@@ -62,8 +62,17 @@
       const body = xhr.response || {};
       if (xhr.status === 201) {
         // A reading the segmentation itself doubts is not "done": the outline needs a person's look.
+        // So is a specimen outside every reference, or one the matcher gives no confident verdict.
         const confidence = body.segmentation ? body.segmentation.confidence : null;
-        const doubtful = typeof confidence === "number" && confidence < UNCERTAIN_BELOW;
+        const unsure = typeof confidence === "number" && confidence < UNCERTAIN_BELOW;
+        const verdict = body.explanation && body.explanation.verdict ? body.explanation.verdict : null;
+        const outside = body.in_library === false;
+        const undecided = !outside && verdict !== null && verdict.confident === false;
+        const reasons = [];
+        if (unsure) reasons.push("unsure reading, confidence " + confidence.toFixed(2));
+        if (outside) reasons.push("outside every reference");
+        if (undecided) reasons.push("no confident verdict");
+        const doubtful = reasons.length > 0;
         view.li.className = doubtful ? "needs-look" : "done";
         view.bar.value = 100;
         view.state.replaceChildren();
@@ -71,8 +80,8 @@
         link.href = body.report_url;
         link.className = "report-link";
         const d = body.features && body.features.box_dimension ? body.features.box_dimension.value : null;
-        text(link, (doubtful ? "check the outline" : "report") + (typeof d === "number" ? " · D = " + d.toFixed(3) : ""));
-        view.state.append(doubtful ? "needs a look (unsure reading, confidence " + confidence.toFixed(2) + "): " : "done: ", link);
+        text(link, (unsure ? "check the outline" : "report") + (typeof d === "number" ? " · D = " + d.toFixed(3) : ""));
+        view.state.append(doubtful ? "needs a look (" + reasons.join("; ") + "): " : "measured: ", link);
         if (batchSize === 1) window.location.assign(body.report_url);
       } else {
         fail(view, body.detail || ("the server answered " + xhr.status));
@@ -113,6 +122,12 @@
     demo.disabled = true;
     text(demo, "preparing the demo image…");
     try {
+      // One demo specimen per lab: a second click opens the one already measured.
+      const known = await fetch("/demo/specimen");
+      if (known.ok) {
+        const found = await known.json();
+        if (found.report_url) { window.location.assign(found.report_url); return; }
+      }
       const answer = await fetch(demo.dataset.url);
       if (!answer.ok) throw new Error("the server answered " + answer.status);
       const blob = await answer.blob();

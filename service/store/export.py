@@ -39,8 +39,10 @@ def specimen_row(record: SpecimenRecord) -> dict[str, Any]:
         "created_at": record.created_at.isoformat(),
         "sha256": record.sha256,
     }
-    for section in ("image", "calibration", "features"):
+    for section in ("image", "calibration"):
         row.update(flatten(section, analysis.get(section, {})))
+    row.update(segmentation_columns(analysis.get("segmentation") or {}))
+    row.update(flatten("features", analysis.get("features", {})))
     matches = analysis.get("matches") or []
     if matches:
         best = matches[0]
@@ -49,8 +51,25 @@ def specimen_row(record: SpecimenRecord) -> dict[str, Any]:
         row["best_match.probability"] = best.get("probability")
     if "in_library" in analysis:
         row["in_library"] = analysis["in_library"]
-    row["warnings"] = " | ".join(analysis.get("warnings", []))
+    row["warnings"] = " | ".join(
+        str(w.get("text", "")) if isinstance(w, dict) else str(w) for w in analysis.get("warnings", []))
     return row
+
+
+#: Segmentation settings written to every row, so re-readings of one image can be told apart.
+SEGMENTATION_COLUMNS = ("mode", "polarity", "threshold", "levels_compare", "lighting", "confidence",
+                        "branch_width_px", "reduced_resolution_factor")
+
+
+def segmentation_columns(segmentation: dict[str, Any]) -> dict[str, Any]:
+    """``segmentation.*`` cells: the settings used, the field read, and the overrides that
+    reproduce the reading (``segmentation.reading``, as JSON)."""
+    reading = segmentation.get("reading") if isinstance(segmentation.get("reading"), dict) else {}
+    out = {f"segmentation.{key}": segmentation.get(key, reading.get(key)) for key in SEGMENTATION_COLUMNS}
+    field = segmentation.get("field_of_view")
+    out["segmentation.field"] = field.get("source") if isinstance(field, dict) else None
+    out["segmentation.reading"] = json.dumps(reading, sort_keys=True) if reading else None
+    return out
 
 
 #: Columns Ramiform generates itself; every other text cell may carry what a client wrote.

@@ -228,10 +228,15 @@ class Store:
         *,
         owner: str | None = None,
         label: str | None = None,
+        label_contains: str | None = None,
         limit: int | None = 50,
         offset: int = 0,
     ) -> tuple[list[SpecimenRecord], int]:
-        """A page of specimens, newest first, and the total number matching the filter."""
+        """A page of specimens, newest first, and the total number matching the filter.
+
+        ``label`` matches whole labels; ``label_contains`` any label holding that text, in any case
+        (``%`` and ``_`` in it are matched literally).
+        """
         if (limit is not None and limit < 0) or offset < 0:
             raise ValueError(f"limit and offset must not be negative, got limit={limit}, offset={offset}")
         conditions = []
@@ -239,6 +244,9 @@ class Store:
             conditions.append(SpecimenRow.owner == owner)
         if label is not None:
             conditions.append(SpecimenRow.label == label)
+        if label_contains:
+            escaped = label_contains.replace("\\", "\\\\").replace("%", "\\%").replace("_", "\\_")
+            conditions.append(SpecimenRow.label.ilike(f"%{escaped}%", escape="\\"))
         with Session(self.engine) as session:
             total = session.scalar(select(func.count()).select_from(SpecimenRow).where(*conditions))
             query = (

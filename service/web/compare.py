@@ -8,7 +8,6 @@ measurements the specimens share.
 from __future__ import annotations
 
 import math
-from typing import Any
 
 from service.store import SpecimenRecord
 from service.store.export import flatten
@@ -73,8 +72,38 @@ def standardised_distances(
     return matrix, sorted(scales), len(population)
 
 
-def side_by_side(records: list[SpecimenRecord]) -> list[tuple[str, list[Any]]]:
-    """``(feature, [value of each specimen])`` rows for the comparison table."""
+#: The comparison table: (label, path into features, unit key) in the order a reader expects.
+_TABLE = (
+    ("Box-counting dimension", "box_dimension", None),
+    ("Mass-radius dimension", "mass_radius_dimension", None),
+    ("Sandbox dimension", "sandbox_dimension", None),
+)
+
+
+def side_by_side(records: list[SpecimenRecord]) -> list[tuple[str, list[str]]]:
+    """``(label, [text for each specimen])`` rows: the dimensions with their 95% intervals
+    (withheld ones say so), then every other shared scalar measurement in words and units."""
+    from service.web import labels
+    from service.web.report_view import check_dimension, num
+
+    rows: list[tuple[str, list[str]]] = []
+    for label, key, _ in _TABLE:
+        cells = []
+        for r in records:
+            fit = (r.analysis.get("features") or {}).get(key) or {}
+            status, _reason = check_dimension(fit.get("value"), fit.get("ci95"))
+            ci = fit.get("ci95")
+            if status == "withheld":
+                cells.append("withheld")
+            elif isinstance(ci, list) and len(ci) == 2 and all(isinstance(c, (int, float)) for c in ci):
+                cells.append(f"{fit['value']:.3f} ({ci[0]:.3f}–{ci[1]:.3f})" + (" ⚑" if status == "flagged" else ""))
+            else:
+                cells.append(num(fit.get("value")))
+        rows.append((label, cells))
     values = [numeric_features(r) for r in records]
-    keys = dict.fromkeys(k for v in values for k in v)
-    return [(k, [v.get(k) for v in values]) for k in keys]
+    skip = tuple(k for _, k, _ in _TABLE)
+    keys = dict.fromkeys(k for v in values for k in v if not k.startswith(skip))
+    for k in keys:
+        unit = labels.unit_of(k)
+        rows.append((labels.feature_label(k) + (f" ({unit})" if unit else ""), [num(v.get(k), 4) for v in values]))
+    return rows

@@ -85,6 +85,7 @@ def run_analysis(data: bytes, options: AnalysisOptions) -> dict[str, Any]:
         "lacunarity.svg": plots.lacunarity_svg(analysis["features"].get("lacunarity", {})),
     }
     files.update(reading_pictures(result.segmentation, photo.shape[:2]))
+    files.update(plots.skeleton_svgs(features.skeleton, analysis["features"]))
     rows = matcher_rows(analysis)
     if rows:
         explanation = analysis["explanation"]

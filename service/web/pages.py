@@ -13,8 +13,7 @@ from fastapi.templating import Jinja2Templates
 
 from service.errors import LibraryError
 from service.store import Store
-from service.store.export import flatten
-from service.web import compare, formatting, plots, readings
+from service.web import compare, formatting, labels, plots, readings, report_view
 from service.web.api import file_url, summary
 from service.web.deps import current_lab, get_pool, get_settings, get_store
 from service.web.demo import DEMO_FILENAME, DEMO_LABEL, DEMO_STORY, ensure_demo_jpeg
@@ -59,6 +58,13 @@ async def demo_image(settings: Settings = Depends(get_settings), pool: AnalysisP
     return Response(data, media_type="image/jpeg", headers={"Cache-Control": "public, max-age=3600"})
 
 
+@router.get("/demo/specimen")
+async def demo_specimen(store: Store = Depends(get_store), lab: str | None = Depends(current_lab)) -> dict[str, Any]:
+    """The demo specimen already measured for this lab (``report_url`` None when there is none yet)."""
+    records, _ = await run_in_threadpool(store.list, owner=lab, label=DEMO_LABEL, limit=1)
+    return {"report_url": str(f"/specimens/{records[0].id}") if records else None}
+
+
 @router.get("/specimens", response_class=HTMLResponse)
 async def specimens_page(
     request: Request,
@@ -68,9 +74,10 @@ async def specimens_page(
     lab: str | None = Depends(current_lab),
 ) -> HTMLResponse:
     limit = 50
-    records, total = await run_in_threadpool(store.list, owner=lab, label=label or None, limit=limit, offset=offset)
-    return _page(request, "specimens.html", items=[summary(r) for r in records], total=total,
-                 offset=offset, limit=limit, label=label or "")
+    records, total = await run_in_threadpool(store.list, owner=lab, label_contains=label or None, limit=limit,
+                                             offset=offset)
+    items = [summary(r) | report_view.list_marks(r.analysis) for r in records]
+    return _page(request, "specimens.html", items=items, total=total, offset=offset, limit=limit, label=label or "")
 
 
 @router.get("/specimens/{specimen_id}", response_class=HTMLResponse, name="report_page")
@@ -93,13 +100,16 @@ async def report_page(
         except LibraryError:
             nearest = []
     files = {name: file_url(record, name) for name in record.files}
-    measurements = [(k, v) for k, v in flatten("", analysis.get("features", {})) if v is not None]
     explanation = analysis.get("explanation") if isinstance(analysis.get("explanation"), dict) else {}
     history = await run_in_threadpool(store.history, specimen_id, owner=lab) or []
     segmentation = analysis.get("segmentation") or {}
+    others, _ = await run_in_threadpool(store.list, owner=lab, limit=100)
+    view = report_view.build_report(analysis, record.kind)
+    pictures = await run_in_threadpool(plots.report_plots_or_files, analysis, files)
     return _page(request, "report.html", record=record, a=analysis, files=files, matches=matches,
-                 nearest=nearest, measurements=measurements, cautions=cautions_for(record.kind),
-                 explanation=explanation, deciding=formatting.deciding_in_words(explanation),
+                 nearest=[n | {"name": labels.family_label(n, short=True)} for n in nearest],
+                 cautions=cautions_for(record.kind), explanation=explanation, view=view, **pictures,
+                 others=[{"id": o.id, "name": o.label or o.filename or o.id[:8]} for o in others if o.id != record.id],
                  confidence=segmentation.get("confidence"), uncertain=formatting.uncertain(segmentation),
                  alternatives=readings.alternatives_of(analysis),
                  history=[formatting.reading_in_words(r.to_dict()) for r in reversed(history)],
@@ -144,6 +154,14 @@ async def compare_page(
         context["plots"] = {k: _svg_data_uri(v) for k, v in curves.items()}
         context["rows"] = compare.side_by_side(records)
         context["distance"] = {"names": names, **await _distances(records, store, lab, pool, settings)}
+        context["distance"]["feature_labels"] = [labels.matcher_feature_label(f) for f in context["distance"]["features"]]
+        if context["distance"]["features"]:
+            context["distance_plot"] = _svg_data_uri(await run_in_threadpool(
+                plots.distance_matrix_svg, names, context["distance"]["matrix"], title="distance"))
+    else:
+        stored, _ = await run_in_threadpool(store.list, owner=lab, limit=100)
+        chosen = {r.id for r in records}
+        context["choices"] = [{"id": r.id, "name": r.label or r.filename or r.id[:8]} for r in stored if r.id not in chosen]
     return _page(request, "compare.html", **context)
 
 
@@ -192,4 +210,4 @@ async def api_docs(request: Request) -> HTMLResponse:
         for method, op in item.items()
         if method in ("get", "post", "put", "patch", "delete")
     ]
-    return _page(request, "api_docs.html", schema=schema, operations=operations)
+    return _page(request, "api_docs.html", schema=schema, operations=operations, stored_files=labels.STORED_FILES)

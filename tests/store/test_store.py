@@ -252,3 +252,22 @@ def test_sweep_removes_reading_folders_no_record_names(store):
         os.utime(folder, (two_hours_ago, two_hours_ago))
     assert store.sweep_unused_readings(older_than_s=3600) == [f"{record.id}/reading-3-deadbeef"]
     assert not interrupted.exists() and store.file_path(record, "overlay.png").read_bytes() == b"2"
+
+
+def test_label_substring_filter_and_settings_in_the_csv(store):
+    for label in ("Cell A_1", "cell ax1", "100% copper", "river"):
+        store.add(_analysis(1) | {"segmentation": {"mode": "ridge", "polarity": "dark", "threshold": 0.42,
+                                                   "reading": {"mode": "ridge", "lighting": "patchy"}}},
+                  {"overlay.png": b"x"}, label=label)
+    labels = lambda found: sorted(r.label for r in found[0])  # noqa: E731
+    assert labels(store.list(label_contains="CELL A")) == ["Cell A_1", "cell ax1"]  # any case
+    # "_" and "%" are the text itself, not SQL LIKE wildcards
+    assert labels(store.list(label_contains="a_")) == ["Cell A_1"]
+    assert labels(store.list(label_contains="%")) == ["100% copper"]
+    assert store.list(label="cell")[1] == 0  # the exact filter is unchanged
+
+    row = next(csv.DictReader(io.StringIO(specimens_csv(store.list(label="river")[0]))))
+    assert (row["segmentation.mode"], row["segmentation.polarity"], row["segmentation.threshold"]) == (
+        "ridge", "dark", "0.42")
+    assert row["segmentation.lighting"] == "patchy"  # from the reading's overrides
+    assert '"lighting": "patchy"' in row["segmentation.reading"]

@@ -237,6 +237,8 @@ def test_fix_the_reading_on_the_report_without_uploading_again(server, browser, 
     for _ in range(6):
         page.keyboard.press("ArrowLeft")
     threshold = float(page.input_value("#threshold"))
+    # the preview is drawn on the next animation frame: wait for it (a long report takes a while to paint)
+    page.locator("#threshold-preview:not([data-tinted='0'])").wait_for()
     first = _tinted(page)
     levels = np.asarray(Image.open(_io.BytesIO(httpx.get(server + body["files"]["levels.png"]).content)))
     dark = body["segmentation"]["levels_compare"] == "below"  # the threshold takes pixels below it
@@ -244,6 +246,7 @@ def test_fix_the_reading_on_the_report_without_uploading_again(server, browser, 
     assert first == pytest.approx(expected, rel=0.02, abs=20)  # edge pixels of the ellipse may differ
     for _ in range(20):
         page.keyboard.press("ArrowRight")
+    page.locator(f"#threshold-preview:not([data-tinted='{first}'])").wait_for()
     # a higher threshold takes more pixels when it takes those below it, fewer otherwise
     assert (_tinted(page) > first) is dark and _tinted(page) != first
     page.screenshot(path=shots / "reading-editor.png", full_page=True)
@@ -324,3 +327,135 @@ def test_the_upload_queue_marks_an_unsure_reading_needs_a_look(server, browser, 
     assert page.locator("#queue li.done a.report-link").count() == 1
     assert page.evaluate("document.documentElement.scrollWidth") <= 375
     page.screenshot(path=ARTIFACTS / "upload-queue-needs-a-look.png", full_page=True)
+
+
+#: A code identifier with a dot or an underscore (``box_dimension.value``, ``center_rc``): never visible text.
+CODE_KEY = r"\b[a-z]+(?:[._][a-z0-9]+)+\b"
+
+
+def _visible_text(page) -> str:
+    return page.evaluate("document.body.innerText")
+
+
+@pytest.mark.parametrize("width", [1400, 375])
+def test_the_report_leads_with_verdict_measurements_and_branches(server, browser, width):
+    import re
+
+    if not hasattr(test_the_report_leads_with_verdict_measurements_and_branches, "url"):
+        answer = httpx.post(f"{server}/api/specimens", files={"image": ("dish-8.png", specimen_png(8, size_px=360))},
+                            data={"label": "calibrated dish 8", "kind": "electrodeposit", "pixel_size_mm": "0.04"},
+                            timeout=180)
+        assert answer.status_code == 201, answer.text
+        test_the_report_leads_with_verdict_measurements_and_branches.url = answer.json()["report_url"]
+    url = test_the_report_leads_with_verdict_measurements_and_branches.url
+    page = browser.new_page(viewport={"width": width, "height": 900})
+    page.goto(server + url)
+    page.wait_for_load_state("networkidle")
+    ARTIFACTS.mkdir(exist_ok=True)
+    page.screenshot(path=ARTIFACTS / f"report-{width}px.png", full_page=True)
+
+    assert page.locator("#verdict h2").is_visible() and page.inner_text("#verdict h2").strip()
+    assert page.locator("#verdict-doubt").is_visible()
+    box = page.locator("#measurements tr[data-key=box_dimension]")
+    assert box.is_visible()
+    shown = box.inner_text()
+    # the value with its interval, or the reason it is withheld; and the range in mm (calibrated)
+    assert re.search(r"\d\.\d{3}.*\d\.\d{3} – \d\.\d{3}", shown, re.S) or "withheld" in shown
+    assert "mm" in page.inner_text("#measurements")
+    assert page.locator("#dimension-advice").is_visible()
+    page.locator("#branches").scroll_into_view_if_needed()
+    assert _loaded(page, "#plot-branches") and _loaded(page, "#plot-horton")
+    assert page.locator("#branches table.distributions tbody tr").count() >= 3
+    assert page.evaluate("document.documentElement.scrollWidth") <= page.evaluate("innerWidth")
+    text = _visible_text(page).replace("dish-8.png", "")
+    assert re.findall(CODE_KEY, text) == []
+    for internal in ("field_of_view", "center_rc", "otsu_separability", "nats", "calibrated False"):
+        assert internal not in text
+    # the internals are there, folded
+    assert page.locator("details#how-measured").count() == 1
+    assert page.locator("details#how-measured[open]").count() == 0
+
+
+def test_compare_from_a_report_and_the_list_filter(server, browser):
+    page = browser.new_page(viewport={"width": 375, "height": 812})
+    records = httpx.get(f"{server}/api/specimens").json()["items"]
+    for seed in range(10, 12 - len(records)):
+        answer = httpx.post(f"{server}/api/specimens", data={"label": f"Dish {seed}"}, timeout=180,
+                            files={"image": (f"dish-{seed}.png", specimen_png(seed, size_px=300))})
+        assert answer.status_code == 201, answer.text
+    records = httpx.get(f"{server}/api/specimens").json()["items"]
+    page.goto(server + records[0]["report_url"])
+    page.wait_for_load_state("networkidle")
+    page.click("#compare-picker button[type=submit]")
+    page.wait_for_url(f"{server}/compare?*")
+    page.wait_for_load_state("networkidle")
+    assert _loaded(page, "#compare-box-counting")
+    assert "(" in page.inner_text("table.side")  # dimensions with their interval in brackets
+    assert page.evaluate("document.documentElement.scrollWidth") <= 375
+    page.screenshot(path=ARTIFACTS / "compare-375px.png", full_page=True)
+    # a part of a label finds it, in any case
+    label = next(r["label"] for r in records if r["label"])
+    page.goto(server + "/specimens?label=" + label[1:4].upper())
+    assert label in page.inner_text("table.specimens")
+    assert page.evaluate("document.documentElement.scrollWidth") <= 375
+
+
+def test_the_api_page_sends_a_request_from_the_browser(server, browser):
+    page = browser.new_page(viewport={"width": 1400, "height": 900})
+    outside = []
+    page.on("request", lambda r: outside.append(r.url) if not r.url.startswith((server, "data:")) else None)
+    page.goto(server + "/docs")
+    assert "overlay.png" in page.inner_text("#stored-files") and "horton.svg" in page.inner_text("#stored-files")
+    op = page.locator("section.op", has=page.locator("code.path", has_text="/api/health")).first
+    op.locator("summary").click()
+    op.locator("button[type=submit]").click()
+    op.locator(".try-status").wait_for()
+    assert op.locator(".try-status").inner_text().startswith("200")
+    assert '"status"' in op.locator(".try-answer pre").inner_text()
+    page.screenshot(path=ARTIFACTS / "api-page.png", full_page=False)
+    assert outside == []
+
+
+def test_a_second_demo_click_opens_the_same_specimen(server, browser):
+    page = browser.new_page(viewport={"width": 1280, "height": 900})
+    urls = []
+    for _ in range(2):
+        page.goto(server + "/")
+        page.click("#demo-button")
+        page.wait_for_url(f"{server}/specimens/*", timeout=180_000)
+        urls.append(page.url)
+    assert urls[0] == urls[1]
+    demos = [r for r in httpx.get(f"{server}/api/specimens").json()["items"] if r["label"] and "DEMO" in r["label"]]
+    assert len(demos) == 1
+
+
+def test_the_upload_queue_marks_out_of_library_and_undecided_results(server, browser, tmp_path):
+    import copy
+    import json
+
+    paths = []
+    for seed in (12, 13):
+        path = tmp_path / f"dish-{seed}.png"
+        path.write_bytes(specimen_png(seed, size_px=300))
+        paths.append(str(path))
+    answer = httpx.post(f"{server}/api/specimens", files={"image": ("dish-12.png", Path(paths[0]).read_bytes())},
+                        timeout=180)
+    assert answer.status_code == 201, answer.text
+    # The service's own answer, edited as an out-of-library and an undecided result would read.
+    outside, undecided = copy.deepcopy(answer.json()), copy.deepcopy(answer.json())
+    outside["in_library"] = False
+    undecided["in_library"] = True
+    undecided.setdefault("explanation", {})["verdict"] = {"name": "no confident verdict", "confident": False}
+    for body in (outside, undecided):
+        body["segmentation"]["confidence"] = 0.9
+    answers = [outside, undecided]
+    page = browser.new_page(viewport={"width": 375, "height": 812})
+    page.route(f"{server}/api/specimens", lambda route: route.fulfill(
+        status=201, content_type="application/json", body=json.dumps(answers.pop(0))))
+    page.goto(server + "/")
+    page.set_input_files("#files", paths)
+    page.locator("#queue li.done, #queue li.needs-look, #queue li.failed").nth(1).wait_for(timeout=60_000)
+    marked = page.locator("#queue li.needs-look")
+    assert marked.count() == 2 and page.locator("#queue li.done").count() == 0
+    text = page.inner_text("#queue")
+    assert "outside every reference" in text and "no confident verdict" in text

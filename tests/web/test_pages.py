@@ -30,7 +30,13 @@ def test_report_page_shows_pictures_numbers_and_cautions(client, dla_png):
         assert client.get(body["files"][name]).status_code == 200
     assert f'{body["features"]["box_dimension"]["value"]:.3f}' in html
     # the ranking: regimes, the deciding features in words, the specimen on the reference distributions
-    assert body["matches"][0]["regime"] in html and "What decided it" in html
+    from service.web.labels import family_label
+
+    assert family_label(body["matches"][0], short=True) in html
+    if body["in_library"]:
+        assert "What told the two nearest families apart" in html and 'id="verdict"' in html
+    else:
+        assert "Nearest, but outside every reference" in html and "Probability</th>" not in html
     assert f'src="{body["files"]["references.svg"]}"' in html
     assert "/api/references/" in html  # thumbnails of the nearest simulated references
     # an electrodeposit carries the electrodeposition caution only
@@ -50,9 +56,13 @@ def test_list_compare_library_and_docs_pages(client, dla_png):
     assert client.get("/specimens", params={"label": "dish 1"}).text.count('name="ids"') == 1
 
     compare = client.get("/compare", params=[("ids", ids[0]), ("ids", ids[1])]).text
-    assert compare.count("data:image/svg+xml;base64,") == 2
+    assert compare.count("data:image/svg+xml;base64,") == 3  # two curves and the distances with their key
+    assert 'id="compare-distances"' in compare
     assert "Mahalanobis distance in the matcher" in compare  # every specimen was ranked
-    assert "Pick two or more" in client.get("/compare").text
+    picker = client.get("/compare", params={"ids": ids[0]}).text  # from a report: pick the others
+    assert 'id="compare-picker"' in picker and all(f'value="{i}"' in picker for i in ids)
+    # the label filter matches a part of a label, in any case
+    assert client.get("/specimens", params={"label": "DISH"}).text.count('name="ids"') == 3
 
     assert client.get("/library").status_code == 200
     docs = client.get("/docs").text
