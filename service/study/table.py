@@ -321,10 +321,11 @@ def study_csv(rows: Sequence[Row]) -> str:
             unit = units[0] if units and units[0] else None
             condition_columns.append((name, f"{name} [{unit}]" if unit else name))
     measured = quantities(rows)
+    with_interval = {key for row in rows for key, m in row.measurements.items() if m.ci95 is not None}
     header = ["specimen_id", "name", *(title for _, title in condition_columns),
               "top_regime", "top_probability", "confident_verdict"]
     for key in measured:
-        header += [key, f"{key}_ci95_low", f"{key}_ci95_high"]
+        header += [key, f"{key}_ci95_low", f"{key}_ci95_high"] if key in with_interval else [key]
     out = io.StringIO()
     writer = csv.writer(out, lineterminator="\r\n")
     writer.writerow(header)
@@ -344,6 +345,8 @@ def study_csv(rows: Sequence[Row]) -> str:
                   "" if row.confident is None else str(row.confident).lower()]
         for key in measured:
             m = row.measurements.get(key)
-            cells += ["", "", ""] if m is None else [repr(m.value), *(repr(v) for v in m.ci95 or ("", ""))]
+            cells.append("" if m is None else repr(m.value))
+            if key in with_interval:
+                cells += ["", ""] if m is None or m.ci95 is None else [repr(m.ci95[0]), repr(m.ci95[1])]
         writer.writerow(cells)
     return out.getvalue()
