@@ -136,7 +136,7 @@ def regimes_svg(axis: Axis, curves: dict[str, list[tuple[float, float]]]) -> byt
 def diagram_svg(x_axis: Axis, y_axis: Axis, points: Sequence[DiagramPoint]) -> bytes:
     """The morphology diagram: every specimen a point at its two conditions, shaped and
     coloured by its top regime; hollow when the matcher's verdict was not confident."""
-    fig = _figure(5.6, 4.0)
+    fig = _figure(6.2, 4.0)
     ax = fig.axes[0]
     _condition_axis(ax, x_axis, "x")
     _condition_axis(ax, y_axis, "y")
@@ -156,7 +156,7 @@ def diagram_svg(x_axis: Axis, y_axis: Axis, points: Sequence[DiagramPoint]) -> b
                               markerfacecolor=colour, label=regime or "not ranked"))
     if any(p.uncertain and p.regime is not None for p in points):
         handles.append(Line2D([], [], linestyle="none", marker="o", markersize=8, markeredgecolor=INK,
-                              markerfacecolor="none", label="hollow: no confident verdict"))
+                              markerfacecolor="none", label="hollow: not confident"))
     ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False, fontsize=8,
               title="top regime", title_fontsize=8)
     ax.margins(0.12)
