@@ -196,7 +196,11 @@ def parse_condition(name: Any, raw: Any, *, unit: str | None = None) -> Conditio
     if isinstance(raw, bool) or raw is None:
         raise ConditionError(f"condition {name!r}: expected a number with its unit or a text, got {raw!r}")
     if isinstance(raw, (int, float)):
-        return _number(name, float(raw), unit)
+        try:
+            number = float(raw)
+        except OverflowError:  # an integer beyond any float
+            raise ConditionError(f"condition {name!r}: the value is too large for a number") from None
+        return _number(name, number, unit)
     if not isinstance(raw, str):
         raise ConditionError(f"condition {name!r}: expected a number with its unit or a text, got {raw!r}")
     match = _NUMBER_WITH_UNIT.match(raw)

@@ -94,16 +94,34 @@ class StudyIn(BaseModel):
         return value
 
 
+def _plain_id(value: str) -> str:
+    if not value.isprintable():
+        raise ValueError("a specimen id is printable text")
+    return value
+
+
 class SpecimenEntry(BaseModel):
     id: str = Field(min_length=1, max_length=64, description="a stored specimen's id")
+
+    @field_validator("id")
+    @classmethod
+    def _printable(cls, value: str) -> str:
+        return _plain_id(value)
     conditions: dict[str, Any] | None = Field(
         None, description='typed conditions, e.g. {"voltage": "4 V", "concentration": {"value": 50, "unit": "mM"}, '
                           f'"electrolyte": "copper sulfate"}}; units: {", ".join(KNOWN_UNITS)}')
 
 
 class Attach(BaseModel):
-    specimens: list[SpecimenEntry | str] = Field(min_length=1, max_length=500,
-                                                 description="specimen ids, or objects with an id and conditions")
+    specimens: list[SpecimenEntry | Annotated[str, Field(min_length=1, max_length=64)]] = Field(
+        min_length=1, max_length=500, description="specimen ids, or objects with an id and conditions")
+
+    @field_validator("specimens")
+    @classmethod
+    def _printable_ids(cls, value: list) -> list:
+        for item in value:
+            _plain_id(item if isinstance(item, str) else item.id)
+        return value
 
 
 class ConditionsIn(BaseModel):
