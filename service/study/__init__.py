@@ -14,6 +14,7 @@ from service.study.conditions import (
     conditions_to_dict,
     parse_condition,
     parse_conditions,
+    parse_conditions_text,
     parse_unit,
 )
 from service.study.table import (
@@ -41,7 +42,7 @@ from service.study.table_csv import parse_header, read_conditions_table
 __all__ = [
     "CANONICAL_UNITS", "KNOWN_UNITS", "Axis", "Condition", "ConditionError", "DiagramPoint", "Measurement",
     "Member", "Point", "Row", "Series", "axis_for", "check_consistent", "condition_names", "conditions_to_dict",
-    "diagram", "measurements_of", "parse_condition", "parse_conditions", "parse_header", "parse_unit",
+    "diagram", "measurements_of", "parse_condition", "parse_conditions", "parse_conditions_text", "parse_header", "parse_unit",
     "quantities", "read_conditions_table", "regime_groups", "regime_series", "series", "study_csv",
     "study_rows", "verdict_of",
 ]

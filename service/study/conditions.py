@@ -232,6 +232,33 @@ def parse_conditions(raw: Mapping[str, Any] | None) -> dict[str, Condition]:
     return parsed
 
 
+def parse_conditions_text(text: str | None) -> dict[str, Condition]:
+    """Conditions written as a JSON object, or as ``name = value`` pairs separated by ``;`` or
+    new lines (``voltage = 4 V; electrolyte = copper sulfate``), as a form field carries them."""
+    import json
+
+    text = (text or "").strip()
+    if not text:
+        return {}
+    if text.startswith("{"):
+        try:
+            raw = json.loads(text)
+        except ValueError as exc:
+            raise ConditionError(f"conditions in JSON must be an object, e.g. {{\"voltage\": \"4 V\"}}: {exc}") from None
+        return parse_conditions(raw)
+    pairs: dict[str, str] = {}
+    for part in re.split(r"[;\n]", text):
+        if not part.strip():
+            continue
+        name, equals, value = part.partition("=")
+        if not equals or not name.strip():
+            raise ConditionError(f"write each condition as 'name = value', e.g. 'voltage = 4 V'; got {part.strip()!r}")
+        if name.strip() in pairs:
+            raise ConditionError(f"condition {name.strip()!r} is given twice")
+        pairs[name.strip()] = value.strip()
+    return parse_conditions(pairs)
+
+
 def conditions_to_dict(conditions: Mapping[str, Condition] | Iterable[Condition]) -> dict[str, dict[str, Any]]:
     items = conditions.values() if isinstance(conditions, Mapping) else conditions
     return {c.name: c.to_dict() for c in items}

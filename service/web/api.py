@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 from functools import partial
 from typing import Annotated, Any, Literal
 
@@ -14,7 +13,7 @@ from sqlalchemy import text
 
 from service import __version__
 from service.store import Reading, SpecimenRecord, Store, StudyStore, specimens_csv
-from service.study import Condition, ConditionError, conditions_to_dict, parse_conditions
+from service.study import Condition, conditions_to_dict, parse_conditions_text
 from service.web import readings
 from service.web.deps import current_lab, get_pool, get_settings, get_store
 from service.web.jobs import AnalysisOptions, AnalysisPool, run_analysis
@@ -169,14 +168,8 @@ def _roi(value: str | None) -> tuple[float, ...] | None:
 
 
 def parse_conditions_field(value: str | None) -> dict[str, Condition]:
-    """The upload field ``conditions``: a JSON object of typed conditions (ConditionError, 422)."""
-    if value is None or not value.strip():
-        return {}
-    try:
-        raw = json.loads(value)
-    except ValueError as exc:
-        raise ConditionError(f"conditions must be a JSON object, e.g. {{\"voltage\": \"4 V\"}}: {exc}") from None
-    return parse_conditions(raw)
+    """The upload field ``conditions``: a JSON object, or ``name = value; ...`` (ConditionError, 422)."""
+    return parse_conditions_text(value)
 
 
 def _display_name(filename: str | None) -> str | None:
@@ -214,7 +207,8 @@ async def create_specimen(
     page: Annotated[int | None, Form(ge=0, description="TIFF page (0-based)")] = None,
     conditions: Annotated[str | None, Form(max_length=20000, description=(
         'typed conditions as a JSON object, e.g. {"voltage": "4 V", "concentration": "50 mM", '
-        '"electrolyte": "copper sulfate"}; a unit that does not parse is refused (422) before anything is stored'))] = None,
+        '"electrolyte": "copper sulfate"}, or as "voltage = 4 V; electrolyte = copper sulfate"; '
+        'a unit that does not parse is refused (422) before anything is stored'))] = None,
     settings: Settings = Depends(get_settings),
     store: Store = Depends(get_store),
     pool: AnalysisPool = Depends(get_pool),

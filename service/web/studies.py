@@ -16,6 +16,7 @@ from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from pydantic import BaseModel, Field, field_validator
 
+from service.errors import RamiformError
 from service.store import SpecimenRecord, Store, StudyRecord, StudyStore
 from service.study import (
     KNOWN_UNITS,
@@ -27,6 +28,7 @@ from service.study import (
     conditions_to_dict,
     diagram,
     parse_conditions,
+    parse_conditions_text,
     quantities,
     regime_series,
     series,
@@ -359,24 +361,53 @@ async def create_study_form(name: Annotated[str, Form(min_length=1, max_length=2
     return RedirectResponse(f"/studies/{study.id}", status_code=303)
 
 
+async def _study_page(request: Request, study_id: str, studies: StudyStore, store: Store, lab: str | None, *,
+                      error: str | None = None, status_code: int = 200, **choices: str | None) -> HTMLResponse:
+    study = await _study(studies, study_id, lab)
+    rows, records = await _rows(studies, study_id, lab)
+    body = study_body(study, rows, records, **choices)
+    members = {record.id for record in records}
+    recent, _ = await run_in_threadpool(store.list, owner=lab, limit=200)
+    candidates = [(r.id, r.label or r.filename or r.id[:8], r.created_at.isoformat()[:16].replace("T", " "))
+                  for r in recent if r.id not in members]
+    return _templates().TemplateResponse(request, "study.html", {
+        "study": body, "items": [], "conditions": list(body["conditions"]),
+        "quantities": [(key, quantity_words(key)) for key in body["quantities"]],
+        "is_demo": study.name == study_demo.DEMO_STUDY_NAME, "demo_story": study_demo.DEMO_STORY,
+        "cautions": ["electrodeposition", "biological"], "candidates": candidates, "error": error,
+    }, status_code=status_code)
+
+
 @router.get("/studies/{study_id}", response_class=HTMLResponse, include_in_schema=False)
 async def study_page(request: Request, study_id: str,
                      quantity: Annotated[str | None, Query(max_length=120)] = None,
                      condition: Annotated[str | None, Query(max_length=64)] = None,
                      x: Annotated[str | None, Query(max_length=64)] = None,
                      y: Annotated[str | None, Query(max_length=64)] = None,
-                     studies: StudyStore = Depends(get_studies),
+                     studies: StudyStore = Depends(get_studies), store: Store = Depends(get_store),
                      lab: str | None = Depends(current_lab)) -> HTMLResponse:
-    study = await _study(studies, study_id, lab)
-    rows, records = await _rows(studies, study_id, lab)
-    body = study_body(study, rows, records, quantity=quantity, condition=condition, x=x, y=y)
-    conditions = list(body["conditions"])
-    return _templates().TemplateResponse(request, "study.html", {
-        "study": body, "items": [], "conditions": conditions,
-        "quantities": [(key, quantity_words(key)) for key in body["quantities"]],
-        "is_demo": study.name == study_demo.DEMO_STUDY_NAME, "demo_story": study_demo.DEMO_STORY,
-        "cautions": ["electrodeposition", "biological"],
-    })
+    return await _study_page(request, study_id, studies, store, lab, quantity=quantity, condition=condition, x=x, y=y)
+
+
+@router.post("/studies/{study_id}/specimens", include_in_schema=False, response_model=None)
+async def attach_form(request: Request, study_id: str,
+                      specimen: Annotated[str, Form(min_length=1, max_length=300)],
+                      conditions: Annotated[str, Form(max_length=2000)] = "",
+                      studies: StudyStore = Depends(get_studies), store: Store = Depends(get_store),
+                      lab: str | None = Depends(current_lab)) -> Response:
+    """The study page's form: one specimen (its id, or its report address) with conditions as
+    ``name = value; ...``. A refusal shows the page again with the reason; nothing changes."""
+    await _study(studies, study_id, lab)
+    specimen_id = specimen.strip().rstrip("/").rsplit("/", 1)[-1]
+    try:
+        _plain_id(specimen_id)
+        parsed = parse_conditions_text(conditions)
+        if not await run_in_threadpool(studies.attach, study_id, [(specimen_id, parsed)], owner=lab):
+            raise HTTPException(404, f"no study {study_id!r}")
+    except (RamiformError, ValueError) as exc:
+        status = getattr(exc, "status_code", 422)
+        return await _study_page(request, study_id, studies, store, lab, error=str(exc), status_code=status)
+    return RedirectResponse(f"/studies/{study_id}", status_code=303)
 
 
 _demo_lock = asyncio.Lock()

@@ -12,7 +12,14 @@ import math
 
 import pytest
 
-from service.study import ConditionError, parse_condition, parse_conditions, parse_header, read_conditions_table
+from service.study import (
+    ConditionError,
+    parse_condition,
+    parse_conditions,
+    parse_conditions_text,
+    parse_header,
+    read_conditions_table,
+)
 
 
 @pytest.mark.parametrize(
@@ -95,3 +102,13 @@ def test_csv_headers_and_table():
         read_conditions_table("image,voltage [volts]\na.png,4\n", ["a.png"])
     with pytest.raises(ConditionError, match="row 2"):
         read_conditions_table("image,voltage [V]\na.png,four\n", ["a.png"])
+
+
+def test_conditions_as_a_form_writes_them():
+    as_text = parse_conditions_text("voltage = 4 V; concentration = 50 mM\nelectrolyte = copper sulfate")
+    as_json = parse_conditions_text('{"voltage": "4 V", "concentration": "50 mM", "electrolyte": "copper sulfate"}')
+    assert as_text == as_json and list(as_text) == ["voltage", "concentration", "electrolyte"]
+    assert parse_conditions_text("  ") == {}
+    for bad in ("voltage 4 V", "voltage = 4 volts", "v = 1 V; v = 2 V", "{broken", "= 4 V"):
+        with pytest.raises(ConditionError):
+            parse_conditions_text(bad)

@@ -81,6 +81,24 @@ def test_a_study_from_creation_to_csv(client, three):
     assert client.get("/studies").status_code == 200
 
 
+def test_the_study_page_adds_a_specimen_with_its_conditions(client, three):
+    study = client.post("/api/studies", json={"name": "page series"}).json()
+    page_url = study["page_url"]
+    assert three[0] in client.get(page_url).text  # offered in the list of measured specimens
+    refused = client.post(f"{page_url}/specimens", data={"specimen": three[0], "conditions": "voltage = 2 volts"},
+                          follow_redirects=False)
+    assert refused.status_code == 422 and "volts" in refused.text
+    assert client.get(study["url"]).json()["table"] == []
+    added = client.post(f"{page_url}/specimens", follow_redirects=False,
+                        data={"specimen": f"http://127.0.0.1:8000/specimens/{three[0]}", "conditions": "electrolyte = CuSO4"})
+    assert added.status_code == 303 and added.headers["location"] == page_url
+    table = client.get(study["url"]).json()["table"]
+    assert [row["specimen_id"] for row in table] == [three[0]]
+    assert table[0]["conditions"]["electrolyte"]["value"] == "CuSO4"  # the shared specimens keep their conditions
+    answer = client.post(f"{page_url}/specimens", data={"specimen": "no-such-id"}, follow_redirects=False)
+    assert answer.status_code == 404 and client.get(study["url"]).json()["table"] == table
+
+
 def test_bad_input_leaves_the_study_untouched(client, three):
     study = client.post("/api/studies", json={"name": "series"}).json()
     url = f"/api/studies/{study['id']}"
@@ -104,7 +122,7 @@ def test_bad_input_leaves_the_study_untouched(client, three):
 
     # an upload whose conditions do not parse is refused before anything is stored
     total = client.get("/api/specimens").json()["total"]
-    for bad in ({"voltage": "4 volts"}, "{not json", '["4 V"]'):
+    for bad in ({"voltage": "4 volts"}, "{not json", '["4 V"]', "voltage = 4 volts", "voltage 4 V"):
         answer = _upload(client, 4, bad)
         assert answer.status_code == 422, answer.text
     assert client.get("/api/specimens").json()["total"] == total
