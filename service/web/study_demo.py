@@ -30,7 +30,7 @@ DEMO_STORY = (
 _N_SITES = 1500
 _SIZE_PX = 420
 #: Bump when the recipe changes, so cached renderings are not reused.
-DEMO_STUDY_VERSION = 1
+DEMO_STUDY_VERSION = 2
 
 
 @dataclass(frozen=True)
