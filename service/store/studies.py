@@ -271,6 +271,12 @@ class StudyStore:
                                                                   StudyMemberRow.specimen_id == specimen_id))
             return bool(result.rowcount)
 
+    def forget_specimen(self, specimen_id: str) -> None:
+        """Drop a deleted specimen's memberships and conditions (reads already skip them)."""
+        with Session(self.engine) as session, session.begin():
+            session.execute(delete(StudyMemberRow).where(StudyMemberRow.specimen_id == specimen_id))
+            session.execute(delete(SpecimenConditionRow).where(SpecimenConditionRow.specimen_id == specimen_id))
+
     def set_conditions(self, specimen_id: str, conditions: Mapping[str, Condition], *, owner: str | None = None,
                        replace: bool = False) -> dict[str, Condition] | None:
         """Merge (or with ``replace`` set) the specimen's conditions; ``None`` when it is not the

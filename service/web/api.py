@@ -346,6 +346,7 @@ async def delete_specimen(
 ) -> Response:
     if not await run_in_threadpool(store.delete, specimen_id, owner=lab):
         raise HTTPException(404, f"no specimen {specimen_id!r}")
+    await run_in_threadpool(StudyStore(store.engine).forget_specimen, specimen_id)
     return Response(status_code=204)
 
 

@@ -41,9 +41,13 @@ def test_a_study_keeps_its_members_in_order_with_their_conditions(store):
     assert [record.id for record, _ in members] == [specimens[2].id, specimens[0].id, specimens[1].id]
     assert members[1][1]["voltage"].value == 2.0 and members[1][1]["electrolyte"].value == "CuSO4"
 
-    # a deleted specimen leaves the study's table
+    # a deleted specimen leaves the study's table at once, and its rows go when the web layer forgets it
     store.delete(specimens[2].id)
     assert [record.id for record, _ in studies.members(study.id)] == [specimens[0].id, specimens[1].id]
+    assert studies.conditions_of(specimens[2].id)
+    studies.forget_specimen(specimens[2].id)
+    assert studies.conditions_of(specimens[2].id) == {}
+    assert studies.get(study.id).n_specimens == 2
 
 
 def test_a_failed_attach_changes_nothing(store):
