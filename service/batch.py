@@ -131,9 +131,15 @@ def write_results(results: Iterable[dict[str, Any]], *, as_json: bool, out: Text
 
 
 def _conditions_table(path: str, images: list[str]) -> dict[str, dict[str, Any]]:
-    """``--conditions``: each image's conditions as JSON objects; ConditionError or OSError when unreadable."""
+    """``--conditions``: each image's conditions as JSON objects; ConditionError or OSError when unreadable.
+
+    A relative path not found from the working folder is looked for beside the first image.
+    """
     from service.study.table_csv import conditions_json, read_conditions_table
 
+    beside = os.path.join(os.path.dirname(images[0]), path) if images else path
+    if not os.path.exists(path) and not os.path.isabs(path) and os.path.isfile(beside):
+        path = beside  # a bare name: the table beside the images
     with open(path, encoding="utf-8-sig", newline="") as handle:
         table = read_conditions_table(handle.read(), images)
     return {image: conditions_json(conditions) for image, conditions in table.items()}

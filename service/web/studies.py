@@ -410,15 +410,15 @@ async def attach_form(request: Request, study_id: str,
     return RedirectResponse(f"/studies/{study_id}", status_code=303)
 
 
-_demo_lock = asyncio.Lock()
-
-
 @router.post("/demo/study", include_in_schema=False)
-async def demo_study(settings: Settings = Depends(get_settings), store: Store = Depends(get_store),
+async def demo_study(request: Request, settings: Settings = Depends(get_settings), store: Store = Depends(get_store),
                      studies: StudyStore = Depends(get_studies), pool: AnalysisPool = Depends(get_pool),
                      lab: str | None = Depends(current_lab)) -> RedirectResponse:
     """Open the demo study, making it on the first click (later clicks reuse it)."""
-    async with _demo_lock:
+    # one demo in the making per app: a second click waits for the first and is sent to its study
+    if getattr(request.app.state, "demo_study_lock", None) is None:
+        request.app.state.demo_study_lock = asyncio.Lock()
+    async with request.app.state.demo_study_lock:
         existing = await run_in_threadpool(studies.list, owner=lab, name=study_demo.DEMO_STUDY_NAME)
         usable = [s for s in existing if s.n_specimens == len(study_demo.DEMO_MEMBERS)]
         if usable:

@@ -54,6 +54,13 @@ def test_a_table_that_does_not_read_exits_2_before_any_analysis(tmp_path, images
     assert captured.out == "" and reason in captured.err and "--conditions" in captured.err
 
 
+def test_a_bare_table_name_is_found_beside_the_images(tmp_path, images, capsys, monkeypatch):
+    (tmp_path / "table.csv").write_text("file,voltage [V]\ndish-1.png,4\n", encoding="utf-8")
+    monkeypatch.chdir(tmp_path.parent)  # not where the table is
+    assert main(["analyze", "--json", "--workers", "1", "--conditions", "table.csv", images[0]]) == 0
+    assert json.loads(capsys.readouterr().out)["conditions"]["voltage"]["value"] == 4.0
+
+
 def test_a_missing_table_exits_2(tmp_path, images, capsys):
     assert main(["analyze", "--conditions", str(tmp_path / "absent.csv"), *images]) == 2
     assert "absent.csv" in capsys.readouterr().err
