@@ -35,7 +35,7 @@ from service.study import (
     study_csv,
     study_rows,
 )
-from service.web import study_demo, study_plots
+from service.web import readings, study_demo, study_plots
 from service.web.api import ErrorBody, file_url, report_url
 from service.web.deps import current_lab, get_pool, get_settings, get_store
 from service.web.jobs import AnalysisOptions, AnalysisPool, run_analysis
@@ -434,7 +434,8 @@ async def demo_study(request: Request, settings: Settings = Depends(get_settings
             record = await run_in_threadpool(
                 lambda i=i, result=result: store.add(result["analysis"], result["files"], label=study_demo.member_label(i),
                                                      kind="electrodeposit", filename=study_demo.member_filename(i),
-                                                     owner=lab))
+                                                     owner=lab, reading=readings.history_entry(
+                                                         result["analysis"], {}, origin="upload")))
             entries.append((record.id, parse_conditions(study_demo.DEMO_MEMBERS[i].conditions())))
         study = await run_in_threadpool(studies.create, study_demo.DEMO_STUDY_NAME, study_demo.DEMO_STORY, owner=lab)
         await run_in_threadpool(studies.attach, study.id, entries, owner=lab)
