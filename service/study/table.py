@@ -328,7 +328,7 @@ def study_csv(rows: Sequence[Row]) -> str:
         header += [key, f"{key}_ci95_low", f"{key}_ci95_high"] if key in with_interval else [key]
     out = io.StringIO()
     writer = csv.writer(out, lineterminator="\r\n")
-    writer.writerow(header)
+    writer.writerow([_cell(title) for title in header])
     for row in rows:
         cells: list[Any] = [row.specimen_id, _cell(row.name)]
         for name, title in condition_columns:
