@@ -104,6 +104,12 @@ def _match_label(match: dict[str, Any]) -> str:
     return f"{match['regime']}" + (f" ({params})" if params else "")
 
 
+def _condition_words(condition: dict[str, Any]) -> str:
+    value = condition.get("value")
+    text = f"{value:g}" if isinstance(value, float) else str(value)
+    return f"{text} {condition['unit']}" if condition.get("unit") else text
+
+
 def write_results(results: Iterable[dict[str, Any]], *, as_json: bool, out: TextIO) -> int:
     """Print results; return the number of images that failed."""
     failures = 0
@@ -115,14 +121,45 @@ def write_results(results: Iterable[dict[str, Any]], *, as_json: bool, out: Text
             out.write(json.dumps(result, allow_nan=False, separators=(",", ":")) + "\n")
         else:
             out.write(_table_row(result) + "\n")
+            if result.get("conditions"):
+                out.write("    conditions: " + "; ".join(
+                    f"{name} {_condition_words(c)}" for name, c in result["conditions"].items()) + "\n")
             for warning in result.get("warnings", []):
                 out.write(f"    warning: {warning}\n")
         out.flush()
     return failures
 
 
+def _conditions_table(path: str, images: list[str]) -> dict[str, dict[str, Any]]:
+    """``--conditions``: each image's conditions as JSON objects; ConditionError or OSError when unreadable.
+
+    A relative path not found from the working folder is looked for beside the first image.
+    """
+    from service.study.table_csv import conditions_json, read_conditions_table
+
+    beside = os.path.join(os.path.dirname(images[0]), path) if images else path
+    if not os.path.exists(path) and not os.path.isabs(path) and os.path.isfile(beside):
+        path = beside  # a bare name: the table beside the images
+    with open(path, encoding="utf-8-sig", newline="") as handle:
+        table = read_conditions_table(handle.read(), images)
+    return {image: conditions_json(conditions) for image, conditions in table.items()}
+
+
+def _with_conditions(results: Iterable[dict[str, Any]], table: dict[str, dict[str, Any]]) -> Iterator[dict[str, Any]]:
+    for result in results:
+        yield {**result, "conditions": table.get(result["path"], {})}
+
+
 def run_analyze_command(args) -> int:
-    """Entry point of ``ramiform analyze``; exit status 1 if any image failed."""
+    """Entry point of ``ramiform analyze``; exit status 1 if any image failed, 2 for a conditions
+    table that does not read (a unit outside the table, a row naming no given image)."""
+    table = None
+    if getattr(args, "conditions", None):
+        try:
+            table = _conditions_table(args.conditions, list(args.images))
+        except (RamiformError, OSError, UnicodeDecodeError) as exc:
+            print(f"ramiform analyze: error: --conditions {args.conditions}: {exc}", file=sys.stderr)
+            return 2
     options = AnalysisOptions(
         pixel_size_mm=args.pixel_size,
         mode=args.mode,
@@ -135,5 +172,7 @@ def run_analyze_command(args) -> int:
         library_dir=args.library,
     )
     results = analyze_many(args.images, options, workers=args.workers, scheduler=args.scheduler)
+    if table is not None:
+        results = _with_conditions(results, table)
     failures = write_results(results, as_json=args.json, out=sys.stdout)
     return 1 if failures else 0

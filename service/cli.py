@@ -68,6 +68,10 @@ def _add_analyze(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--exclude", type=exclusion_box, action="append", default=None, metavar="X0,Y0,X1,Y1",
                    help="a box to leave out (a label, a wire, glare), px, end excluded; repeat for several")
     p.add_argument("--page", type=int, default=None, help="TIFF page to read (default: the first)")
+    p.add_argument("--conditions", default=None, metavar="TABLE.csv",
+                   help="CSV of each image's conditions: first column the image file name, then one column per "
+                        "condition headed 'name [unit]' (e.g. 'voltage [V]', 'concentration [mmol/L]') or 'name' "
+                        "for a text; they appear under 'conditions' in each result")
     p.set_defaults(func=_run_analyze)
 
 

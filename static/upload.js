@@ -18,7 +18,7 @@
   function fieldsFor(file, overrides) {
     const data = new FormData();
     data.append("image", file, file.name);
-    for (const name of ["label", "kind", "pixel_size_mm", "mode", "polarity", "threshold"]) {
+    for (const name of ["label", "kind", "pixel_size_mm", "conditions", "mode", "polarity", "threshold"]) {
       const value = overrides && name in overrides ? overrides[name] : form.elements[name].value.trim();
       if (value !== "") data.append(name, value);
     }

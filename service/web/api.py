@@ -12,7 +12,8 @@ from pydantic import BaseModel, ConfigDict, Field
 from sqlalchemy import text
 
 from service import __version__
-from service.store import Reading, SpecimenRecord, Store, specimens_csv
+from service.store import Reading, SpecimenRecord, Store, StudyStore, specimens_csv
+from service.study import Condition, conditions_to_dict, parse_conditions_text
 from service.web import readings
 from service.web.deps import current_lab, get_pool, get_settings, get_store
 from service.web.jobs import AnalysisOptions, AnalysisPool, run_analysis
@@ -166,6 +167,11 @@ def _roi(value: str | None) -> tuple[float, ...] | None:
     return region.as_tuple()
 
 
+def parse_conditions_field(value: str | None) -> dict[str, Condition]:
+    """The upload field ``conditions``: a JSON object, or ``name = value; ...`` (ConditionError, 422)."""
+    return parse_conditions_text(value)
+
+
 def _display_name(filename: str | None) -> str | None:
     """The client's file name as data: printable characters only, at most 255 of them."""
     cleaned = "".join(c for c in filename or "" if c.isprintable())[:255]
@@ -199,6 +205,10 @@ async def create_specimen(
     roi: Annotated[str | None, Form(description="region to analyse: 'cx,cy,r' (circle) or "
                                                 "'cx,cy,rx,ry,angle_deg' (ellipse) in px")] = None,
     page: Annotated[int | None, Form(ge=0, description="TIFF page (0-based)")] = None,
+    conditions: Annotated[str | None, Form(max_length=20000, description=(
+        'typed conditions as a JSON object, e.g. {"voltage": "4 V", "concentration": "50 mM", '
+        '"electrolyte": "copper sulfate"}, or as "voltage = 4 V; electrolyte = copper sulfate"; '
+        'a unit that does not parse is refused (422) before anything is stored'))] = None,
     settings: Settings = Depends(get_settings),
     store: Store = Depends(get_store),
     pool: AnalysisPool = Depends(get_pool),
@@ -207,6 +217,7 @@ async def create_specimen(
     """Analyse the image and store it; answers 201 only once record and files are on disk."""
     if label is not None and not label.isprintable():  # PostgreSQL text cannot hold NUL, for one
         raise HTTPException(422, "label must be plain text on one line (no control characters)")
+    parsed_conditions = parse_conditions_field(conditions)  # before any work: a bad unit stores nothing
     filename = _display_name(image.filename)
     data = await image.read()
     options = AnalysisOptions(
@@ -224,7 +235,11 @@ async def create_specimen(
     record = await run_in_threadpool(partial(
         store.add, result["analysis"], result["files"], label=label, kind=kind, filename=filename, owner=lab,
         reading=first))
-    return specimen_body(record, await run_in_threadpool(store.history, record.id, owner=lab))
+    body = specimen_body(record, await run_in_threadpool(store.history, record.id, owner=lab))
+    if parsed_conditions:
+        stored = await run_in_threadpool(StudyStore(store.engine).set_conditions, record.id, parsed_conditions, owner=lab)
+        body["conditions"] = conditions_to_dict(stored or {})
+    return body
 
 
 @router.get("/specimens", response_model=SpecimenPage, summary="List specimens, newest first")
@@ -331,6 +346,7 @@ async def delete_specimen(
 ) -> Response:
     if not await run_in_threadpool(store.delete, specimen_id, owner=lab):
         raise HTTPException(404, f"no specimen {specimen_id!r}")
+    await run_in_threadpool(StudyStore(store.engine).forget_specimen, specimen_id)
     return Response(status_code=204)
 
 

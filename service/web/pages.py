@@ -13,7 +13,7 @@ from fastapi.templating import Jinja2Templates
 
 from service.errors import LibraryError
 from service.store import Store
-from service.web import compare, formatting, labels, plots, readings, report_view
+from service.web import compare, formatting, labels, plots, readings, report_view, study_demo
 from service.web.api import file_url, summary
 from service.web.deps import current_lab, get_pool, get_settings, get_store
 from service.web.demo import DEMO_FILENAME, DEMO_LABEL, DEMO_STORY, ensure_demo_jpeg
@@ -49,7 +49,8 @@ def _svg_data_uri(svg: bytes) -> str:
 @router.get("/", response_class=HTMLResponse, dependencies=[Depends(current_lab)])
 async def upload_page(request: Request, settings: Settings = Depends(get_settings)) -> HTMLResponse:
     return _page(request, "upload.html", max_upload_mb=settings.max_upload_mb,
-                 demo_label=DEMO_LABEL, demo_story=DEMO_STORY, demo_filename=DEMO_FILENAME)
+                 demo_label=DEMO_LABEL, demo_story=DEMO_STORY, demo_filename=DEMO_FILENAME,
+                 demo_study_story=study_demo.DEMO_STORY)
 
 
 @router.get("/demo/specimen.jpg")

@@ -1,0 +1,163 @@
+"""SVG plots of a study page (matplotlib, Agg backend, no pyplot state).
+
+Three plots, each from the plain data of :mod:`service.study.table`: a measured quantity
+against a condition with 95% intervals, each regime's probability against a condition,
+and the morphology diagram over two conditions. The look lives in :func:`_figure` and
+:func:`_svg` alone, so a house style can replace it in one place.
+"""
+
+from __future__ import annotations
+
+import io
+from collections.abc import Sequence
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+from matplotlib.backends.backend_svg import FigureCanvasSVG  # noqa: E402
+from matplotlib.figure import Figure  # noqa: E402
+from matplotlib.lines import Line2D  # noqa: E402
+
+from service.study.table import Axis, DiagramPoint, Series  # noqa: E402
+
+INK = "#1d2a33"
+POINTS = "#b3541e"
+
+#: Marker and colour of each regime (shape and colour both, so the key reads in grey too).
+REGIME_STYLE = {
+    "dla": ("o", "#1f6f8b"),
+    "dbm": ("s", "#b3541e"),
+    "eden": ("^", "#5a8f29"),
+    "ballistic": ("D", "#7b3f8c"),
+}
+_OTHER_STYLES = (("v", "#c79a00"), ("P", "#3d5a80"), ("X", "#a23b72"), ("h", "#4d4d4d"))
+_UNRANKED = ("x", "#8a8f94")
+
+_STYLE = {
+    "svg.fonttype": "none",
+    "svg.hashsalt": "ramiform-study",
+    "font.size": 9,
+    "axes.edgecolor": INK,
+    "axes.labelcolor": INK,
+    "xtick.color": INK,
+    "ytick.color": INK,
+    "axes.spines.top": False,
+    "axes.spines.right": False,
+    "axes.grid": True,
+    "grid.color": "#d9dee2",
+    "grid.linewidth": 0.6,
+    "axes.axisbelow": True,
+}
+
+
+def _figure(width_in: float = 5.6, height_in: float = 3.6) -> Figure:
+    with matplotlib.rc_context(_STYLE):
+        fig = Figure(figsize=(width_in, height_in), layout="constrained")
+        fig.add_subplot()
+    return fig
+
+
+def _svg(fig: Figure) -> bytes:
+    out = io.BytesIO()
+    with matplotlib.rc_context(_STYLE):
+        FigureCanvasSVG(fig).print_svg(out, metadata={"Date": None, "Creator": "ramiform"})
+    return out.getvalue()
+
+
+def regime_style(regime: str | None, known: Sequence[str] = ()) -> tuple[str, str]:
+    """(marker, colour) of a regime; regimes outside the four families take the next free style."""
+    if regime is None:
+        return _UNRANKED
+    if regime in REGIME_STYLE:
+        return REGIME_STYLE[regime]
+    others = sorted(r for r in known if r not in REGIME_STYLE)
+    index = others.index(regime) if regime in others else 0
+    return _OTHER_STYLES[index % len(_OTHER_STYLES)]
+
+
+def _condition_axis(ax, axis: Axis, which: str = "x") -> None:
+    setter = ax.set_xlabel if which == "x" else ax.set_ylabel
+    setter(axis.title)
+    if not axis.is_number:
+        ticks = range(len(axis.categories))
+        if which == "x":
+            ax.set_xticks(list(ticks), list(axis.categories))
+        else:
+            ax.set_yticks(list(ticks), list(axis.categories))
+
+
+def _empty(ax, message: str) -> None:
+    ax.text(0.5, 0.5, message, ha="center", va="center", transform=ax.transAxes, color=INK)
+
+
+def quantity_svg(series: Series, quantity_label: str) -> bytes:
+    """Each specimen's value of a quantity against a condition, with its 95% interval as a bar."""
+    fig = _figure()
+    ax = fig.axes[0]
+    _condition_axis(ax, series.axis)
+    ax.set_ylabel(quantity_label)
+    if not series.points:
+        _empty(ax, "no specimen carries both")
+        return _svg(fig)
+    with_ci = [p for p in series.points if p.ci95]
+    if with_ci:
+        lower = [p.y - p.ci95[0] for p in with_ci]
+        upper = [p.ci95[1] - p.y for p in with_ci]
+        ax.errorbar([p.x for p in with_ci], [p.y for p in with_ci], yerr=[lower, upper], fmt="none",
+                    ecolor=POINTS, elinewidth=1.0, capsize=3, alpha=0.8, label="95% interval")
+    ax.plot(series.xs(), series.ys(), linestyle="none", marker="o", color=POINTS, markersize=5, label="specimen")
+    ax.legend(loc="best", frameon=False, fontsize=8)
+    return _svg(fig)
+
+
+def regimes_svg(axis: Axis, curves: dict[str, list[tuple[float, float]]]) -> bytes:
+    """Each regime's probability against a condition (one line and marker per regime)."""
+    fig = _figure()
+    ax = fig.axes[0]
+    _condition_axis(ax, axis)
+    ax.set_ylabel("probability of the regime")
+    ax.set_ylim(-0.02, 1.02)
+    drawn = False
+    for regime, points in curves.items():
+        if not points:
+            continue
+        marker, colour = regime_style(regime, list(curves))
+        ax.plot([x for x, _ in points], [p for _, p in points], marker=marker, color=colour, linewidth=1.2,
+                markersize=5, label=regime)
+        drawn = True
+    if drawn:
+        ax.legend(loc="best", frameon=False, fontsize=8, title="regime", title_fontsize=8)
+    else:
+        _empty(ax, "no ranked specimen carries this condition")
+    return _svg(fig)
+
+
+def diagram_svg(x_axis: Axis, y_axis: Axis, points: Sequence[DiagramPoint]) -> bytes:
+    """The morphology diagram: every specimen a point at its two conditions, shaped and
+    coloured by its top regime; hollow when the matcher's verdict was not confident."""
+    fig = _figure(6.2, 4.0)
+    ax = fig.axes[0]
+    _condition_axis(ax, x_axis, "x")
+    _condition_axis(ax, y_axis, "y")
+    regimes = sorted({p.regime for p in points if p.regime is not None})
+    for point in points:
+        marker, colour = regime_style(point.regime, regimes)
+        face = "none" if point.uncertain or point.regime is None else colour
+        ax.plot([point.x], [point.y], linestyle="none", marker=marker, markersize=9, markeredgewidth=1.5,
+                markeredgecolor=colour, markerfacecolor=face)
+    if not points:
+        _empty(ax, "no specimen carries both conditions")
+        return _svg(fig)
+    handles = []
+    for regime in regimes + ([None] if any(p.regime is None for p in points) else []):
+        marker, colour = regime_style(regime, regimes)
+        handles.append(Line2D([], [], linestyle="none", marker=marker, markersize=8, markeredgecolor=colour,
+                              markerfacecolor=colour, label=regime or "not ranked"))
+    if any(p.uncertain and p.regime is not None for p in points):
+        handles.append(Line2D([], [], linestyle="none", marker="o", markersize=8, markeredgecolor=INK,
+                              markerfacecolor="none", label="hollow: not confident"))
+    ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False, fontsize=8,
+              title="top regime", title_fontsize=8)
+    ax.margins(0.12)
+    return _svg(fig)
