@@ -59,8 +59,9 @@ def summary_lines(body: dict[str, Any]) -> list[str]:
     return lines
 
 
-def run_film_command(args, *, out: TextIO = sys.stdout, err: TextIO = sys.stderr) -> int:
+def run_film_command(args, *, out: TextIO | None = None, err: TextIO | None = None) -> int:
     """Entry point of ``ramiform film``; exit status 1 when the film cannot be analysed."""
+    out, err = out or sys.stdout, err or sys.stderr
     from service.film import FilmOptions, analyze_film
 
     paths = [Path(p) for p in args.film]

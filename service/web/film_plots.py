@@ -50,8 +50,7 @@ def arrival_png(arrival: np.ndarray, times_s: list[float], *, longest_px: int = 
     with matplotlib.rc_context(_RC):
         fig = Figure(figsize=(6.0, max(3.0, 5.2 * aspect)), layout="constrained")
         ax = fig.add_subplot()
-        cmap = matplotlib.colormaps["viridis"].copy()
-        cmap.set_bad("#f4f1ea")
+        cmap = matplotlib.colormaps["viridis"].with_extremes(bad="#f4f1ea")
         image = ax.imshow(shown, cmap=cmap, vmin=float(times.min()), vmax=float(times.max()), interpolation="nearest")
         ax.set_xticks([])
         ax.set_yticks([])
