@@ -345,7 +345,7 @@ def _chain(first, rest):
 
 def _tip_growth(arrival: np.ndarray, accepted: list[int], areas: np.ndarray, steps: list[tuple[int, int]],
                 width: float, final_radius_px: float, options: FilmOptions, match: bool) -> dict[str, Any]:
-    from service.features.skeleton import skeleton_graph
+    from service.film.tips import pruned_tips
 
     if not steps:
         return {"value": None, "reason": "the deposit did not grow enough between frames to tell where it grows",
@@ -359,7 +359,7 @@ def _tip_growth(arrival: np.ndarray, accepted: list[int], areas: np.ndarray, ste
     for i, j in steps:
         before = (crop >= 0) & (crop <= accepted[i])
         after = (crop >= 0) & (crop <= accepted[j])
-        tips = skeleton_graph(np.pad(before, 1)).tips_rc - 1
+        tips = pruned_tips(before)
         near, new = tip_share(before, after, tips, reach)
         near_total, new_total = near_total + near, new_total + new
         per_step.append({"from_frame": accepted[i], "to_frame": accepted[j],

@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from functools import cached_property
 from typing import Any
 
 import numpy as np
@@ -71,6 +72,15 @@ class SceneModel:
     rim: dict[str, Any] | None
     settings: dict[str, Any] = field(default_factory=dict)
 
+    @cached_property
+    def allowed_box(self) -> tuple[slice, slice]:
+        """Bounding box of ``allowed``."""
+        rows = np.flatnonzero(self.allowed.any(axis=1))
+        cols = np.flatnonzero(self.allowed.any(axis=0))
+        if rows.size == 0:
+            return (slice(0, 0), slice(0, 0))
+        return (slice(int(rows[0]), int(rows[-1]) + 1), slice(int(cols[0]), int(cols[-1]) + 1))
+
 
 def shift_picture(picture: np.ndarray, shift_rc: tuple[float, float], *, order: int = 1, cval: float = 0.0
                   ) -> np.ndarray:
@@ -100,8 +110,8 @@ def _reduced(gray: np.ndarray) -> tuple[np.ndarray, int]:
 def register(reference: np.ndarray, moving: np.ndarray) -> tuple[tuple[float, float], float]:
     """Shift (rows, cols) px that brings ``moving`` onto ``reference``, and the match's error.
 
-    Phase correlation [1]_ on copies at most 512 px on the long side, refined to a tenth of
-    their pixel (scikit-image's ``phase_cross_correlation``, upsampled DFT of [2]_); the
+    Phase correlation [1]_ on copies at most 512 px on the long side, refined to half a
+    pixel of the frame (scikit-image's ``phase_cross_correlation``, upsampled DFT of [2]_); the
     shift is rounded to whole pixels of the frame, which is what a camera on a stand drifts
     by and keeps the masks free of interpolation.
 
@@ -116,7 +126,9 @@ def register(reference: np.ndarray, moving: np.ndarray) -> tuple[tuple[float, fl
 
     ref_small, factor = _reduced(reference)
     mov_small, _ = _reduced(moving)
-    shift, error, _ = phase_cross_correlation(ref_small, mov_small, upsample_factor=10, normalization=None)
+    # enough upsampling to place the peak to half a pixel of the full frame
+    shift, error, _ = phase_cross_correlation(ref_small, mov_small, upsample_factor=min(10, 2 * factor),
+                                              normalization=None)
     return (float(round(shift[0] * factor)), float(round(shift[1] * factor))), float(error)
 
 
@@ -189,7 +201,9 @@ def deposit_mask(gray: np.ndarray, scene: SceneModel) -> tuple[np.ndarray, Frame
     raw = picture < np.float32(scene.threshold) if scene.compare == "below" else picture > np.float32(scene.threshold)
     raw &= scene.field
     total = int(np.count_nonzero(raw))
-    inside = raw & scene.allowed
+    # Everything after this works on the box round the final deposit's reach.
+    box = scene.allowed_box
+    inside = raw[box] & scene.allowed[box]
     n_inside = int(np.count_nonzero(inside))
     outside_share = (total - n_inside) / total if total else 0.0
     labels, n = ndimage.label(inside, structure=np.ones((3, 3), dtype=bool))
@@ -198,7 +212,9 @@ def deposit_mask(gray: np.ndarray, scene: SceneModel) -> tuple[np.ndarray, Frame
         keep = sizes >= scene.min_component_px
         keep[0] = False
         inside = keep[labels]
-    return inside, FrameCheck(outside_share=float(outside_share), area_px=int(np.count_nonzero(inside)))
+    mask = np.zeros(raw.shape, dtype=bool)
+    mask[box] = inside
+    return mask, FrameCheck(outside_share=float(outside_share), area_px=int(np.count_nonzero(inside)))
 
 
 def lost_share(before: np.ndarray, after: np.ndarray) -> float:
@@ -252,7 +268,7 @@ def frame_measures(mask: np.ndarray, center_rc: tuple[float, float], width_px: f
     """
     from service.errors import SpecimenError
     from service.features.dimension import box_counting
-    from service.features.skeleton import skeleton_graph
+    from service.film.tips import pruned_tips
 
     rows, cols = np.nonzero(mask)
     out: dict[str, Any] = {"area_px": int(rows.size), "radius_of_gyration_px": None, "max_radius_px": None,
@@ -272,11 +288,7 @@ def frame_measures(mask: np.ndarray, center_rc: tuple[float, float], width_px: f
         out["box_dimension"] = {"value": float(box.value), "ci95": [float(box.ci95[0]), float(box.ci95[1])]}
     except (SpecimenError, ValueError):
         pass
-    try:
-        graph = skeleton_graph(small)
-        out["tips"] = int(graph.tips)
-        out["tips_rc"] = (np.asarray(graph.tips_rc, dtype=float) * factor + factor / 2.0 - 0.5
-                          + np.array([r0 - 1, c0 - 1], dtype=float))
-    except (SpecimenError, ValueError):
-        pass
+    tips = pruned_tips(small)
+    out["tips"] = int(tips.shape[0])
+    out["tips_rc"] = tips.astype(float) * factor + factor / 2.0 - 0.5 + np.array([r0 - 1, c0 - 1], dtype=float)
     return out

@@ -205,11 +205,15 @@ def _open_video(data: bytes, label: str, frame_interval_s: float | None, limits:
     limits.check(n, shape, float(times_s[-1]))
 
     def frames() -> Iterator[np.ndarray]:
+        from service.imaging.load import _luma
+
+        # Colour, then the luma a photograph's loader takes, so that every frame's grey is the
+        # grey of the last frame the scene model was decided on.
         with container() as c:
             stream = c.streams.video[0]
             stream.thread_type = "AUTO"
             for frame in c.decode(stream):
-                yield frame.to_ndarray(format="gray").astype(np.float32) * np.float32(1.0 / 255.0)
+                yield _luma(frame.to_ndarray(format="rgb24"), 255.0)
 
     return FilmSource(f"video ({label})", times_s, source, shape, None, frames, last_rgb)
 

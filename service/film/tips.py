@@ -22,7 +22,7 @@ from typing import Any
 import numpy as np
 from scipy import ndimage
 
-__all__ = ["TIP_REACH_WIDTHS", "tip_share", "comparison_steps", "reference_shares"]
+__all__ = ["TIP_REACH_WIDTHS", "comparison_steps", "pruned_tips", "reference_shares", "tip_share"]
 
 #: New deposit within this many branch widths of a tip counts as grown at the tip.
 TIP_REACH_WIDTHS = 3.0
@@ -32,6 +32,36 @@ MAX_STEPS = 8
 #: A comparison step spans at least this growth of the area (small steps are mostly noise).
 MIN_STEP_GROWTH = 1.25
 _FRACTION_GRID = 0.02
+
+
+def pruned_tips(mask: np.ndarray) -> np.ndarray:
+    """Tips (row, col) of a mask's skeleton graph, the same tips ``skeleton_graph`` counts.
+
+    The same steps as :func:`service.features.skeleton.skeleton_graph` up to its tips
+    (Zhang-Suen skeleton, spurs shorter than 1.5 local widths pruned, close junctions merged),
+    without the lengths, angles and Horton-Strahler ordering a film's every frame does not need.
+    """
+    from skimage.morphology import skeletonize
+
+    from service.features._common import local_width_px
+    from service.features.skeleton import MERGE_WIDTHS, PRUNE_WIDTHS, _bare_graph
+
+    rows, cols = np.nonzero(mask)
+    if rows.size == 0:
+        return np.empty((0, 2), dtype=np.int64)
+    r0, c0 = rows.min() - 1, cols.min() - 1
+    crop = np.zeros((rows.max() - r0 + 2, cols.max() - c0 + 2), dtype=bool)
+    crop[rows - r0, cols - c0] = True
+    skel = skeletonize(crop)
+    graph, _, _ = _bare_graph(skel, local_width_px(ndimage.distance_transform_edt(crop)))
+    while True:
+        changed = graph.prune_spurs(PRUNE_WIDTHS)
+        changed += graph.merge_close_junctions(MERGE_WIDTHS)
+        changed += graph.merge_chains()
+        if not changed:
+            break
+    tips = [graph.node_pixels[n][0] for n in graph.incident if graph.degree(n) == 1]
+    return np.array(tips, dtype=np.int64).reshape(-1, 2) + np.array([r0, c0])
 
 
 def near_tips(shape: tuple[int, int], tips_rc: np.ndarray, reach_px: float) -> np.ndarray:
@@ -82,13 +112,11 @@ def _grid(fraction: float) -> float:
 @lru_cache(maxsize=4096)
 def _cluster_step(library_dir: str, ensemble_id: str, index: int, f_before: float, f_after: float,
                   reach_fraction: float) -> tuple[int, int]:
-    from service.features.skeleton import skeleton_graph
-
     order = _order(library_dir, ensemble_id, index)
     n = int(order.max())
     before = (order > 0) & (order <= math.ceil(f_before * n))
     after = (order > 0) & (order <= math.ceil(f_after * n))
-    tips = skeleton_graph(np.pad(before, 1)).tips_rc - 1
+    tips = pruned_tips(before)
     rows, cols = np.nonzero(order)
     h, w = order.shape
     radius = float(np.sqrt((rows - h // 2) ** 2 + (cols - w // 2) ** 2).max())
