@@ -68,7 +68,31 @@ def _source_name(data: bytes) -> str:
     return "source.bin"
 
 
-def run_film(source: bytes | list[bytes], options: FilmOptions) -> dict[str, Any]:
+def _progress_writer(path: str | None):
+    """A progress callback that leaves ``{"stage", "done", "total"}`` in ``path`` (replaced whole,
+    at most twice a second), so any instance sharing the data folder can answer the page's poll."""
+    if path is None:
+        return None
+    import json
+    import os
+    import time
+
+    last = {"at": 0.0}
+
+    def write(stage: str, done: int, total: int) -> None:
+        now = time.monotonic()
+        if stage == "frames" and done < total and now - last["at"] < 0.5:
+            return
+        last["at"] = now
+        tmp = f"{path}.{os.getpid()}.tmp"
+        with open(tmp, "w", encoding="utf-8") as out:
+            json.dump({"stage": stage, "done": done, "total": total}, out)
+        os.replace(tmp, path)
+
+    return write
+
+
+def run_film(source: bytes | list[bytes], options: FilmOptions, progress_path: str | None = None) -> dict[str, Any]:
     """Analyse one film in a worker; returns ``{"film": dict, "files": {name: bytes}}``.
 
     Files: ``arrival.png`` (arrival map with its colour key), ``arrival_frames.npz`` (the map
@@ -84,7 +108,8 @@ def run_film(source: bytes | list[bytes], options: FilmOptions) -> dict[str, Any
     from service.web.jobs import _reference_set_or_reason
 
     reference_set, not_ranked = _reference_set_or_reason(options.library_dir)
-    result = analyze_film(source, options, reference_set=reference_set, match=not_ranked is None)
+    result = analyze_film(source, options, reference_set=reference_set, match=not_ranked is None,
+                          progress=_progress_writer(progress_path))
     body = result.to_dict()
     if not_ranked is not None:
         body["warnings"].append(not_ranked)
@@ -143,12 +168,24 @@ def _limits(settings: Settings) -> FilmLimits:
     return FilmLimits(max_pixels_per_frame=min(FilmLimits().max_pixels_per_frame, settings.max_pixels))
 
 
+def _progress_path(store: Store, token: str | None) -> Path | None:
+    if token is None:
+        return None
+    folder = Path(store.data_dir) / "film-progress"
+    folder.mkdir(parents=True, exist_ok=True)
+    return folder / f"{token}.json"
+
+
 async def _analyse_and_store(source, options: FilmOptions, *, label: str | None, lab: str | None, store: Store,
-                             pool: AnalysisPool) -> FilmRecord:
+                             pool: AnalysisPool, progress_token: str | None = None) -> FilmRecord:
+    progress = _progress_path(store, progress_token)
     try:
-        result = await pool.run(run_film, source, options)
+        result = await pool.run(run_film, source, options, str(progress) if progress else None)
     except ValueError as exc:
         raise HTTPException(422, str(exc)) from exc
+    finally:
+        if progress is not None:
+            progress.unlink(missing_ok=True)
     films = FilmStore(store)
     return await run_in_threadpool(partial(films.add, result["film"], result["files"], label=label,
                                            filename=options.filename, owner=lab))
@@ -170,6 +207,10 @@ async def create_film(
     rim_radius_mm: Annotated[float | None, Form(gt=0, description="rim electrode radius from the centre, mm")] = None,
     pixel_size_mm: Annotated[float | None, Form(gt=0, description="pixel size, mm")] = None,
     label: Annotated[str | None, Form(max_length=200, description="free text, e.g. the cell and the run")] = None,
+    progress_token: Annotated[str | None, Form(pattern=r"^[A-Za-z0-9_-]{16,64}$",
+                                               description="a random token of the client's; while the film is "
+                                                           "analysed, GET /api/films/progress/{token} tells how far")
+                              ] = None,
     settings: Settings = Depends(get_settings),
     store: Store = Depends(get_store),
     pool: AnalysisPool = Depends(get_pool),
@@ -194,8 +235,25 @@ async def create_film(
                           rim_radius_mm=rim_radius_mm, pixel_size_mm=pixel_size_mm,
                           library_dir=str(settings.library_dir) if settings.library_dir else None,
                           limits=_limits(settings))
-    record = await _analyse_and_store(source, options, label=label, lab=lab, store=store, pool=pool)
+    record = await _analyse_and_store(source, options, label=label, lab=lab, store=store, pool=pool,
+                                      progress_token=progress_token)
     return film_body(record)
+
+
+@router.get("/api/films/progress/{token}", tags=["films"], summary="How far the analysis of an uploaded film is",
+            responses={404: {"description": "no film is being analysed under this token (not yet, or done)"}})
+async def film_progress(token: str, store: Store = Depends(get_store),
+                        lab: str | None = Depends(current_lab)) -> dict[str, Any]:
+    import json
+    import re
+
+    if not re.fullmatch(r"[A-Za-z0-9_-]{16,64}", token):
+        raise HTTPException(422, "a progress token is 16 to 64 letters, digits, '-' or '_'")
+    path = Path(store.data_dir) / "film-progress" / f"{token}.json"
+    try:
+        return json.loads(await run_in_threadpool(path.read_text, encoding="utf-8"))
+    except (OSError, ValueError):
+        raise HTTPException(404, "no film is being analysed under this token") from None
 
 
 @router.get("/api/films", tags=["films"], summary="List films, newest first")
@@ -245,6 +303,13 @@ def _templates():
     from service.web.pages import templates
 
     return templates
+
+
+@router.get("/films", response_class=HTMLResponse, include_in_schema=False)
+async def films_page(request: Request, store: Store = Depends(get_store),
+                     lab: str | None = Depends(current_lab)) -> HTMLResponse:
+    listing = await list_films(limit=100, offset=0, store=store, lab=lab)
+    return _templates().TemplateResponse(request, "films.html", {"items": listing["items"]})
 
 
 @router.get("/films/{film_id}", response_class=HTMLResponse, include_in_schema=False, name="film_page")

@@ -132,3 +132,26 @@ def test_the_home_page_opens_the_demo_film_in_one_click(client):
     assert "DEMO (simulated, not a real film)" in page.text and "made up" in page.text
     # a second click opens the same film
     assert client.post("/films/demo", follow_redirects=False).headers["location"] == opened.headers["location"]
+
+
+def test_the_films_page_uploads_and_follows_progress(client, stored, small_film, tmp_path):
+    from service.web.films import _progress_writer
+
+    page = client.get("/films")
+    assert page.status_code == 200
+    assert 'id="film-form"' in page.text and "/static/films.js" in page.text
+    assert stored["report_url"] in page.text
+    # what the worker leaves while it reads frames is what the page's poll gets
+    token = "t" * 20
+    folder = client.app.state.store.data_dir / "film-progress"
+    folder.mkdir(parents=True, exist_ok=True)
+    _progress_writer(str(folder / f"{token}.json"))("frames", 3, 10)
+    assert client.get(f"/api/films/progress/{token}").json() == {"stage": "frames", "done": 3, "total": 10}
+    assert client.get("/api/films/progress/" + "u" * 20).status_code == 404
+    assert client.get("/api/films/progress/bad token").status_code == 422
+    # an upload under a token leaves no progress behind once answered
+    frames = [("frames", (f"f{k}.png", _png(small_film.frames[k]), "image/png")) for k in (0, 3, 5)]
+    other = "v" * 24
+    response = client.post("/api/films", files=frames, data={"frame_interval_s": "30", "progress_token": other})
+    assert response.status_code == 201, response.text
+    assert not (folder / f"{other}.json").exists()
