@@ -142,3 +142,12 @@ def test_a_frame_where_the_deposit_shrinks_is_flagged(dla_film):
     assert [item["frame"] for item in left] == [5]
     assert "shrank" in left[0]["reason"]
     assert np.all(np.diff(body["growth"]["area_px"]) > 0)
+
+
+def test_a_bright_deposit_on_a_dark_solution_is_followed_alike(dla_order):
+    # Check: the drawn masks of a deposit lit from the side (bright on dark solution).
+    film = render_film(dla_order, 5, seed=5, size_px=512, interval_s=INTERVAL_S, first_share=0.3, polarity="bright")
+    body = analyze_film(film.frames, FilmOptions(frame_interval_s=INTERVAL_S), match=False).to_dict()
+    assert body["scene"]["levels_compare"] == "above"
+    assert body["growth"]["frame_index"] == list(range(5))
+    np.testing.assert_allclose(body["growth"]["area_px"], [int(m.sum()) for m in film.truth], rtol=0.03)

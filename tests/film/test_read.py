@@ -48,6 +48,20 @@ def test_tiff_stack_times_come_from_imagej_frame_interval():
     assert len(list(film.frames())) == 3
 
 
+def test_tiff_stack_times_come_from_each_page_datetime_tag():
+    # Check: TIFF 6.0 DateTime tag (306), "YYYY:MM:DD HH:MM:SS", written per page by tifffile.
+    from datetime import datetime, timedelta
+
+    out = io.BytesIO()
+    start = datetime(2026, 12, 2, 10, 0, 0)
+    with tifffile.TiffWriter(out) as tif:
+        for k, frame in enumerate(_frames(3)):
+            tif.write(frame[:, :, 0], datetime=start + timedelta(seconds=45 * k))
+    film = open_film(out.getvalue())
+    assert film.times_source == "file"
+    np.testing.assert_allclose(film.times_s, [0.0, 45.0, 90.0])
+
+
 def test_tiff_without_times_asks_for_an_interval():
     out = io.BytesIO()
     tifffile.imwrite(out, np.stack([f[:, :, 0] for f in _frames(3)]), photometric="minisblack")
