@@ -227,6 +227,7 @@ def analyze_film(source: bytes | str | Path | Sequence[bytes] | FilmSource, opti
     measures: dict[int, dict[str, Any]] = {}
     left_out: list[dict[str, Any]] = []
     shifts: list[list[float]] = []
+    exposures: list[float] = []
     pending: deque[tuple[int, np.ndarray, float]] = deque()
     state = {"previous": None}
 
@@ -260,6 +261,7 @@ def analyze_film(source: bytes | str | Path | Sequence[bytes] | FilmSource, opti
         shifts.append([shift[0], shift[1]])
         registered = shift_picture(gray, shift, cval=np.nan)
         mask, check = deposit_mask(registered, scene)
+        exposures.append(round(check.exposure, 4))
         pending.append((k, mask, check.outside_share))
         if len(pending) == 3:
             k0, m0, o0 = pending.popleft()
@@ -287,6 +289,7 @@ def analyze_film(source: bytes | str | Path | Sequence[bytes] | FilmSource, opti
                           "ci95": [m["box_dimension"]["ci95"] for m in curve]},
         "tips": [m["tips"] for m in curve],
         "registration_shift_rc_px": [shifts[k] for k in accepted],
+        "exposure_vs_last_frame": [exposures[k] for k in accepted],
         "left_out": left_out,
     }
     warnings: list[str] = []

@@ -8,6 +8,9 @@ smooth gain per pixel since the evening is a division) is applied to the frame a
 with the same threshold inside the same field. Nothing about the scene is re-decided frame
 by frame, so a deposit cannot change only because a frame was read differently.
 
+A camera that sets its own exposure is followed: each frame's background grey (sampled away
+from the deposit) is brought to the last frame's before the threshold applies.
+
 Deposit only grows. A frame that loses much of what the previous frame showed (it shrank),
 or shows deposit that neither the next frames nor the last frame have (it jumped), is
 flagged and left out of the curves; the film keeps its place for it.
@@ -71,6 +74,13 @@ class SceneModel:
     min_component_px: int
     rim: dict[str, Any] | None
     settings: dict[str, Any] = field(default_factory=dict)
+    #: Pixels outside the deposit's reach that read as deposit in the last frame too (rim
+    #: structures, a wire, a label): scenery, not evidence of a jump.
+    scenery: np.ndarray | None = None
+    #: Background pixels (flat indices) whose median grey tracks the camera's exposure, and
+    #: that median in the last frame.
+    background_sample: np.ndarray | None = None
+    background_level: float = 1.0
 
     @cached_property
     def allowed_box(self) -> tuple[slice, slice]:
@@ -169,10 +179,23 @@ def scene_from_segmentation(gray_last: np.ndarray, segmentation, *, shift_last_r
     if fov is not None and fov_info.get("source") not in (None, "whole image"):
         rim = {"center_rc": (fov.cy + shift_last_rc[0], fov.cx + shift_last_rc[1]), "radius_px": float(fov.r)}
     center = (segmentation.center_rc[0] + shift_last_rc[0], segmentation.center_rc[1] + shift_last_rc[1])
+    threshold = float(settings["threshold"])
+    compare = str(settings.get("levels_compare", "below"))
+    picture = gray * gain
+    raw = (picture < threshold if compare == "below" else picture > threshold) & field
+    scenery = ndimage.binary_dilation(raw & ~allowed, iterations=max(1, int(round(width))))
+    background = field & ~ndimage.binary_dilation(allowed, iterations=max(1, int(round(2 * width)))) & ~scenery
+    candidates = np.flatnonzero(shift_picture(background, shift_last_rc, order=0, cval=False))
+    sample = None
+    level = 1.0
+    if candidates.size >= 1000:
+        rng = np.random.default_rng(0)
+        sample = np.sort(rng.choice(candidates, size=min(20_000, candidates.size), replace=False))
+        level = float(np.median(shift_picture(picture, shift_last_rc, order=0, cval=np.nan).ravel()[sample]))
     return SceneModel(
         gain=shift_picture(gain, shift_last_rc, order=0, cval=fallback),
-        threshold=float(settings["threshold"]),
-        compare=str(settings.get("levels_compare", "below")),
+        threshold=threshold,
+        compare=compare,
         field=shift_picture(field, shift_last_rc, order=0, cval=False),
         allowed=shift_picture(allowed, shift_last_rc, order=0, cval=False),
         center_rc=(float(center[0]), float(center[1])),
@@ -180,6 +203,9 @@ def scene_from_segmentation(gray_last: np.ndarray, segmentation, *, shift_last_r
         min_component_px=int(max(4, math.ceil(width * width))),
         rim=rim,
         settings=settings,
+        scenery=shift_picture(scenery, shift_last_rc, order=0, cval=False),
+        background_sample=sample,
+        background_level=level,
     )
 
 
@@ -188,6 +214,7 @@ class FrameCheck:
     """What a frame's reading showed before it was accepted."""
 
     outside_share: float  # share of its deposit lying where the final frame has none
+    exposure: float  # the frame's background grey over the last frame's (1: same exposure)
     area_px: int
 
 
@@ -198,8 +225,19 @@ def deposit_mask(gray: np.ndarray, scene: SceneModel) -> tuple[np.ndarray, Frame
     that reach (deposit there cannot be real: it would have to vanish again by the end).
     """
     picture = gray * scene.gain
+    exposure = 1.0
+    if scene.background_sample is not None:
+        # A camera that sets its own exposure brightens as a dark deposit spreads: each frame's
+        # background is brought to the last frame's grey before the one threshold applies.
+        level = float(np.nanmedian(picture.ravel()[scene.background_sample]))
+        if math.isfinite(level) and level > 0:
+            exposure = level / scene.background_level
+            if abs(exposure - 1.0) > 0.005:
+                picture *= np.float32(1.0 / exposure)
     raw = picture < np.float32(scene.threshold) if scene.compare == "below" else picture > np.float32(scene.threshold)
     raw &= scene.field
+    if scene.scenery is not None:
+        raw &= ~scene.scenery
     total = int(np.count_nonzero(raw))
     # Everything after this works on the box round the final deposit's reach.
     box = scene.allowed_box
@@ -214,7 +252,8 @@ def deposit_mask(gray: np.ndarray, scene: SceneModel) -> tuple[np.ndarray, Frame
         inside = keep[labels]
     mask = np.zeros(raw.shape, dtype=bool)
     mask[box] = inside
-    return mask, FrameCheck(outside_share=float(outside_share), area_px=int(np.count_nonzero(inside)))
+    return mask, FrameCheck(outside_share=float(outside_share), exposure=float(exposure),
+                            area_px=int(np.count_nonzero(inside)))
 
 
 def lost_share(before: np.ndarray, after: np.ndarray) -> float:

@@ -151,3 +151,16 @@ def test_a_bright_deposit_on_a_dark_solution_is_followed_alike(dla_order):
     assert body["scene"]["levels_compare"] == "above"
     assert body["growth"]["frame_index"] == list(range(5))
     np.testing.assert_allclose(body["growth"]["area_px"], [int(m.sum()) for m in film.truth], rtol=0.03)
+
+
+def test_a_camera_that_sets_its_own_exposure_is_followed(dla_film):
+    # Check: the drawn masks again, with the earlier frames darker by up to 20% as a camera
+    # that brightens its exposure while a dark deposit spreads gives them.
+    frames = [np.clip(f.astype(np.float32) * (0.8 + 0.025 * k), 0, 255).astype(np.uint8)
+              for k, f in enumerate(dla_film.frames[:9])]
+    body = analyze_film(frames, FilmOptions(frame_interval_s=INTERVAL_S), match=False).to_dict()
+    growth = body["growth"]
+    assert growth["frame_index"] == list(range(9))
+    np.testing.assert_allclose(growth["exposure_vs_last_frame"], [(0.8 + 0.025 * k) / 1.0 for k in range(9)],
+                               atol=0.02)
+    np.testing.assert_allclose(growth["area_px"], [int(m.sum()) for m in dla_film.truth[:9]], rtol=0.03)
