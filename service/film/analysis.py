@@ -235,6 +235,11 @@ def analyze_film(source: bytes | str | Path | Sequence[bytes] | FilmSource, opti
         reason = None
         area = int(np.count_nonzero(mask))
         previous = state["previous"]
+        if area == 0 and previous is None:
+            # growth had not started (or not reached the size of a speck): nothing is wrong with the frame
+            left_out.append({"frame": k, "time_s": float(times_all[k]), "reason": "no deposit yet",
+                             "flagged": False})
+            return
         if area == 0:
             reason = "no deposit could be read in this frame"
         elif outside > INCONSISTENT_SHARE:
@@ -246,7 +251,7 @@ def analyze_film(source: bytes | str | Path | Sequence[bytes] | FilmSource, opti
             reason = (f"the deposit jumped: {min(lost_share(mask, m) for m in ahead):.0%} of it is missing from the "
                       "next frames")
         if reason is not None:
-            left_out.append({"frame": k, "time_s": float(times_all[k]), "reason": reason})
+            left_out.append({"frame": k, "time_s": float(times_all[k]), "reason": reason, "flagged": True})
             return
         accepted.append(k)
         measures[k] = frame_measures(mask, scene.center_rc, width)
@@ -293,7 +298,7 @@ def analyze_film(source: bytes | str | Path | Sequence[bytes] | FilmSource, opti
         "left_out": left_out,
     }
     warnings: list[str] = []
-    for item in left_out:
+    for item in (item for item in left_out if item["flagged"]):
         warnings.append(f"frame {item['frame']} (t = {item['time_s']:g} s) left out of the curves: {item['reason']}")
     if any(abs(shifts[k][0]) > 0.05 * first_gray.shape[0] or abs(shifts[k][1]) > 0.05 * first_gray.shape[1]
            for k in accepted):

@@ -134,11 +134,16 @@ def register(reference: np.ndarray, moving: np.ndarray) -> tuple[tuple[float, fl
     """
     from skimage.registration import phase_cross_correlation
 
+    import warnings
+
     ref_small, factor = _reduced(reference)
     mov_small, _ = _reduced(moving)
-    # enough upsampling to place the peak to half a pixel of the full frame
-    shift, error, _ = phase_cross_correlation(ref_small, mov_small, upsample_factor=min(10, 2 * factor),
-                                              normalization=None)
+    with warnings.catch_warnings():
+        # a blank (corrupted) frame has no error to speak of; it is flagged when read, not here
+        warnings.simplefilter("ignore", UserWarning)
+        # enough upsampling to place the peak to half a pixel of the full frame
+        shift, error, _ = phase_cross_correlation(ref_small, mov_small, upsample_factor=min(10, 2 * factor),
+                                                  normalization=None)
     return (float(round(shift[0] * factor)), float(round(shift[1] * factor))), float(error)
 
 

@@ -164,3 +164,23 @@ def test_a_camera_that_sets_its_own_exposure_is_followed(dla_film):
     np.testing.assert_allclose(growth["exposure_vs_last_frame"], [(0.8 + 0.025 * k) / 1.0 for k in range(9)],
                                atol=0.02)
     np.testing.assert_allclose(growth["area_px"], [int(m.sum()) for m in dla_film.truth[:9]], rtol=0.03)
+
+
+def test_frames_before_growth_starts_are_left_out_without_alarm(dla_order):
+    # No deposit yet (the dish painted over where the deposit will be, no electrode) is no fault
+    # of the frame; a blank frame later on is.
+    from scipy import ndimage
+
+    film = render_film(dla_order, 6, seed=5, size_px=384, interval_s=INTERVAL_S, first_share=0.3, electrode=False)
+    empty = film.frames[0].copy()
+    cover = ndimage.binary_dilation(film.truth[-1], iterations=6)
+    ring = ndimage.binary_dilation(cover, iterations=6) & ~cover
+    empty[cover] = np.median(empty[ring], axis=0).astype(np.uint8)
+    frames = [empty, empty] + list(film.frames[1:])
+    frames[4] = np.zeros_like(frames[4])
+    body = analyze_film(frames, FilmOptions(frame_interval_s=INTERVAL_S), match=False).to_dict()
+    left = {item["frame"]: item for item in body["growth"]["left_out"]}
+    assert set(left) == {0, 1, 4}
+    assert not left[0]["flagged"] and not left[1]["flagged"] and left[4]["flagged"]
+    assert [w.split(" ")[1] for w in body["warnings"] if w.startswith("frame ")] == ["4"]
+    assert body["growth"]["frame_index"] == [2, 3, 5, 6]
