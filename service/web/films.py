@@ -240,8 +240,7 @@ async def create_film(
     return film_body(record)
 
 
-@router.get("/api/films/progress/{token}", tags=["films"], summary="How far the analysis of an uploaded film is",
-            responses={404: {"description": "no film is being analysed under this token (not yet, or done)"}})
+@router.get("/api/films/progress/{token}", tags=["films"], summary="How far the analysis of an uploaded film is")
 async def film_progress(token: str, store: Store = Depends(get_store),
                         lab: str | None = Depends(current_lab)) -> dict[str, Any]:
     import json
@@ -253,7 +252,8 @@ async def film_progress(token: str, store: Store = Depends(get_store),
     try:
         return json.loads(await run_in_threadpool(path.read_text, encoding="utf-8"))
     except (OSError, ValueError):
-        raise HTTPException(404, "no film is being analysed under this token") from None
+        # not started yet (still uploading or queued), or already answered
+        return {"stage": "waiting", "done": 0, "total": None}
 
 
 @router.get("/api/films", tags=["films"], summary="List films, newest first")
