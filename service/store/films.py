@@ -100,5 +100,15 @@ class FilmStore:
                                    .order_by(FilmRow.created_at.desc(), FilmRow.id.desc()).offset(offset).limit(limit))
             return [_record(r) for r in rows], int(total or 0)
 
+    def delete(self, film_id: str, *, owner: str | None = None) -> bool:
+        """Remove the record (commit first), then its files; ``False`` if there was none."""
+        with Session(self.engine) as session, session.begin():
+            row = session.get(FilmRow, film_id)
+            if row is None or (owner is not None and row.owner != owner):
+                return False
+            session.delete(row)
+        shutil.rmtree(self.folder(film_id), ignore_errors=True)
+        return True
+
     def file_path(self, record: FilmRecord, name: str) -> Path | None:
         return self.folder(record.id) / name if name in record.files else None

@@ -12,7 +12,7 @@ from typing import Annotated, Any
 import numpy as np
 from fastapi import APIRouter, Depends, File, Form, HTTPException, Query, Request, UploadFile
 from fastapi.concurrency import run_in_threadpool
-from fastapi.responses import FileResponse, HTMLResponse, RedirectResponse
+from fastapi.responses import FileResponse, HTMLResponse, RedirectResponse, Response
 from pydantic import BaseModel, ConfigDict, Field
 
 from service.film import FilmLimits, FilmOptions
@@ -279,6 +279,15 @@ async def _found(store: Store, film_id: str, lab: str | None) -> FilmRecord:
 async def read_film(film_id: str, store: Store = Depends(get_store),
                     lab: str | None = Depends(current_lab)) -> dict[str, Any]:
     return film_body(await _found(store, film_id, lab))
+
+
+@router.delete("/api/films/{film_id}", status_code=204, response_class=Response, tags=["films"],
+               summary="Delete a film with its pictures", responses={404: {"description": "no such film"}})
+async def delete_film(film_id: str, store: Store = Depends(get_store),
+                      lab: str | None = Depends(current_lab)) -> Response:
+    if not await run_in_threadpool(partial(FilmStore(store).delete, film_id, owner=lab)):
+        raise HTTPException(404, f"no film {film_id!r}")
+    return Response(status_code=204)
 
 
 @router.get("/api/films/{film_id}/files/{name}", response_class=FileResponse, tags=["films"],

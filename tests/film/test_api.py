@@ -155,3 +155,14 @@ def test_the_films_page_uploads_and_follows_progress(client, stored, small_film,
     response = client.post("/api/films", files=frames, data={"frame_interval_s": "30", "progress_token": other})
     assert response.status_code == 201, response.text
     assert not (folder / f"{other}.json").exists()
+
+
+def test_a_film_can_be_deleted_with_its_pictures(client, small_film):
+    frames = [("frames", (f"f{k}.png", _png(small_film.frames[k]), "image/png")) for k in (0, 5)]
+    body = client.post("/api/films", files=frames, data={"frame_interval_s": "30"}).json()
+    folder = client.app.state.store.data_dir / "films" / body["id"]
+    assert folder.is_dir()
+    assert client.delete(f"/api/films/{body['id']}").status_code == 204
+    assert client.get(f"/api/films/{body['id']}").status_code == 404
+    assert not folder.exists()
+    assert client.delete(f"/api/films/{body['id']}").status_code == 404
