@@ -173,7 +173,8 @@ def analyze_film(source: bytes | str | Path | Sequence[bytes] | FilmSource, opti
         times in ``options.frame_times_s`` or ``options.frame_interval_s``).
     options : FilmOptions
     reference_set : ReferenceSet, optional
-        For ranking the last frame and the families' tip statistics (default: the bundled set).
+        For ranking the last frame (default: the set in ``options.library_dir``, else the
+        bundled one); the families' tip statistics come from ``options.library_dir``.
     match : bool
         Rank the last frame against the references and compare the tip growth share.
     progress : callable, optional
@@ -208,6 +209,10 @@ def analyze_film(source: bytes | str | Path | Sequence[bytes] | FilmSource, opti
     report("opened", 0, n)
 
     pixel_size_mm = options.pixel_size_mm or film.pixel_size_mm
+    if reference_set is None and match and options.library_dir:
+        from service.library import load_reference_set
+
+        reference_set = load_reference_set(options.library_dir)
     final = analyze_with(_png(film.last_rgb()), AnalysisOptions(filename=filename, pixel_size_mm=pixel_size_mm,
                                                                   mode="threshold"),
                          reference_set=reference_set, match=match)
