@@ -81,6 +81,33 @@ def _run_analyze(args: argparse.Namespace) -> int:
     return run_analyze_command(args)
 
 
+def _positive(text: str) -> float:
+    value = _numbers(text, (1,), "expected a positive number")[0]
+    if not value > 0:
+        raise argparse.ArgumentTypeError(f"expected a positive number, got {text!r}")
+    return value
+
+
+def _add_film(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("film", help="follow a deposit growing in a film: growth curves, front speed, time to rim")
+    p.add_argument("film", nargs="+", metavar="FILM",
+                   help="a video (MP4, MOV, AVI) or multi-page TIFF; or several frame images in order")
+    p.add_argument("--frame-interval", type=_positive, default=None, metavar="SECONDS",
+                   help="seconds between frames (replaces the times the file carries; needed for frame images)")
+    p.add_argument("--rim-radius-mm", type=_positive, default=None, metavar="MM",
+                   help="radius of the rim electrode from the centre electrode, mm (needs --pixel-size)")
+    p.add_argument("--pixel-size", type=_positive, default=None, metavar="MM", help="pixel size in millimetres")
+    p.add_argument("--library", default=None, metavar="DIR", help="reference set (default: the bundled one)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=_run_film)
+
+
+def _run_film(args: argparse.Namespace) -> int:
+    from service.film.command import run_film_command
+
+    return run_film_command(args)
+
+
 def _add_serve(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("serve", help="run the web service")
     p.add_argument("--host", default="127.0.0.1")
@@ -151,6 +178,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"ramiform {__version__}")
     sub = parser.add_subparsers(dest="command", required=True)
     _add_analyze(sub)
+    _add_film(sub)
     _add_serve(sub)
     _add_library(sub)
     return parser

@@ -12,7 +12,7 @@ from fastapi.staticfiles import StaticFiles
 
 from service import __version__
 from service.store import Store
-from service.web import api, auth, pages, studies
+from service.web import api, auth, films, pages, studies
 from service.web.errors import install_error_handlers
 from service.web.jobs import AnalysisPool
 from service.web.limits import NulGuardMiddleware, UploadLimitMiddleware, UploadQueueMiddleware
@@ -72,6 +72,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.mount("/static", StaticFiles(directory=STATIC_DIR), name="static")
     app.include_router(api.router)
     app.include_router(studies.router)
+    app.include_router(films.router)
     app.include_router(pages.router)
     app.include_router(auth.router)
     return app
