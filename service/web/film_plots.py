@@ -17,7 +17,7 @@ import numpy as np  # noqa: E402
 from matplotlib.backends.backend_agg import FigureCanvasAgg  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 
-from service.web.plots import _RC, FIT, INK, SPECIMEN, _style, _svg  # noqa: E402
+from service.web.plots import FIT, HOUSE_CMAP, HOUSE_STYLE, INK, SPECIMEN, _style, _svg  # noqa: E402
 
 _MINUTE = 60.0
 
@@ -47,10 +47,10 @@ def arrival_png(arrival: np.ndarray, times_s: list[float], *, longest_px: int = 
     shown = np.ma.masked_where(crop < 0, shown)
     h, w = crop.shape
     aspect = h / max(w, 1)
-    with matplotlib.rc_context(_RC):
+    with matplotlib.rc_context(HOUSE_STYLE):
         fig = Figure(figsize=(6.0, max(3.0, 5.2 * aspect)), layout="constrained")
         ax = fig.add_subplot()
-        cmap = matplotlib.colormaps["viridis"].with_extremes(bad="#f4f1ea")
+        cmap = HOUSE_CMAP.with_extremes(bad="#f4f1ea")
         image = ax.imshow(shown, cmap=cmap, vmin=float(times.min()), vmax=float(times.max()), interpolation="nearest")
         ax.set_xticks([])
         ax.set_yticks([])
@@ -68,7 +68,7 @@ def growth_svg(film: dict[str, Any]) -> bytes:
     growth = film["growth"]
     unit, label = _time_unit(growth["times_s"])
     t = np.asarray(growth["times_s"], dtype=float) / unit
-    with matplotlib.rc_context(_RC):
+    with matplotlib.rc_context(HOUSE_STYLE):
         fig = Figure(figsize=(8.0, 5.6), layout="constrained")
         axes = fig.subplots(2, 2, sharex=True)
         a_area, a_radius, a_dim, a_tips = axes.ravel()

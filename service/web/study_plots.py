@@ -21,34 +21,21 @@ from matplotlib.lines import Line2D  # noqa: E402
 
 from service.study.table import Axis, DiagramPoint, Series  # noqa: E402
 
-INK = "#1d2a33"
-POINTS = "#b3541e"
+from service.web.plots import CYCLE, HOUSE_STYLE, INK  # noqa: E402
+from service.web.plots import SPECIMEN as POINTS  # noqa: E402
 
 #: Marker and colour of each regime (shape and colour both, so the key reads in grey too).
 REGIME_STYLE = {
-    "dla": ("o", "#1f6f8b"),
-    "dbm": ("s", "#b3541e"),
-    "eden": ("^", "#5a8f29"),
-    "ballistic": ("D", "#7b3f8c"),
+    "dla": ("o", CYCLE[1]),
+    "dbm": ("s", CYCLE[0]),
+    "eden": ("^", CYCLE[2]),
+    "ballistic": ("D", CYCLE[3]),
 }
-_OTHER_STYLES = (("v", "#c79a00"), ("P", "#3d5a80"), ("X", "#a23b72"), ("h", "#4d4d4d"))
+_OTHER_STYLES = tuple(zip(("v", "P", "X", "h"), CYCLE[4:]))
 _UNRANKED = ("x", "#8a8f94")
 
-_STYLE = {
-    "svg.fonttype": "none",
-    "svg.hashsalt": "ramiform-study",
-    "font.size": 9,
-    "axes.edgecolor": INK,
-    "axes.labelcolor": INK,
-    "xtick.color": INK,
-    "ytick.color": INK,
-    "axes.spines.top": False,
-    "axes.spines.right": False,
-    "axes.grid": True,
-    "grid.color": "#d9dee2",
-    "grid.linewidth": 0.6,
-    "axes.axisbelow": True,
-}
+#: The pages' one house style (``service.web.plots``).
+_STYLE = HOUSE_STYLE
 
 
 def _figure(width_in: float = 5.6, height_in: float = 3.6) -> Figure:
