@@ -15,6 +15,7 @@ from typing import Any
 
 import numpy as np
 
+from service.caveats import Caveat
 from service.errors import SpecimenError
 from service.match.cache import _as_reference_set, cache_discrepancy, load_reference_table
 from service.match.explanation import NO_CONFIDENT_VERDICT, OUTSIDE_WORDS, build_explanation
@@ -212,7 +213,7 @@ def match(features, *, reference_set=None, mask: np.ndarray | None = None) -> Ma
             in_library=False,
             parameter_estimates={},
             explanation={"summary": f"not compared with the references: {exc}"},
-            warnings=(f"matching: {exc}",),
+            warnings=(Caveat("not_compared", f"matching: {exc}"),),
         )
     values, log_sites = vector.values, float(np.log(vector.n_sites))
     evaluation = model.evaluate(values, log_sites)
@@ -227,31 +228,35 @@ def match(features, *, reference_set=None, mask: np.ndarray | None = None) -> Ma
 
     warnings: list[str] = []
     if model.calibration["cache_discrepancy"] > CACHE_TOLERANCE:
-        warnings.append(
+        warnings.append(Caveat(
+            "reference_cache_stale",
             "matching: the reference feature cache was computed by other measurement code than this one "
             f"(difference {model.calibration['cache_discrepancy']:.3g}); rebuild it with "
-            "service.match.build_feature_cache"
-        )
+            "service.match.build_feature_cache",
+        ))
     lo, hi = model.size_range
     if not lo / 1.5 <= vector.n_sites <= hi * 1.5:
-        warnings.append(
+        warnings.append(Caveat(
+            "outside_library_sizes",
             f"matching: the specimen spans {vector.n_sites} branch widths squared, outside the library's sizes "
-            f"{lo:.0f}-{hi:.0f}; references are compared at their nearest size"
-        )
+            f"{lo:.0f}-{hi:.0f}; references are compared at their nearest size",
+        ))
     if not connected:
-        warnings.append(
+        warnings.append(Caveat(
+            "specimen_in_pieces",
             f"matching: the specimen is in pieces (the largest holds {vector.connected_fraction:.0%} of it), "
-            f"while every reference is one aggregate (at least {model.min_connected_fraction:.0%})"
-        )
+            f"while every reference is one aggregate (at least {model.min_connected_fraction:.0%})",
+        ))
     elif not in_library:
-        warnings.append(
+        warnings.append(Caveat(
+            "outside_library",
             f"matching: {OUTSIDE_WORDS} (nearest Mahalanobis distance {np.sqrt(d2[nearest]):.1f} > "
             f"{np.sqrt(model.novelty_d2):.1f}); the probabilities are tempered by that distance and the ranking "
-            "is only relative"
-        )
+            "is only relative",
+        ))
     decided = verdict(model, probability, in_library)
     if not decided["confident"] and in_library:
-        warnings.append(f"matching: {NO_CONFIDENT_VERDICT}: {decided['reason']}")
+        warnings.append(Caveat("no_confident_verdict", f"matching: {NO_CONFIDENT_VERDICT}: {decided['reason']}"))
     # Within a regime, where a parameter lies is read from the distance-tempered posterior; the
     # equal-odds mixing beyond the novelty threshold (doubt about the family) widens its
     # interval but does not drag the estimate towards the middle of the grid.
