@@ -18,7 +18,7 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING, Annotated, Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
 
 from service import __version__
 from service.analysis import json_safe
@@ -315,6 +315,27 @@ def analysis_json(analysis: Analysis) -> dict[str, Any]:
 def stored_analysis(data: dict[str, Any]) -> AnalysisModel:
     """A stored analysis dict read through the contract (older records get codes and statuses)."""
     return AnalysisModel.model_validate(data)
+
+
+#: The fitted dimensions of ``features``, each judged.
+DIMENSIONS = ("box_dimension", "mass_radius_dimension", "sandbox_dimension")
+
+
+def analysis_view(data: dict[str, Any]) -> dict[str, Any]:
+    """A stored analysis as plain JSON for lists, exports and pages: through the contract, or,
+    for a record the contract cannot read whole (a partial or foreign one), as stored with its
+    warnings given codes and its dimensions judged, so one bad record never stops a list."""
+    try:
+        return stored_analysis(data).json_dict()
+    except ValidationError:
+        out = json_safe(dict(data))
+        out["warnings"] = [caveat(w).to_dict() for w in data.get("warnings") or []]
+        features = out.get("features")
+        for key in DIMENSIONS if isinstance(features, dict) else ():
+            if isinstance(features.get(key), dict):
+                judged = judgement_of(features[key])
+                features[key].update(status=judged.status, reason=judged.reason)
+        return out
 
 
 def judgement_of(fit: dict[str, Any]) -> Judgement:

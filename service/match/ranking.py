@@ -8,24 +8,23 @@ said in :mod:`service.match.universality`; the explanation is built in
 
 from __future__ import annotations
 
-import threading
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Any
 
 import numpy as np
 
 from service.caveats import Caveat
 from service.errors import SpecimenError
-from service.match.cache import _as_reference_set, cache_discrepancy, load_reference_table
+from service.match.cache import cache_discrepancy, load_reference_table
 from service.match.explanation import NO_CONFIDENT_VERDICT, OUTSIDE_WORDS, build_explanation
+from service.match.library import ReferenceLibrary, library_of
 from service.match.model import CONNECTED_MARGIN, ReferenceModel, fit_model
 from service.match.parameters import parameter_estimates
 from service.match.persist import load_or_fit
 from service.match.universality import UNIVERSALITY_CLASSES, universality_class, verdict_of
 from service.match.vector import specimen_vector
 
-__all__ = ["MatchResult", "UNIVERSALITY_CLASSES", "match", "match_features", "reference_model", "universality_class"]
+__all__ = ["MatchResult", "ReferenceLibrary", "UNIVERSALITY_CLASSES", "match", "match_features", "reference_model", "universality_class"]
 
 #: Cached reference vectors may differ from fresh ones by rounding only.
 CACHE_TOLERANCE = 1e-9
@@ -35,11 +34,6 @@ CACHE_TOLERANCE = 1e-9
 ABSTAIN_Z = 1.96
 #: ... and whatever that spread, a verdict needs at least this probability.
 MIN_VERDICT_PROBABILITY = 0.5
-
-_MODELS: dict[tuple[str, str], ReferenceModel] = {}
-_DEFAULT_SET: list = []
-_LOCK = threading.Lock()
-
 
 @dataclass(frozen=True)
 class MatchResult:
@@ -81,28 +75,14 @@ class MatchResult:
         }
 
 
-def _resolve(reference_set):
-    if reference_set is not None:
-        return _as_reference_set(reference_set)
-    with _LOCK:
-        if not _DEFAULT_SET:
-            _DEFAULT_SET.append(_as_reference_set(None))
-        return _DEFAULT_SET[0]
-
-
 def reference_model(reference_set=None) -> ReferenceModel:
     """The fitted and calibrated model of a reference set (default: the bundled one).
 
-    Read from the set's ``cache/`` folder when stored there for this code and these
-    clusters (``service.match.persist``), else fitted (seconds) and stored; then kept in
-    memory, keyed by the set's folder and fingerprint, so a rebuilt set is refitted.
+    ``reference_set`` may be a :class:`ReferenceLibrary` (its model, loaded once), a
+    ``ReferenceSet`` or a folder (read from the set's ``cache/`` folder when stored there
+    for this code and these clusters, ``service.match.persist``, else fitted and stored).
     """
-    reference_set = _resolve(reference_set)
-    key = (str(Path(reference_set.path).resolve()), reference_set.fingerprint)
-    with _LOCK:
-        if key not in _MODELS:
-            _MODELS[key] = load_or_fit(reference_set, lambda: fit_reference_model(reference_set))
-        return _MODELS[key]
+    return library_of(reference_set).model
 
 
 def fit_reference_model(reference_set) -> ReferenceModel:
@@ -172,8 +152,9 @@ def match(features, *, reference_set=None, mask: np.ndarray | None = None) -> Ma
     features : Features
         The specimen's measurements (``service.features.measure``); its ``mask`` is what the
         matcher normalises and compares, unless ``mask`` is given.
-    reference_set : ReferenceSet or path, optional
-        Default: the bundled set (``service.library.load_reference_set()``).
+    reference_set : ReferenceLibrary, ReferenceSet or path, optional
+        What to rank against; a :class:`ReferenceLibrary` made once per process keeps its
+        model loaded. Default: the bundled set's library (``default_library()``).
     mask : (H, W) bool ndarray, optional
         The specimen mask, when ``features`` does not carry it.
 
@@ -203,8 +184,8 @@ def match(features, *, reference_set=None, mask: np.ndarray | None = None) -> Ma
         mask = getattr(features, "mask", None)
     if mask is None:
         raise ValueError("match_features needs the specimen mask: pass mask= or Features carrying .mask")
-    reference_set = _resolve(reference_set)
-    model = reference_model(reference_set)
+    library = library_of(reference_set)
+    reference_set, model = library.reference_set, library.model
     try:
         vector, normalisation = specimen_vector(mask)
     except SpecimenError as exc:

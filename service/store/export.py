@@ -8,6 +8,7 @@ import json
 from collections.abc import Iterable, Iterator
 from typing import Any
 
+from service.contract import analysis_view
 from service.store.store import SpecimenRecord
 
 _FIXED = ("id", "label", "kind", "filename", "created_at", "sha256")
@@ -28,9 +29,18 @@ def flatten(prefix: str, value: Any) -> Iterator[tuple[str, Any]]:
         yield prefix, value
 
 
+#: Segmentation settings that tell re-runs of one image apart (what was used, not how it was found).
+SEGMENTATION_COLUMNS = ("mode", "polarity", "threshold", "levels_compare", "branch_width_px", "confidence")
+
+
 def specimen_row(record: SpecimenRecord) -> dict[str, Any]:
-    """The flat CSV row of one specimen: identity, calibration, features, best match."""
-    analysis = record.analysis
+    """The flat CSV row of one specimen: identity, calibration, segmentation settings used,
+    features (each fitted dimension with its ``status`` and ``reason``), best match, warnings.
+
+    The stored analysis is read through the contract (:func:`service.contract.stored_analysis`),
+    so a number and its judgement are those of the API and the pages.
+    """
+    analysis = analysis_view(record.analysis)
     row: dict[str, Any] = {
         "id": record.id,
         "label": record.label,
@@ -39,8 +49,13 @@ def specimen_row(record: SpecimenRecord) -> dict[str, Any]:
         "created_at": record.created_at.isoformat(),
         "sha256": record.sha256,
     }
-    for section in ("image", "calibration", "features"):
+    for section in ("image", "calibration"):
         row.update(flatten(section, analysis.get(section, {})))
+    segmentation = analysis.get("segmentation") or {}
+    for key in SEGMENTATION_COLUMNS:
+        row[f"segmentation.{key}"] = segmentation.get(key)
+    row["segmentation.reading"] = json.dumps(segmentation.get("reading") or {}, sort_keys=True)
+    row.update(flatten("features", analysis.get("features", {})))
     matches = analysis.get("matches") or []
     if matches:
         best = matches[0]
@@ -49,7 +64,12 @@ def specimen_row(record: SpecimenRecord) -> dict[str, Any]:
         row["best_match.probability"] = best.get("probability")
     if "in_library" in analysis:
         row["in_library"] = analysis["in_library"]
-    row["warnings"] = " | ".join(analysis.get("warnings", []))
+    verdict = ((analysis.get("explanation") or {}).get("verdict") or {}).get("name")
+    if verdict is not None:
+        row["verdict"] = verdict
+    warnings = analysis.get("warnings", [])
+    row["warnings"] = " | ".join(w["text"] for w in warnings)
+    row["warning_codes"] = " ".join(w["code"] for w in warnings)
     return row
 
 
