@@ -13,7 +13,7 @@ from __future__ import annotations
 import threading
 from pathlib import Path
 
-__all__ = ["ReferenceLibrary", "default_library", "library_of"]
+__all__ = ["ReferenceLibrary", "default_library", "library_of", "process_library", "start_process_library"]
 
 
 class ReferenceLibrary:
@@ -105,3 +105,24 @@ def library_of(reference) -> ReferenceLibrary:
     if reference is None:
         return default_library()
     return ReferenceLibrary(reference)
+
+
+#: The library this process opened for its work (an analysis worker's, a batch's).
+_PROCESS: list[ReferenceLibrary] = []
+
+
+def start_process_library(directory: str | None) -> ReferenceLibrary:
+    """Open ``directory``'s library for this process and load its model now (a worker pool's
+    initializer). A set that cannot be opened does not stop the process: each analysis then
+    says in its warnings why it was not ranked."""
+    library = ReferenceLibrary(directory)
+    library.warm()
+    _PROCESS[:] = [library]
+    return library
+
+
+def process_library(directory: str | None) -> ReferenceLibrary:
+    """This process's library of ``directory``: the one opened for it, else one opened now and kept."""
+    if not (_PROCESS and _PROCESS[0].directory == directory):
+        _PROCESS[:] = [ReferenceLibrary(directory)]
+    return _PROCESS[0]

@@ -18,31 +18,9 @@ import numpy as np
 from service.analysis import AnalysisOptions
 from service.cpus import usable_cpus
 from service.errors import RamiformError
-from service.match.library import ReferenceLibrary
+from service.match.library import ReferenceLibrary, process_library, start_process_library
 
 _SOURCE_SUFFIX = {"PNG": "png", "JPEG": "jpg", "TIFF": "tif", "BMP": "bmp"}
-
-
-#: This worker process's reference library, opened once by :func:`_start_worker`.
-_WORKER_LIBRARY: list[ReferenceLibrary] = []
-
-
-def _start_worker(library_dir: str | None) -> None:
-    """Initializer of each analysis process: open the reference set and its model once.
-
-    A set that cannot be opened is not an error here (the process must start); each
-    analysis then says in its warnings why it was not ranked.
-    """
-    library = ReferenceLibrary(library_dir)
-    library.warm()
-    _WORKER_LIBRARY[:] = [library]
-
-
-def worker_library(library_dir: str | None) -> ReferenceLibrary:
-    """This process's library of ``library_dir``: the one its initializer opened, else a new one."""
-    if _WORKER_LIBRARY and _WORKER_LIBRARY[0].directory == library_dir:
-        return _WORKER_LIBRARY[0]
-    return ReferenceLibrary(library_dir)
 
 
 def matcher_rows(analysis: dict[str, Any]) -> list[dict[str, Any]]:
@@ -71,7 +49,7 @@ def run_analysis(data: bytes, options: AnalysisOptions, library: ReferenceLibrar
     from service.web import pictures, plots
     from service.web.formatting import family_name
 
-    library = library or worker_library(options.library_dir)
+    library = library or process_library(options.library_dir)
     result = analyze_with(data, options, reference_set=library)
     analysis = result.to_dict()
     rgb = result.image.rgb
@@ -117,7 +95,7 @@ def matcher_distances(vectors: list[list[float]], library_dir: str | None = None
     families, with the matcher's own variance ridge: the spread the matcher itself expects
     between clusters grown alike.
     """
-    model = (library or worker_library(library_dir)).model
+    model = (library or process_library(library_dir)).model
     statistics = model.statistics
     inverse = np.linalg.inv(statistics.pooled + np.diag(statistics.floor))
     x = np.asarray(vectors, dtype=float)
@@ -146,7 +124,7 @@ class AnalysisPool:
         # spawn: a fresh interpreter per worker, never a fork of a threaded server
         return concurrent.futures.ProcessPoolExecutor(
             max_workers=self.processes, mp_context=multiprocessing.get_context("spawn"),
-            initializer=_start_worker, initargs=(self.library.directory,),
+            initializer=start_process_library, initargs=(self.library.directory,),
         )
 
     async def run(self, fn, *args: Any) -> Any:
