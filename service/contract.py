@@ -23,7 +23,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_valida
 from service import __version__
 from service.analysis import json_safe
 from service.caveats import caveat
-from service.quality import Judgement, judge_dimension, judge_parameter, plus_minus
+from service.quality import Judgement, dimension_to_report, judge_dimension, judge_parameter, plus_minus
 
 if TYPE_CHECKING:
     from service.analysis import Analysis
@@ -180,6 +180,20 @@ class Profile(_Open):
     perimeter_mm: float | None = None
 
 
+class DimensionToReport(BaseModel):
+    key: Literal["box_dimension", "mass_radius_dimension", "sandbox_dimension"] | None = Field(
+        description="the features key of the dimension to quote; null when every fit is withheld")
+    value: float | None
+    ci95: list[float | None] | None
+    status: Status
+    reason: str = Field(description="why this one, in words")
+    differences: str | None = Field(None, description="why the estimators disagree, when they do beyond their intervals")
+
+
+#: The fitted dimensions of ``features``, each judged.
+DIMENSIONS = ("box_dimension", "mass_radius_dimension", "sandbox_dimension")
+
+
 class FeatureSet(_Open):
     """Every measurement; lengths in px, with ``_mm`` twins when calibrated."""
 
@@ -194,6 +208,14 @@ class FeatureSet(_Open):
     skeleton: Skeleton
     profile: Profile
     warnings: Warnings
+    dimension_to_report: DimensionToReport | None = Field(
+        None, description="which fitted dimension to quote for this specimen, and why the estimators differ")
+
+    @model_validator(mode="after")
+    def _choose(self) -> FeatureSet:
+        chosen = dimension_to_report({key: getattr(self, key).model_dump() for key in DIMENSIONS})
+        self.dimension_to_report = None if chosen is None else DimensionToReport.model_validate(chosen)
+        return self
 
 
 class EnsembleWeight(BaseModel):
@@ -201,11 +223,17 @@ class EnsembleWeight(BaseModel):
     weight: float
 
 
-class Match(_Open):
+class Match(_Judged):
+    """One family of the reference set; ``matches`` lists every family, most probable first."""
+
     regime: str
     parameters: dict[str, float | int | str | bool]
     probability: float = Field(ge=0, le=1)
-    distance: float = Field(description="Mahalanobis distance in the matcher's feature space, at the specimen's size")
+    distance: float = Field(description="how far the specimen lies from this family's references, in units of "
+                                        "their own spread (Mahalanobis, in the matcher's feature space, at the "
+                                        "specimen's size); compare with explanation.novelty.inlier_distance "
+                                        "(typical of the references' own members) and threshold_distance (beyond "
+                                        "it, outside every reference)")
     ensembles: list[EnsembleWeight] = Field(default_factory=list)
 
 
@@ -264,6 +292,16 @@ class AnalysisModel(_Open):
     explanation: Explanation | None = None
     warnings: Warnings
 
+    @model_validator(mode="after")
+    def _judge_matches(self) -> AnalysisModel:
+        # Outside every reference the probabilities only rank the families against each other.
+        if self.in_library is False:
+            for entry in self.matches or []:
+                entry.status = "uncertain"
+                entry.reason = ("the specimen lies outside every reference: the probability ranks the families "
+                                "against each other, it is not the chance that the specimen grew so")
+        return self
+
     @field_validator("parameter_estimates")
     @classmethod
     def _judge_parameters(cls, value):
@@ -315,10 +353,6 @@ def analysis_json(analysis: Analysis) -> dict[str, Any]:
 def stored_analysis(data: dict[str, Any]) -> AnalysisModel:
     """A stored analysis dict read through the contract (older records get codes and statuses)."""
     return AnalysisModel.model_validate(data)
-
-
-#: The fitted dimensions of ``features``, each judged.
-DIMENSIONS = ("box_dimension", "mass_radius_dimension", "sandbox_dimension")
 
 
 def analysis_view(data: dict[str, Any]) -> dict[str, Any]:

@@ -138,6 +138,62 @@ def judge_parameter(name: str, value, ci95: Sequence | None, std, grid: Sequence
     return out
 
 
+#: The fitted dimensions, in the order one is preferred for reporting when all are sound, and
+#: what each measures, in words.
+ESTIMATORS = {
+    "box_dimension": "box counting covers the whole specimen, counting the boxes it touches at each box side",
+    "sandbox_dimension": "the sandbox method averages the mass in squares about many points inside the specimen",
+    "mass_radius_dimension": "the mass-radius method counts the mass within growing circles about one centre, "
+                             "so it weighs the dense core and stops at half the specimen's reach",
+}
+_NAMES = {"box_dimension": "box-counting dimension", "sandbox_dimension": "sandbox dimension",
+          "mass_radius_dimension": "mass-radius dimension"}
+
+
+def dimension_to_report(fits: dict[str, dict]) -> dict | None:
+    """Which fitted dimension to report for this specimen, and why the estimators differ.
+
+    The sound fit (status ok) first in :data:`ESTIMATORS` order (box counting is the most
+    widely reported and uses the whole specimen); without one, the uncertain fit with the
+    narrowest interval, said to be uncertain; none when every fit is withheld. ``fits`` maps
+    the keys of :data:`ESTIMATORS` to their dicts (value, ci95, fit_range_px, status, reason).
+    """
+    judged = {k: fits[k] for k in ESTIMATORS if isinstance(fits.get(k), dict)}
+    if not judged:
+        return None
+
+    def width(fit):
+        ci = fit.get("ci95") or [None, None]
+        return (ci[1] - ci[0]) if all(_finite(v) for v in ci) else math.inf
+
+    sound = [k for k in judged if judged[k].get("status") == OK]
+    usable = sound or sorted((k for k in judged if judged[k].get("status") == UNCERTAIN), key=lambda k: width(judged[k]))
+    if not usable:
+        return {"key": None, "value": None, "ci95": None, "status": WITHHELD,
+                "reason": "every estimator's fit is withheld: this picture gives no dimension to report"}
+    key = usable[0]
+    fit = judged[key]
+    lo_hi = fit.get("fit_range_px") or [None, None]
+    scales = (f" over {lo_hi[0]:.0f}-{lo_hi[1]:.0f} px" if all(_finite(v) for v in lo_hi) else "")
+    if sound:
+        reason = f"report the {_NAMES[key]}{scales}: its fit is sound"
+    else:
+        reason = (f"no estimator's fit is sound; the {_NAMES[key]}{scales} has the narrowest interval, "
+                  f"but {fit.get('reason') or 'it is uncertain'}")
+    ranges = {k: judged[k].get("ci95") for k in judged if judged[k].get("status") != WITHHELD}
+    apart = [(a, b) for a in ranges for b in ranges if a < b and all(_finite(v) for v in (ranges[a] or []) + (ranges[b] or []))
+             and len(ranges[a]) == 2 and len(ranges[b]) == 2
+             and (ranges[a][1] < ranges[b][0] or ranges[b][1] < ranges[a][0])]
+    differences = None
+    if apart:
+        names = sorted({k for pair in apart for k in pair}, key=list(ESTIMATORS).index)
+        differences = ("the estimators disagree beyond their intervals: " + "; ".join(ESTIMATORS[k] for k in names)
+                       + ". They agree only on a specimen that scales alike over every range and about every point; "
+                         "a small specimen, one drawn a few pixels thick, or a dense core make them differ")
+    return {"key": key, "value": fit.get("value"), "ci95": fit.get("ci95"), "status": fit.get("status"),
+            "reason": reason, "differences": differences}
+
+
 def plus_minus(judgement: Judgement, std) -> float | None:
     """The ``+-`` a page may print beside a parameter: the spread when it is a result, else None."""
     return float(std) if judgement.status == OK and _finite(std) else None

@@ -110,3 +110,33 @@ def test_a_parameter_of_an_unlikely_regime_says_so():
     judged = judge_parameter("sticking", 0.5, [0.17, 1.0], 0.3, _grid("dla", "sticking"), axis="log",
                              regime_probability=0.04, regime="dla")
     assert judged.status == UNCERTAIN and "0.04" in judged.reason
+
+
+def _fit(value, ci95, fit_range_px=(4.0, 64.0)) -> dict:
+    judged = judge_dimension(value, ci95, fit_range_px, 8)
+    return {"value": value, "ci95": list(ci95), "fit_range_px": list(fit_range_px), "status": judged.status,
+            "reason": judged.reason}
+
+
+def test_the_dimension_to_report_is_the_sound_one():
+    from service.quality import dimension_to_report
+
+    # Every fit sound and agreeing: box counting, the most widely reported, and no disagreement to explain.
+    agreeing = {"box_dimension": _fit(1.70, (1.65, 1.75)), "sandbox_dimension": _fit(1.72, (1.68, 1.76)),
+                "mass_radius_dimension": _fit(1.69, (1.62, 1.76))}
+    chosen = dimension_to_report(agreeing)
+    assert chosen["key"] == "box_dimension" and chosen["differences"] is None
+    # The demo DLA of issue 12: box and mass-radius fitted over less than a decade, sandbox sound.
+    demo = {"box_dimension": _fit(1.562, (1.50, 1.62), (4, 13)), "mass_radius_dimension": _fit(1.443, (1.35, 1.54), (6, 54)),
+            "sandbox_dimension": _fit(1.726, (1.68, 1.77), (7, 109))}
+    chosen = dimension_to_report(demo)
+    assert chosen["key"] == "sandbox_dimension" and chosen["value"] == 1.726
+    assert "disagree" in chosen["differences"] and "mass-radius" in chosen["differences"]
+
+
+def test_no_dimension_is_reported_when_every_fit_is_withheld():
+    from service.quality import dimension_to_report
+
+    withheld = {key: _fit(2.26, (2.2, 2.3)) for key in ("box_dimension", "sandbox_dimension", "mass_radius_dimension")}
+    chosen = dimension_to_report(withheld)
+    assert chosen["key"] is None and chosen["status"] == WITHHELD
