@@ -99,12 +99,24 @@ def default_library() -> ReferenceLibrary:
 
 
 def library_of(reference) -> ReferenceLibrary:
-    """``reference`` as a library: itself, the default for None, else a new library of a set or folder."""
+    """``reference`` as a library: itself; the default for None; a folder's new library; and for an
+    open ``ReferenceSet``, the set's own library, made on its first use and living as long as the
+    set (a caller that holds a set and ranks many specimens loads its model once, without any
+    table kept beside the objects the caller holds)."""
     if isinstance(reference, ReferenceLibrary):
         return reference
     if reference is None:
         return default_library()
-    return ReferenceLibrary(reference)
+    if isinstance(reference, (str, bytes, Path)):
+        return ReferenceLibrary(reference)
+    own = getattr(reference, "_reference_library", None)
+    if not isinstance(own, ReferenceLibrary):
+        own = ReferenceLibrary(reference)
+        try:
+            reference._reference_library = own
+        except AttributeError:  # a set type without room for it: a library per call
+            pass
+    return own
 
 
 #: The library this process opened for its work (an analysis worker's, a batch's).

@@ -26,6 +26,12 @@ def test_the_model_is_loaded_once_per_library(monkeypatch):
     assert calls[0] is library.reference_set
     # Another library of the same folder is another object with its own model: nothing hidden is shared.
     assert ReferenceLibrary(None).model is not first and len(calls) == 2
+    # A caller holding an open set gets that set's one library at every call.
+    reference_set = library.reference_set
+    assert library_of(reference_set) is library_of(reference_set)
+    library_of(reference_set).model  # noqa: B018
+    library_of(reference_set).model  # noqa: B018
+    assert len(calls) == 3
 
 
 def test_a_missing_set_fails_at_use_not_at_construction(tmp_path):
