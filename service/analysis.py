@@ -7,14 +7,10 @@ number in a report is the same number the command line prints for the same file.
 from __future__ import annotations
 
 import hashlib
-import math
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
 
-import numpy as np
-
-from service import __version__
 from service.caveats import Caveat
 from service.errors import LibraryError
 from service.features import Features, measure
@@ -67,23 +63,6 @@ class Analysis:
         from service.contract import analysis_json
 
         return analysis_json(self)
-
-
-def json_safe(value: Any) -> Any:
-    """``value`` as plain JSON: numpy scalars and arrays made Python ones, tuples made lists,
-    NaN and infinities made ``None`` (JSON has no NaN; PostgreSQL's ``json`` type and strict
-    clients refuse it)."""
-    if isinstance(value, dict):
-        return {str(k): json_safe(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [json_safe(v) for v in value]
-    if isinstance(value, np.ndarray):
-        return json_safe(value.tolist())
-    if isinstance(value, np.generic):
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
 
 
 def _calibration(image: LoadedImage, pixel_size_mm: float | None) -> dict[str, Any]:

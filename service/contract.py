@@ -16,12 +16,14 @@ Warnings are ``{"code", "text"}`` objects; ``code`` is stable snake_case (:mod:`
 
 from __future__ import annotations
 
+import math
 from typing import TYPE_CHECKING, Annotated, Any, Literal
+
+import numpy as np
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
 
 from service import __version__
-from service.analysis import json_safe
 from service.caveats import caveat
 from service.quality import Judgement, dimension_to_report, judge_dimension, judge_parameter, plus_minus
 
@@ -313,6 +315,23 @@ class AnalysisModel(_Open):
     def json_dict(self) -> dict[str, Any]:
         """Plain JSON (NaN and infinities as null)."""
         return json_safe(self.model_dump(mode="json"))
+
+
+def json_safe(value: Any) -> Any:
+    """``value`` as plain JSON: numpy scalars and arrays made Python ones, tuples made lists,
+    NaN and infinities made ``None`` (JSON has no NaN; PostgreSQL's ``json`` type and strict
+    clients refuse it)."""
+    if isinstance(value, dict):
+        return {str(k): json_safe(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [json_safe(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return json_safe(value.tolist())
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
 
 
 def _raw(analysis: Analysis) -> dict[str, Any]:

@@ -20,7 +20,6 @@ from service.match.explanation import NO_CONFIDENT_VERDICT, OUTSIDE_WORDS, build
 from service.match.library import ReferenceLibrary, library_of
 from service.match.model import CONNECTED_MARGIN, ReferenceModel, fit_model
 from service.match.parameters import parameter_estimates
-from service.match.persist import load_or_fit
 from service.match.universality import UNIVERSALITY_CLASSES, universality_class, verdict_of
 from service.match.vector import specimen_vector
 
