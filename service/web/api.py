@@ -6,6 +6,7 @@ from functools import partial
 from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Depends, File, Form, HTTPException, Query, Request, UploadFile
+from fastapi import Path as PathParam
 from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import FileResponse, Response
 from sqlalchemy import text
@@ -28,6 +29,15 @@ Kind = Literal["electrodeposit", "vessel", "coral", "root", "other"]
 _MEDIA_TYPES = {"png": "image/png", "jpg": "image/jpeg", "tif": "image/tiff", "bmp": "image/bmp",
                 "svg": "image/svg+xml"}
 
+
+#: What ``files/{name}`` serves; a specimen's ``files`` lists the names it has, with their URLs.
+FILE_NAMES_HELP = (
+    "a name listed in the specimen's `files`: `source.png|jpg|tif|bmp` (the upload, as an attachment), "
+    "`photo.png`, `overlay.png` (outline, skeleton, tips, junctions), `mask.png` (full size, 1 bit), "
+    "`thumbnail.png`, `box_counting.svg`, `lacunarity.svg`, `references.svg` (when ranked), "
+    "`levels.png` (the picture the threshold applies to), `alternative_<i>.png` (alternative readings), "
+    "and the report's other plots"
+)
 
 _UPLOAD_ERRORS: dict[int | str, dict[str, Any]] = {
     413: {"model": ErrorBody, "description": "body over RAMIFORM_MAX_UPLOAD_MB, or more pixels than allowed"},
@@ -300,7 +310,10 @@ async def export_one(
 @router.get("/specimens/{specimen_id}/files/{name}", response_class=FileResponse, responses=_NOT_FOUND,
             summary="A stored picture, plot or the uploaded image")
 async def specimen_file(
-    specimen_id: str, name: str, store: Store = Depends(get_store), lab: str | None = Depends(current_lab)
+    specimen_id: str,
+    name: Annotated[str, PathParam(description=FILE_NAMES_HELP, examples=["overlay.png"])],
+    store: Store = Depends(get_store),
+    lab: str | None = Depends(current_lab),
 ) -> FileResponse:
     record = await _found(store, specimen_id, lab)
     path = store.file_path(record, name)
