@@ -132,3 +132,17 @@ def test_the_cli_and_rest_give_one_analysis_of_one_image(client, dla_png, tiny_l
     strip = lambda body: {k: v for k, v in body.items() if k not in _IDENTITY}  # noqa: E731
     assert strip(from_cli) == strip(from_rest) == strip(stored)
     assert from_cli["matches"], "ranked against the references"
+
+    # The CSV row reads the same analysis: settings used, the dimension and its judgement, warning codes.
+    import csv
+    import io
+
+    row = next(csv.DictReader(io.StringIO(client.get(f"/api/specimens/{stored['id']}/export.csv").text)))
+    segmentation = stored["segmentation"]
+    assert row["segmentation.mode"] == segmentation["mode"]
+    assert float(row["segmentation.threshold"]) == segmentation["threshold"]
+    assert json.loads(row["segmentation.reading"]) == segmentation["reading"]
+    box = stored["features"]["box_dimension"]
+    assert float(row["features.box_dimension.value"]) == box["value"]
+    assert row["features.box_dimension.status"] == box["status"]
+    assert row["warning_codes"].split() == [w["code"] for w in stored["warnings"]]
