@@ -11,7 +11,8 @@ Each fitted dimension and parameter estimate carries a ``status`` (``ok``, ``unc
 ``withheld``) and its ``reason`` in words (:mod:`service.quality`): a value that cannot be
 a result (a dimension above 2 on a flat picture, an interval wider than the possible range,
 a spread finer than the library's grid) is flagged here, never left for a page to notice.
-Warnings are ``{"code", "text"}`` objects; ``code`` is stable snake_case (:mod:`service.caveats`).
+``features.dimension_to_report`` says which fitted dimension to quote and why the estimators
+differ. Warnings are ``{"code", "text"}`` objects; ``code`` is stable snake_case (:mod:`service.caveats`).
 """
 
 from __future__ import annotations
@@ -20,7 +21,6 @@ import math
 from typing import TYPE_CHECKING, Annotated, Any, Literal
 
 import numpy as np
-
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
 
 from service import __version__
@@ -298,7 +298,8 @@ class AnalysisModel(_Open):
     def _judge_matches(self) -> AnalysisModel:
         # Outside every reference the probabilities only rank the families against each other.
         if self.in_library is False:
-            for entry in self.matches or []:
+            named = [self.explanation.best, self.explanation.runner_up] if self.explanation else []
+            for entry in [*(self.matches or []), *(m for m in named if m is not None)]:
                 entry.status = "uncertain"
                 entry.reason = ("the specimen lies outside every reference: the probability ranks the families "
                                 "against each other, it is not the chance that the specimen grew so")

@@ -104,3 +104,15 @@ def test_the_model_names_the_stable_keys():
     for key in ("ramiform_version", "source", "image", "calibration", "segmentation", "features", "matches",
                 "in_library", "parameter_estimates", "explanation", "warnings"):
         assert key in fields
+
+
+def test_outside_every_reference_the_probabilities_are_marked_relative(placeholder_analysis):
+    data = analysis_json(placeholder_analysis)
+    best = {"regime": "dla", "parameters": {"sticking": 1.0}, "probability": 1.0, "distance": 12.0}
+    data.update(matches=[best], in_library=False, explanation={"summary": "nearest, but outside every reference",
+                                                               "best": best})
+    read = stored_analysis(data)
+    assert read.matches[0].status == "uncertain" and "outside every reference" in read.matches[0].reason
+    assert read.explanation.best.status == "uncertain"
+    data["in_library"] = True
+    assert stored_analysis(data).matches[0].status == "ok"
