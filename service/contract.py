@@ -354,6 +354,11 @@ def _raw(analysis: Analysis) -> dict[str, Any]:
         "segmentation": dict(analysis.segmentation.settings),
         "features": analysis.features.to_dict(),
     }
+    # The dataclasses' dicts hold plain text; the caveats themselves carry the codes.
+    features = analysis.features
+    out["features"]["warnings"] = list(features.warnings)
+    for key in DIMENSIONS:
+        out["features"][key]["warnings"] = list(getattr(features, key).warnings)
     if analysis.matching is not None:
         out.update({k: v for k, v in analysis.matching.items() if k != "warnings"})
     out["warnings"] = list(analysis.warnings)

@@ -91,7 +91,7 @@ class ScalingFit:
             "fit_range_px": [float(self.fit_range_px[0]), float(self.fit_range_px[1])],
             "intercept": float(self.intercept),
             "n_fit_points": int(self.n_fit_points),
-            "warnings": list(self.warnings),
+            "warnings": [str(w) for w in self.warnings],  # plain text; codes: service.contract
         }
         if pixel_size_mm is not None:
             out["sizes_mm"] = [float(s) * pixel_size_mm for s in self.sizes_px]

@@ -90,7 +90,7 @@ class LoadedImage:
             "n_pages": int(self.n_pages),
             "page": int(self.page),
             "pixel_size_mm": self.pixel_size_mm,
-            "warnings": list(self.warnings),
+            "warnings": [str(w) for w in self.warnings],  # plain text; codes: service.contract
         }
 
 

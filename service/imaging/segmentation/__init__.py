@@ -112,7 +112,7 @@ class Segmentation:
             **self.settings,
             "center_rc": [float(v) for v in self.center_rc],
             "mask_area_px": int(np.count_nonzero(self.mask)),
-            "warnings": list(self.warnings),
+            "warnings": [str(w) for w in self.warnings],  # plain text; codes: service.contract
         }
 
 
