@@ -7,14 +7,11 @@ number in a report is the same number the command line prints for the same file.
 from __future__ import annotations
 
 import hashlib
-import math
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
 
-import numpy as np
-
-from service import __version__
+from service.caveats import Caveat
 from service.errors import LibraryError
 from service.features import Features, measure
 from service.imaging import LoadedImage, Segmentation, load_image, segment
@@ -48,7 +45,8 @@ class Analysis:
     """Everything known about one specimen image after analysis.
 
     ``to_dict()`` is the analysis JSON (the contract of ``ramiform analyze --json`` and of
-    ``POST /api/specimens``); the arrays (mask, overlay, skeleton) stay on the object for
+    ``POST /api/specimens``, typed in :mod:`service.contract`); ``warnings`` holds every
+    caveat of the image, the segmentation, the measurements and the ranking. The arrays (mask, overlay, skeleton) stay on the object for
     rendering overlays and are not serialised.
     """
 
@@ -61,42 +59,10 @@ class Analysis:
     warnings: tuple[str, ...] = field(default_factory=tuple)
 
     def to_dict(self) -> dict[str, Any]:
-        out: dict[str, Any] = {
-            "ramiform_version": __version__,
-            "source": dict(self.source),
-            "image": {
-                "width_px": int(self.image.gray.shape[1]),
-                "height_px": int(self.image.gray.shape[0]),
-                "format": self.image.format,
-                "bit_depth": int(self.image.bit_depth),
-                "n_pages": int(self.image.n_pages),
-                "page": int(self.image.page),
-            },
-            "calibration": dict(self.calibration),
-            "segmentation": dict(self.segmentation.settings),
-            "features": self.features.to_dict(),
-        }
-        if self.matching is not None:
-            out.update(self.matching)
-        out["warnings"] = list(self.warnings)
-        return json_safe(out)
+        """The analysis JSON, built by the contract (:func:`service.contract.analysis_json`)."""
+        from service.contract import analysis_json
 
-
-def json_safe(value: Any) -> Any:
-    """``value`` as plain JSON: numpy scalars and arrays made Python ones, tuples made lists,
-    NaN and infinities made ``None`` (JSON has no NaN; PostgreSQL's ``json`` type and strict
-    clients refuse it)."""
-    if isinstance(value, dict):
-        return {str(k): json_safe(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [json_safe(v) for v in value]
-    if isinstance(value, np.ndarray):
-        return json_safe(value.tolist())
-    if isinstance(value, np.generic):
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
+        return analysis_json(self)
 
 
 def _calibration(image: LoadedImage, pixel_size_mm: float | None) -> dict[str, Any]:
@@ -161,9 +127,11 @@ def analyze(
     seg = segment(image, mode=mode, polarity=polarity, threshold=threshold, roi=roi, exclude=exclude,
                   lighting=lighting)
     features = measure(seg.mask, pixel_size_mm=calibration["pixel_size_mm"], center_rc=seg.center_rc)
-    warnings = list(seg.warnings) + [w for w in features.warnings if w not in seg.warnings]
+    warnings = list(image.warnings) + list(seg.warnings)
+    warnings += [w for w in features.warnings if w not in warnings]
     if not calibration["calibrated"]:
-        warnings.append("not calibrated: lengths are in pixels only (give a pixel size in mm to get mm)")
+        warnings.append(Caveat("not_calibrated",
+                               "not calibrated: lengths are in pixels only (give a pixel size in mm to get mm)"))
     matching = None
     if match:
         from service.match import match_features
@@ -172,11 +140,12 @@ def analyze(
             matching = match_features(features, reference_set=reference_set, mask=seg.mask)
         except LibraryError as exc:
             # A missing or damaged reference set must not cost the user the measurements.
-            warnings.append(f"not ranked against the reference library: {exc}")
+            warnings.append(Caveat("not_ranked", f"not ranked against the reference library: {exc}"))
         else:
             warnings.extend(matching.pop("warnings", []))
             if seg.confidence < LOW_CONFIDENCE:
-                warnings.append("the ranking rests on an uncertain mask: check the segmentation first")
+                warnings.append(Caveat("ranking_on_uncertain_mask",
+                                       "the ranking rests on an uncertain mask: check the segmentation first"))
     source_info = {
         "filename": filename,
         "sha256": hashlib.sha256(data).hexdigest(),

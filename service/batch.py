@@ -24,13 +24,11 @@ def analyze_path(path: str, options: AnalysisOptions) -> dict[str, Any]:
     """Analyse one file; never raises for a bad image, answers an error object instead."""
     from service.analysis import analyze_with
 
-    try:
-        reference_set = None
-        if options.library_dir is not None:
-            from service.library import load_reference_set
+    from service.match.library import process_library
 
-            reference_set = load_reference_set(options.library_dir)
-        result = analyze_with(path, options, reference_set=reference_set)
+    try:
+        # The library this process opened (the pool's initializer), or opened now and kept.
+        result = analyze_with(path, options, reference_set=process_library(options.library_dir))
         return {"path": path, **result.to_dict()}
     except (RamiformError, ValueError, OSError) as exc:
         return {"path": path, "error": {"type": type(exc).__name__, "detail": str(exc)}}
@@ -58,7 +56,10 @@ def analyze_many(
     if workers == 1 or len(paths) == 1:
         yield from map(job, paths)
         return
-    with ProcessPoolExecutor(max_workers=min(workers, len(paths))) as pool:
+    from service.match.library import start_process_library
+
+    with ProcessPoolExecutor(max_workers=min(workers, len(paths)), initializer=start_process_library,
+                             initargs=(options.library_dir,)) as pool:
         yield from pool.map(job, paths)
 
 
@@ -125,7 +126,7 @@ def write_results(results: Iterable[dict[str, Any]], *, as_json: bool, out: Text
                 out.write("    conditions: " + "; ".join(
                     f"{name} {_condition_words(c)}" for name, c in result["conditions"].items()) + "\n")
             for warning in result.get("warnings", []):
-                out.write(f"    warning: {warning}\n")
+                out.write(f"    warning: {warning['text']} [{warning['code']}]\n")
         out.flush()
     return failures
 

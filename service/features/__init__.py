@@ -94,7 +94,7 @@ class Features:
             "lacunarity": lac,
             "skeleton": self.skeleton.to_dict(s),
             "profile": self.profile.to_dict(s),
-            "warnings": list(self.warnings),
+            "warnings": [str(w) for w in self.warnings],  # plain text; codes: service.contract
         }
         if s is not None:
             out["branch_width_mm"] = self.branch_width_px * s

@@ -14,6 +14,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import special
 
+from service.caveats import Caveat
 from service.errors import SpecimenError
 from service.features._common import (
     as_specimen_mask,
@@ -90,7 +91,7 @@ class ScalingFit:
             "fit_range_px": [float(self.fit_range_px[0]), float(self.fit_range_px[1])],
             "intercept": float(self.intercept),
             "n_fit_points": int(self.n_fit_points),
-            "warnings": list(self.warnings),
+            "warnings": [str(w) for w in self.warnings],  # plain text; codes: service.contract
         }
         if pixel_size_mm is not None:
             out["sizes_mm"] = [float(s) * pixel_size_mm for s in self.sizes_px]
@@ -104,6 +105,14 @@ def geometric_sizes(smallest: float, largest: float, ratio: float = SIZE_RATIO) 
         return np.array([int(round(smallest))])
     n = int(np.floor(np.log(largest / smallest) / np.log(ratio))) + 1
     return np.unique(np.round(smallest * ratio ** np.arange(n)).astype(np.int64))
+
+
+#: The analysis JSON's key of each fit, which starts the codes of its caveats.
+_SUBJECTS = {"box counting": "box_dimension", "mass-radius": "mass_radius_dimension", "sandbox": "sandbox_dimension"}
+
+
+def _subject(what: str) -> str:
+    return _SUBJECTS.get(what, "dimension")
 
 
 def scaling_range(
@@ -122,19 +131,21 @@ def scaling_range(
     if compact:
         upper = max(MIN_FIT_SPAN, min(upper, width_px / COMPACT_UPPER_WIDTHS))
         lower = 1.0
-        warnings.append(
+        warnings.append(Caveat(
+            f"{_subject(what)}_compact",
             f"{what}: the specimen is compact (branch width {width_px:.0f} px); "
-            "it was measured below its width, where it fills the plane"
-        )
+            "it was measured below its width, where it fills the plane",
+        ))
     else:
         lower = max(MIN_BOX_PX, LOWER_CUTOFF_WIDTHS * width_px)
         if upper / lower < MIN_FIT_SPAN:
             lower = max(1.0, upper / MIN_FIT_SPAN)
     if upper / lower < MIN_TRUSTED_SPAN:
-        warnings.append(
+        warnings.append(Caveat(
+            f"{_subject(what)}_short_range",
             f"{what}: the scaling range {lower:.1f}-{upper:.1f} px spans less than one decade; "
-            "the dimension is uncertain"
-        )
+            "the dimension is uncertain",
+        ))
     return lower, upper, warnings
 
 
@@ -155,7 +166,7 @@ def _fit_mask(scales: np.ndarray, lower: float, upper: float, what: str, warning
         nearest = np.argsort(np.abs(np.log(scales / np.sqrt(lower * upper))))[:3]
         in_fit = np.zeros(scales.size, dtype=bool)
         in_fit[nearest] = True
-        warnings.append(f"{what}: fewer than three scales in the scaling range")
+        warnings.append(Caveat(f"{_subject(what)}_few_scales", f"{what}: fewer than three scales in the scaling range"))
     return in_fit
 
 

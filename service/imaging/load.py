@@ -17,6 +17,7 @@ from typing import Any
 import numpy as np
 from PIL import BmpImagePlugin, Image, ImageOps, JpegImagePlugin, PngImagePlugin
 
+from service.caveats import Caveat
 from service.errors import ImageTooLargeError, RamiformError, SpecimenError, UnsupportedFormatError
 
 __all__ = ["ACCEPTED_FORMATS", "DEFAULT_MAX_PIXELS", "MIN_SIDE_PX", "LoadedImage", "load_image", "sniff_format"]
@@ -89,7 +90,7 @@ class LoadedImage:
             "n_pages": int(self.n_pages),
             "page": int(self.page),
             "pixel_size_mm": self.pixel_size_mm,
-            "warnings": list(self.warnings),
+            "warnings": [str(w) for w in self.warnings],  # plain text; codes: service.contract
         }
 
 
@@ -276,7 +277,7 @@ def _from_uint8(arr: np.ndarray, kind: str, bit_depth: int, notes: list[str],
     if arr.ndim == 3 and arr.shape[2] in (2, 4):
         colour, alpha = arr[:, :, :-1], arr[:, :, -1]
         if alpha.min() < 255:
-            notes.append("transparent pixels were composited over white")
+            notes.append(Caveat("alpha_composited", "transparent pixels were composited over white"))
             a = alpha.astype(np.float32)[:, :, None] / np.float32(255.0)
             arr = (colour * a + np.float32(255.0) * (1.0 - a) + 0.5).astype(np.uint8)
         else:
@@ -407,7 +408,7 @@ def _tiff_array_to_image(arr: np.ndarray, photometric: int, tp: Any, bits: int, 
     if scaled.ndim == 3 and scaled.shape[2] in (2, 4):
         colour, alpha = scaled[:, :, :-1], scaled[:, :, -1:]
         if alpha.min() < 1.0:
-            notes.append("transparent pixels were composited over white")
+            notes.append(Caveat("alpha_composited", "transparent pixels were composited over white"))
             colour = colour * alpha + (1.0 - alpha)
         scaled = colour[:, :, 0] if colour.shape[2] == 1 else colour
     if scaled.ndim == 2:
@@ -440,9 +441,11 @@ def _tiff_pixel_size_mm(tp: Any, notes: list[str]) -> float | None:
     if mm_per_unit is None or xres <= 0 or yres <= 0:
         return None
     if abs(xres - yres) > 1e-3 * max(xres, yres):
-        notes.append(
-            f"pixels are not square (XResolution {xres:g}, YResolution {yres:g}); the horizontal pixel size is used"
-        )
+        notes.append(Caveat(
+            "pixels_not_square",
+            f"pixels are not square (XResolution {xres:g}, YResolution {yres:g}); the horizontal pixel size is used",
+        ))
     if unit == 2 and any(abs(xres - d) < 1e-6 for d in _PLACEHOLDER_DPI):
-        notes.append(f"resolution {xres:g} dpi is a common software default and may not be a calibration")
+        notes.append(Caveat("resolution_placeholder",
+                             f"resolution {xres:g} dpi is a common software default and may not be a calibration"))
     return mm_per_unit / xres

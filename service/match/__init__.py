@@ -5,6 +5,7 @@
 """
 
 from service.match.cache import ReferenceTable, build_feature_cache, load_reference_table
+from service.match.library import ReferenceLibrary, default_library, library_of
 from service.match.model import ReferenceModel, families_of, fit_model, held_out_scores
 from service.match.normalise import NormalisedMask, normalise
 from service.match.nuisance import DrawingStyle, draw_cluster, drawing_styles, nuisance_grid
@@ -19,16 +20,19 @@ __all__ = [
     "LatticeVector",
     "MatchResult",
     "NormalisedMask",
+    "ReferenceLibrary",
     "ReferenceModel",
     "ReferenceTable",
     "UNIVERSALITY_CLASSES",
     "build_feature_cache",
+    "default_library",
     "draw_cluster",
     "drawing_styles",
     "families_of",
     "fit_model",
     "held_out_scores",
     "lattice_features",
+    "library_of",
     "load_reference_table",
     "match",
     "match_features",

@@ -8,23 +8,22 @@ said in :mod:`service.match.universality`; the explanation is built in
 
 from __future__ import annotations
 
-import threading
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Any
 
 import numpy as np
 
+from service.caveats import Caveat
 from service.errors import SpecimenError
-from service.match.cache import _as_reference_set, cache_discrepancy, load_reference_table
+from service.match.cache import cache_discrepancy, load_reference_table
 from service.match.explanation import NO_CONFIDENT_VERDICT, OUTSIDE_WORDS, build_explanation
+from service.match.library import ReferenceLibrary, library_of
 from service.match.model import CONNECTED_MARGIN, ReferenceModel, fit_model
 from service.match.parameters import parameter_estimates
-from service.match.persist import load_or_fit
 from service.match.universality import UNIVERSALITY_CLASSES, universality_class, verdict_of
 from service.match.vector import specimen_vector
 
-__all__ = ["MatchResult", "UNIVERSALITY_CLASSES", "match", "match_features", "reference_model", "universality_class"]
+__all__ = ["MatchResult", "ReferenceLibrary", "UNIVERSALITY_CLASSES", "match", "match_features", "reference_model", "universality_class"]
 
 #: Cached reference vectors may differ from fresh ones by rounding only.
 CACHE_TOLERANCE = 1e-9
@@ -34,11 +33,6 @@ CACHE_TOLERANCE = 1e-9
 ABSTAIN_Z = 1.96
 #: ... and whatever that spread, a verdict needs at least this probability.
 MIN_VERDICT_PROBABILITY = 0.5
-
-_MODELS: dict[tuple[str, str], ReferenceModel] = {}
-_DEFAULT_SET: list = []
-_LOCK = threading.Lock()
-
 
 @dataclass(frozen=True)
 class MatchResult:
@@ -80,28 +74,14 @@ class MatchResult:
         }
 
 
-def _resolve(reference_set):
-    if reference_set is not None:
-        return _as_reference_set(reference_set)
-    with _LOCK:
-        if not _DEFAULT_SET:
-            _DEFAULT_SET.append(_as_reference_set(None))
-        return _DEFAULT_SET[0]
-
-
 def reference_model(reference_set=None) -> ReferenceModel:
     """The fitted and calibrated model of a reference set (default: the bundled one).
 
-    Read from the set's ``cache/`` folder when stored there for this code and these
-    clusters (``service.match.persist``), else fitted (seconds) and stored; then kept in
-    memory, keyed by the set's folder and fingerprint, so a rebuilt set is refitted.
+    ``reference_set`` may be a :class:`ReferenceLibrary` (its model, loaded once), a
+    ``ReferenceSet`` or a folder (read from the set's ``cache/`` folder when stored there
+    for this code and these clusters, ``service.match.persist``, else fitted and stored).
     """
-    reference_set = _resolve(reference_set)
-    key = (str(Path(reference_set.path).resolve()), reference_set.fingerprint)
-    with _LOCK:
-        if key not in _MODELS:
-            _MODELS[key] = load_or_fit(reference_set, lambda: fit_reference_model(reference_set))
-        return _MODELS[key]
+    return library_of(reference_set).model
 
 
 def fit_reference_model(reference_set) -> ReferenceModel:
@@ -171,8 +151,9 @@ def match(features, *, reference_set=None, mask: np.ndarray | None = None) -> Ma
     features : Features
         The specimen's measurements (``service.features.measure``); its ``mask`` is what the
         matcher normalises and compares, unless ``mask`` is given.
-    reference_set : ReferenceSet or path, optional
-        Default: the bundled set (``service.library.load_reference_set()``).
+    reference_set : ReferenceLibrary, ReferenceSet or path, optional
+        What to rank against; a :class:`ReferenceLibrary` made once per process keeps its
+        model loaded. Default: the bundled set's library (``default_library()``).
     mask : (H, W) bool ndarray, optional
         The specimen mask, when ``features`` does not carry it.
 
@@ -202,8 +183,8 @@ def match(features, *, reference_set=None, mask: np.ndarray | None = None) -> Ma
         mask = getattr(features, "mask", None)
     if mask is None:
         raise ValueError("match_features needs the specimen mask: pass mask= or Features carrying .mask")
-    reference_set = _resolve(reference_set)
-    model = reference_model(reference_set)
+    library = library_of(reference_set)
+    reference_set, model = library.reference_set, library.model
     try:
         vector, normalisation = specimen_vector(mask)
     except SpecimenError as exc:
@@ -212,7 +193,7 @@ def match(features, *, reference_set=None, mask: np.ndarray | None = None) -> Ma
             in_library=False,
             parameter_estimates={},
             explanation={"summary": f"not compared with the references: {exc}"},
-            warnings=(f"matching: {exc}",),
+            warnings=(Caveat("not_compared", f"matching: {exc}"),),
         )
     values, log_sites = vector.values, float(np.log(vector.n_sites))
     evaluation = model.evaluate(values, log_sites)
@@ -227,31 +208,35 @@ def match(features, *, reference_set=None, mask: np.ndarray | None = None) -> Ma
 
     warnings: list[str] = []
     if model.calibration["cache_discrepancy"] > CACHE_TOLERANCE:
-        warnings.append(
+        warnings.append(Caveat(
+            "reference_cache_stale",
             "matching: the reference feature cache was computed by other measurement code than this one "
             f"(difference {model.calibration['cache_discrepancy']:.3g}); rebuild it with "
-            "service.match.build_feature_cache"
-        )
+            "service.match.build_feature_cache",
+        ))
     lo, hi = model.size_range
     if not lo / 1.5 <= vector.n_sites <= hi * 1.5:
-        warnings.append(
+        warnings.append(Caveat(
+            "outside_library_sizes",
             f"matching: the specimen spans {vector.n_sites} branch widths squared, outside the library's sizes "
-            f"{lo:.0f}-{hi:.0f}; references are compared at their nearest size"
-        )
+            f"{lo:.0f}-{hi:.0f}; references are compared at their nearest size",
+        ))
     if not connected:
-        warnings.append(
+        warnings.append(Caveat(
+            "specimen_in_pieces",
             f"matching: the specimen is in pieces (the largest holds {vector.connected_fraction:.0%} of it), "
-            f"while every reference is one aggregate (at least {model.min_connected_fraction:.0%})"
-        )
+            f"while every reference is one aggregate (at least {model.min_connected_fraction:.0%})",
+        ))
     elif not in_library:
-        warnings.append(
+        warnings.append(Caveat(
+            "outside_library",
             f"matching: {OUTSIDE_WORDS} (nearest Mahalanobis distance {np.sqrt(d2[nearest]):.1f} > "
             f"{np.sqrt(model.novelty_d2):.1f}); the probabilities are tempered by that distance and the ranking "
-            "is only relative"
-        )
+            "is only relative",
+        ))
     decided = verdict(model, probability, in_library)
     if not decided["confident"] and in_library:
-        warnings.append(f"matching: {NO_CONFIDENT_VERDICT}: {decided['reason']}")
+        warnings.append(Caveat("no_confident_verdict", f"matching: {NO_CONFIDENT_VERDICT}: {decided['reason']}"))
     # Within a regime, where a parameter lies is read from the distance-tempered posterior; the
     # equal-odds mixing beyond the novelty threshold (doubt about the family) widens its
     # interval but does not drag the estimate towards the middle of the grid.

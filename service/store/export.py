@@ -8,6 +8,7 @@ import json
 from collections.abc import Iterable, Iterator
 from typing import Any
 
+from service.contract import analysis_view
 from service.store.store import SpecimenRecord
 
 _FIXED = ("id", "label", "kind", "filename", "created_at", "sha256")
@@ -28,9 +29,15 @@ def flatten(prefix: str, value: Any) -> Iterator[tuple[str, Any]]:
         yield prefix, value
 
 
+#: Segmentation settings that tell re-runs of one image apart (what was used, not how it was found).
 def specimen_row(record: SpecimenRecord) -> dict[str, Any]:
-    """The flat CSV row of one specimen: identity, calibration, features, best match."""
-    analysis = record.analysis
+    """The flat CSV row of one specimen: identity, calibration, segmentation settings used,
+    features (each fitted dimension with its ``status`` and ``reason``), best match, warnings.
+
+    The stored analysis is read through the contract (:func:`service.contract.stored_analysis`),
+    so a number and its judgement are those of the API and the pages.
+    """
+    analysis = analysis_view(record.analysis)
     row: dict[str, Any] = {
         "id": record.id,
         "label": record.label,
@@ -51,8 +58,12 @@ def specimen_row(record: SpecimenRecord) -> dict[str, Any]:
         row["best_match.probability"] = best.get("probability")
     if "in_library" in analysis:
         row["in_library"] = analysis["in_library"]
-    row["warnings"] = " | ".join(
-        str(w.get("text", "")) if isinstance(w, dict) else str(w) for w in analysis.get("warnings", []))
+    verdict = ((analysis.get("explanation") or {}).get("verdict") or {}).get("name")
+    if verdict is not None:
+        row["verdict"] = verdict
+    warnings = analysis.get("warnings", [])
+    row["warnings"] = " | ".join(w["text"] for w in warnings)
+    row["warning_codes"] = " ".join(w["code"] for w in warnings)
     return row
 
 

@@ -6,16 +6,19 @@ from functools import partial
 from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Depends, File, Form, HTTPException, Query, Request, UploadFile
+from fastapi import Path as PathParam
 from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import FileResponse, Response
-from pydantic import BaseModel, ConfigDict, Field
 from sqlalchemy import text
 
 from service import __version__
+from service.contract import (ErrorBody, Health, HistoryEntry, ReferenceCatalogue, Specimen, SpecimenPage,
+                              SpecimenSummary, analysis_view, stored_analysis)
+from service.match.library import ReferenceLibrary
 from service.store import Reading, SpecimenRecord, Store, StudyStore, specimens_csv
 from service.study import Condition, conditions_to_dict, parse_conditions_text
 from service.web import readings
-from service.web.deps import current_lab, get_pool, get_settings, get_store
+from service.web.deps import current_lab, get_library, get_pool, get_settings, get_store
 from service.web.jobs import AnalysisOptions, AnalysisPool, run_analysis
 from service.web.readings import Reanalysis
 from service.web.references import reference_set_or_error
@@ -28,9 +31,14 @@ _MEDIA_TYPES = {"png": "image/png", "jpg": "image/jpeg", "tif": "image/tiff", "b
                 "svg": "image/svg+xml"}
 
 
-class ErrorBody(BaseModel):
-    detail: str = Field(description="what was wrong, in words")
-
+#: What ``files/{name}`` serves; a specimen's ``files`` lists the names it has, with their URLs.
+FILE_NAMES_HELP = (
+    "a name listed in the specimen's `files`: `source.png|jpg|tif|bmp` (the upload, as an attachment), "
+    "`photo.png`, `overlay.png` (outline, skeleton, tips, junctions), `mask.png` (full size, 1 bit), "
+    "`thumbnail.png`, `box_counting.svg`, `lacunarity.svg`, `references.svg` (when ranked), "
+    "`levels.png` (the picture the threshold applies to), `alternative_<i>.png` (alternative readings), "
+    "and the report's other plots"
+)
 
 _UPLOAD_ERRORS: dict[int | str, dict[str, Any]] = {
     413: {"model": ErrorBody, "description": "body over RAMIFORM_MAX_UPLOAD_MB, or more pixels than allowed"},
@@ -47,56 +55,6 @@ _REANALYSIS_ERRORS: dict[int | str, dict[str, Any]] = {
 }
 
 
-class SpecimenSummary(BaseModel):
-    id: str
-    label: str | None
-    kind: str | None
-    filename: str | None
-    created_at: str
-    report_url: str
-    thumbnail_url: str
-    box_dimension: float | None = Field(None, description="features.box_dimension.value")
-    box_dimension_ci95: list[float | None] | None = None
-    tips: int | None = None
-    junctions: int | None = None
-    best_regime: str | None = None
-    best_probability: float | None = None
-    n_warnings: int = 0
-
-
-class SpecimenPage(BaseModel):
-    total: int
-    limit: int
-    offset: int
-    items: list[SpecimenSummary]
-
-
-class Specimen(BaseModel):
-    """The analysis object of ``ramiform analyze --json`` plus the stored specimen's identity."""
-
-    model_config = ConfigDict(extra="allow")
-
-    id: str = Field(description="random URL-safe id, 144 bits")
-    report_url: str
-    label: str | None
-    kind: str | None
-    created_at: str
-    files: dict[str, str] = Field(description="stored file name -> URL")
-    ramiform_version: str
-    source: dict[str, Any]
-    image: dict[str, Any]
-    calibration: dict[str, Any]
-    segmentation: dict[str, Any]
-    features: dict[str, Any]
-    matches: list[dict[str, Any]] | None = None
-    in_library: Any = None
-    parameter_estimates: Any = None
-    explanation: Any = None
-    warnings: list[str]
-    history: list[dict[str, Any]] | None = Field(
-        None, description="the readings of this specimen, oldest first: 1 is the upload, then each re-measurement")
-
-
 def file_url(record: SpecimenRecord, name: str) -> str:
     """The file's URL; a file of a later reading carries its reading folder, so the browser
     (which may keep a file for a year) never shows a replaced picture under a new analysis."""
@@ -109,9 +67,10 @@ def report_url(record: SpecimenRecord) -> str:
     return f"/specimens/{record.id}"
 
 
-def specimen_body(record: SpecimenRecord, history: list[Reading] | None = None) -> dict[str, Any]:
+def specimen_body(record: SpecimenRecord, history: list[Reading] | None = None) -> Specimen:
+    """The stored analysis read through the contract, with the specimen's identity and history."""
     body = {
-        **record.analysis,
+        **stored_analysis(record.analysis).model_dump(),
         "id": record.id,
         "report_url": report_url(record),
         "label": record.label,
@@ -121,15 +80,17 @@ def specimen_body(record: SpecimenRecord, history: list[Reading] | None = None) 
     }
     if history is not None:
         body["history"] = [reading.to_dict() for reading in history]
-    return body
+    return Specimen.model_validate(body)
 
 
 def summary(record: SpecimenRecord) -> dict[str, Any]:
-    """Key numbers of one specimen for lists (API and page)."""
-    features = record.analysis.get("features", {})
+    """Key numbers of one specimen for lists (API and page), read through the contract."""
+    analysis = analysis_view(record.analysis)
+    features = analysis.get("features", {})
     box = features.get("box_dimension", {})
     skeleton = features.get("skeleton", {})
-    best = (record.analysis.get("matches") or [{}])[0]
+    best = (analysis.get("matches") or [{}])[0]
+    verdict = ((analysis.get("explanation") or {}).get("verdict") or {}).get("name")
     return {
         "id": record.id,
         "label": record.label,
@@ -140,11 +101,14 @@ def summary(record: SpecimenRecord) -> dict[str, Any]:
         "thumbnail_url": file_url(record, "thumbnail.png"),
         "box_dimension": box.get("value"),
         "box_dimension_ci95": box.get("ci95"),
+        "box_dimension_status": box.get("status"),
         "tips": skeleton.get("tips"),
         "junctions": skeleton.get("junctions"),
         "best_regime": best.get("regime"),
         "best_probability": best.get("probability"),
-        "n_warnings": len(record.analysis.get("warnings", [])),
+        "in_library": analysis.get("in_library"),
+        "verdict": verdict,
+        "n_warnings": len(analysis.get("warnings", [])),
     }
 
 
@@ -213,7 +177,7 @@ async def create_specimen(
     store: Store = Depends(get_store),
     pool: AnalysisPool = Depends(get_pool),
     lab: str | None = Depends(current_lab),
-) -> dict[str, Any]:
+) -> Specimen:
     """Analyse the image and store it; answers 201 only once record and files are on disk."""
     if label is not None and not label.isprintable():  # PostgreSQL text cannot hold NUL, for one
         raise HTTPException(422, "label must be plain text on one line (no control characters)")
@@ -227,7 +191,7 @@ async def create_specimen(
         max_pixels=settings.max_pixels,
     )
     try:
-        result = await pool.run(run_analysis, data, options)
+        result = await pool.run_with_library(run_analysis, data, options)
     except ValueError as exc:  # the pipeline's message says what was wrong with the input
         raise HTTPException(422, str(exc)) from exc
     asked = readings.upload_overrides(mode=mode, polarity=polarity, threshold=threshold, roi=options.roi)
@@ -249,9 +213,9 @@ async def list_specimens(
     label: Annotated[str | None, Query(max_length=200, description="only specimens with this label")] = None,
     store: Store = Depends(get_store),
     lab: str | None = Depends(current_lab),
-) -> dict[str, Any]:
+) -> SpecimenPage:
     records, total = await run_in_threadpool(store.list, owner=lab, label=label, limit=limit, offset=offset)
-    return {"total": total, "limit": limit, "offset": offset, "items": [summary(r) for r in records]}
+    return SpecimenPage(total=total, limit=limit, offset=offset, items=[SpecimenSummary(**summary(r)) for r in records])
 
 
 # Declared before /specimens/{specimen_id} so that "export.csv" is not taken for an id.
@@ -269,20 +233,20 @@ async def export_all(
             summary="One specimen's analysis")
 async def read_specimen(
     specimen_id: str, store: Store = Depends(get_store), lab: str | None = Depends(current_lab)
-) -> dict[str, Any]:
+) -> Specimen:
     record = await _found(store, specimen_id, lab)
     return specimen_body(record, await run_in_threadpool(store.history, specimen_id, owner=lab))
 
 
-@router.get("/specimens/{specimen_id}/history", responses=_NOT_FOUND,
+@router.get("/specimens/{specimen_id}/history", response_model=list[HistoryEntry], responses=_NOT_FOUND,
             summary="The readings of one specimen, oldest first")
 async def specimen_history(
     specimen_id: str, store: Store = Depends(get_store), lab: str | None = Depends(current_lab)
-) -> list[dict[str, Any]]:
+) -> list[HistoryEntry]:
     history = await run_in_threadpool(store.history, specimen_id, owner=lab)
     if history is None:
         raise HTTPException(404, f"no specimen {specimen_id!r}")
-    return [reading.to_dict() for reading in history]
+    return [HistoryEntry.model_validate(reading.to_dict()) for reading in history]
 
 
 @router.post("/specimens/{specimen_id}/reanalyze", response_model=Specimen, responses=_REANALYSIS_ERRORS,
@@ -294,7 +258,7 @@ async def reanalyze_specimen(
     store: Store = Depends(get_store),
     pool: AnalysisPool = Depends(get_pool),
     lab: str | None = Depends(current_lab),
-) -> dict[str, Any]:
+) -> Specimen:
     """Segment and measure the stored original again with the overrides given.
 
     Fields left out keep what the current reading asked for; ``null`` returns a field to the
@@ -326,7 +290,7 @@ async def reanalyze_specimen(
         **readings.options_fields(requested),
     )
     try:
-        result = await pool.run(run_analysis, data, options)
+        result = await pool.run_with_library(run_analysis, data, options)
     except ValueError as exc:
         raise HTTPException(422, str(exc)) from exc
     files = {name: content for name, content in result["files"].items() if name != source}
@@ -362,7 +326,10 @@ async def export_one(
 @router.get("/specimens/{specimen_id}/files/{name}", response_class=FileResponse, responses=_NOT_FOUND,
             summary="A stored picture, plot or the uploaded image")
 async def specimen_file(
-    specimen_id: str, name: str, store: Store = Depends(get_store), lab: str | None = Depends(current_lab)
+    specimen_id: str,
+    name: Annotated[str, PathParam(description=FILE_NAMES_HELP, examples=["overlay.png"])],
+    store: Store = Depends(get_store),
+    lab: str | None = Depends(current_lab),
 ) -> FileResponse:
     record = await _found(store, specimen_id, lab)
     path = store.file_path(record, name)
@@ -376,11 +343,12 @@ async def specimen_file(
     return FileResponse(path, media_type=media_type, headers=headers)
 
 
-@router.get("/references", summary="The reference set: regimes, parameters, thumbnails")
-async def list_references(settings: Settings = Depends(get_settings),
-                          lab: str | None = Depends(current_lab)) -> dict[str, Any]:
-    references = reference_set_or_error(settings)
-    return {
+@router.get("/references", response_model=ReferenceCatalogue,
+            summary="The reference set: regimes, parameters, thumbnails")
+async def list_references(library: ReferenceLibrary = Depends(get_library),
+                          lab: str | None = Depends(current_lab)) -> ReferenceCatalogue:
+    references = reference_set_or_error(library)
+    return ReferenceCatalogue.model_validate({
         "preset": references.preset,
         "regimes": sorted({e.regime for e in references.ensembles}),
         "ensembles": [
@@ -394,23 +362,23 @@ async def list_references(settings: Settings = Depends(get_settings),
             }
             for e in references.ensembles
         ],
-    }
+    })
 
 
 @router.get("/references/{ensemble_id}/thumbnail.png", response_class=Response,
             summary="Thumbnail of one reference ensemble")
-async def reference_thumbnail(ensemble_id: str, settings: Settings = Depends(get_settings),
+async def reference_thumbnail(ensemble_id: str, library: ReferenceLibrary = Depends(get_library),
                               lab: str | None = Depends(current_lab)) -> Response:
-    references = reference_set_or_error(settings)
+    references = reference_set_or_error(library)
     if ensemble_id not in {e.id for e in references.ensembles}:
         raise HTTPException(404, f"no reference ensemble {ensemble_id!r}")
     return Response(references.thumbnail_bytes(ensemble_id), media_type="image/png",
                     headers={"Cache-Control": "public, max-age=86400"})
 
 
-@router.get("/health", summary="Liveness and readiness")
+@router.get("/health", response_model=Health, summary="Liveness and readiness")
 async def health(request: Request, store: Store = Depends(get_store),
-                 settings: Settings = Depends(get_settings)) -> dict[str, Any]:
+                 settings: Settings = Depends(get_settings)) -> Health:
     def ping() -> None:
         with store.engine.connect() as conn:
             conn.execute(text("SELECT 1"))
@@ -419,5 +387,4 @@ async def health(request: Request, store: Store = Depends(get_store),
         await run_in_threadpool(ping)
     except Exception as exc:
         raise HTTPException(503, f"database unreachable: {type(exc).__name__}") from exc
-    return {"status": "ok", "version": __version__, "workers": settings.worker_count,
-            "database": store.engine.dialect.name}
+    return Health(status="ok", version=__version__, workers=settings.worker_count, database=store.engine.dialect.name)

@@ -11,6 +11,7 @@ from fastapi import FastAPI
 from fastapi.staticfiles import StaticFiles
 
 from service import __version__
+from service.match.library import ReferenceLibrary
 from service.store import Store
 from service.web import api, auth, films, pages, studies
 from service.web.errors import install_error_handlers
@@ -42,7 +43,10 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         if unused:
             log.info("removed %d reading folders that no record names (left by an interrupted re-measurement)",
                      len(unused))
-        app.state.pool = AnalysisPool(settings.worker_count)
+        # One reference library per process: the routes get it from here, each analysis
+        # process opens its own once (the pool's initializer).
+        app.state.library = ReferenceLibrary(str(settings.library_dir) if settings.library_dir else None)
+        app.state.pool = AnalysisPool(settings.worker_count, app.state.library)
         log.info("ramiform %s: database %s, data folder %s, %d analysis processes", __version__,
                  app.state.store.engine.dialect.name, settings.data_dir.resolve(), settings.worker_count)
         try:
@@ -70,9 +74,10 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.add_middleware(NulGuardMiddleware)  # 400 before a NUL in a URL reaches the database
     app.add_middleware(SecurityHeadersMiddleware)  # CSP, nosniff, no framing, on every answer
     app.mount("/static", StaticFiles(directory=STATIC_DIR), name="static")
-    app.include_router(api.router)
-    app.include_router(studies.router)
-    app.include_router(films.router)
-    app.include_router(pages.router)
-    app.include_router(auth.router)
+    for router in ROUTERS:
+        app.include_router(router)
     return app
+
+
+#: Every router the app serves, in the order they are matched; a new module adds its router here.
+ROUTERS = (api.router, studies.router, films.router, pages.router, auth.router)

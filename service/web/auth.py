@@ -9,78 +9,26 @@ so changing or removing a lab's key ends that lab's sessions. Keys are never log
 
 from __future__ import annotations
 
-import hashlib
-import hmac
 import logging
 from typing import Annotated
-from urllib.parse import quote, urlsplit
+from urllib.parse import quote
 
 from fastapi import APIRouter, FastAPI, Form, Query, Request
 from fastapi.exception_handlers import http_exception_handler
 from fastapi.responses import HTMLResponse, JSONResponse, RedirectResponse, Response
-from itsdangerous import BadSignature, URLSafeTimedSerializer
 from starlette.exceptions import HTTPException as StarletteHTTPException
 from starlette.types import ASGIApp, Receive, Scope, Send
 
+from service.web.credentials import (COOKIE_MAX_AGE_S, COOKIE_NAME, SAFE_METHODS, cookie_value, current_lab,
+                                     lab_for_key, lab_from_cookie, same_origin)
 from service.web.settings import Settings
+from service.web.templating import templates
 
-COOKIE_NAME = "ramiform_lab"
-#: A working day: a page session ends by itself.
-COOKIE_MAX_AGE_S = 12 * 3600
-_SAFE_METHODS = ("GET", "HEAD", "OPTIONS")
+__all__ = ["COOKIE_MAX_AGE_S", "COOKIE_NAME", "KeyBeforeBodyMiddleware", "cookie_value", "install_login_redirect",
+           "lab_from_cookie", "router"]
 
 log = logging.getLogger("ramiform.web.auth")
 router = APIRouter(include_in_schema=False)
-
-
-def _secret(settings: Settings) -> bytes:
-    if settings.secret_key:
-        return settings.secret_key.encode()
-    # Derived from every key together: a lab that knows only its own cannot forge another's cookie.
-    return hashlib.sha256(b"ramiform page cookie\0" + settings.api_keys.encode()).digest()
-
-
-def _fingerprint(settings: Settings, key: str) -> str:
-    return hmac.new(_secret(settings), key.encode(), hashlib.sha256).hexdigest()[:32]
-
-
-def _serializer(settings: Settings) -> URLSafeTimedSerializer:
-    return URLSafeTimedSerializer(_secret(settings), salt="ramiform-lab-cookie")
-
-
-def cookie_value(settings: Settings, lab: str) -> str:
-    """The signed cookie of a signed-in ``lab`` (whose key must be configured)."""
-    key = settings.keys_by_lab[lab]
-    return _serializer(settings).dumps({"lab": lab, "key": _fingerprint(settings, key)})
-
-
-def lab_from_cookie(request: Request, settings: Settings) -> str | None:
-    """The lab the request's cookie was signed for, or None (absent, forged, expired, stale).
-
-    A cookie-borne request that changes something (POST, DELETE, ...) must also come from a
-    page of this service: an ``Origin`` naming another host is refused.
-    """
-    value = request.cookies.get(COOKIE_NAME)
-    if not value:
-        return None
-    try:
-        data = _serializer(settings).loads(value, max_age=COOKIE_MAX_AGE_S)
-    except BadSignature:  # also SignatureExpired
-        return None
-    lab = data.get("lab") if isinstance(data, dict) else None
-    key = settings.keys_by_lab.get(lab) if isinstance(lab, str) else None
-    if key is None or not hmac.compare_digest(str(data.get("key", "")), _fingerprint(settings, key)):
-        return None
-    if request.method not in _SAFE_METHODS and not _same_origin(request):
-        log.warning("refused a cross-site %s %s carrying a page cookie", request.method, request.url.path)
-        return None
-    return lab
-
-
-def _same_origin(request: Request) -> bool:
-    """False when the browser says the request comes from a page of another host."""
-    origin = request.headers.get("origin")
-    return not origin or urlsplit(origin).netloc == request.headers.get("host")
 
 
 def _safe_next(target: str | None) -> str:
@@ -91,8 +39,6 @@ def _safe_next(target: str | None) -> str:
 
 
 def _login_page(request: Request, *, next_path: str, error: str | None, status_code: int) -> HTMLResponse:
-    from service.web.pages import templates
-
     return templates.TemplateResponse(request, "login.html", {"next": next_path, "error": error},
                                       status_code=status_code)
 
@@ -111,11 +57,9 @@ async def login(
     key: Annotated[str, Form(max_length=1000)],
     next: Annotated[str | None, Form(max_length=2000)] = None,
 ) -> Response:
-    from service.web.deps import lab_for_key  # here, since deps imports this module
-
     settings: Settings = request.app.state.settings
     # Another site's form must not sign this browser in (to a lab of the attacker's choosing).
-    lab = lab_for_key(settings, key.strip()) if settings.keys_by_lab and _same_origin(request) else None
+    lab = lab_for_key(settings, key.strip()) if settings.keys_by_lab and same_origin(request) else None
     if lab is None:
         log.info("page sign-in refused: unknown key")
         return _login_page(request, next_path=_safe_next(next), error="That key is not valid here.",
@@ -141,7 +85,7 @@ def install_login_redirect(app: FastAPI) -> None:
     async def _to_login(request: Request, exc: StarletteHTTPException) -> Response:
         path = request.url.path
         wants_page = not path.startswith(("/api/", "/static/")) and "text/html" in request.headers.get("accept", "")
-        if exc.status_code == 401 and wants_page and request.method in _SAFE_METHODS:
+        if exc.status_code == 401 and wants_page and request.method in SAFE_METHODS:
             target = path + (f"?{request.url.query}" if request.url.query else "")
             return RedirectResponse(f"/login?next={quote(target, safe='')}", status_code=303)
         return await http_exception_handler(request, exc)
@@ -160,8 +104,6 @@ class KeyBeforeBodyMiddleware:
 
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
         if scope["type"] == "http" and scope["path"].startswith("/api/") and _carries_body(scope):
-            from service.web.deps import current_lab  # here, since deps imports this module
-
             try:
                 current_lab(Request(scope))
             except StarletteHTTPException as exc:

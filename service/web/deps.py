@@ -1,15 +1,16 @@
-"""Dependencies of the routes: settings, the store, the analysis pool, the caller's lab."""
+"""Dependencies of the routes: settings, the store, the analysis pool, the reference library, the caller's lab."""
 
 from __future__ import annotations
 
-import hmac
+from fastapi import Request
 
-from fastapi import HTTPException, Request
-
+from service.match.library import ReferenceLibrary
 from service.store import Store
-from service.web.auth import lab_from_cookie
+from service.web.credentials import current_lab, lab_for_key
 from service.web.jobs import AnalysisPool
 from service.web.settings import Settings
+
+__all__ = ["current_lab", "get_library", "get_pool", "get_settings", "get_store", "lab_for_key"]
 
 
 def get_settings(request: Request) -> Settings:
@@ -24,29 +25,6 @@ def get_pool(request: Request) -> AnalysisPool:
     return request.app.state.pool
 
 
-def lab_for_key(settings: Settings, presented: str) -> str | None:
-    """The lab whose key this is (constant-time comparison against every key), or None."""
-    found = None
-    for lab, key in settings.keys_by_lab.items():
-        if hmac.compare_digest(presented.encode(), key.encode()):
-            found = lab
-    return found
-
-
-def current_lab(request: Request) -> str | None:
-    """The calling lab, scoping every read and write; ``None`` when access control is off.
-
-    With ``RAMIFORM_API_KEYS`` set, the caller must send ``Authorization: Bearer KEY``, or
-    (a browser) the signed cookie that signing in on ``/login`` gave it.
-    """
-    settings = get_settings(request)
-    if not settings.keys_by_lab:
-        return None
-    scheme, _, presented = request.headers.get("authorization", "").partition(" ")
-    lab = lab_for_key(settings, presented.strip()) if scheme.lower() == "bearer" else None
-    if lab is None and "authorization" not in request.headers:
-        lab = lab_from_cookie(request, settings)
-    if lab is None:
-        raise HTTPException(401, "a valid API key is required (Authorization: Bearer KEY)",
-                            headers={"WWW-Authenticate": "Bearer"})
-    return lab
+def get_library(request: Request) -> ReferenceLibrary:
+    """The app's reference library (the open set and its model), made once at start-up."""
+    return request.app.state.library

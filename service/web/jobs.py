@@ -11,36 +11,16 @@ import asyncio
 import concurrent.futures
 import concurrent.futures.process  # BrokenProcessPool, also when the pool runs threads
 import multiprocessing
-from functools import lru_cache
 from typing import Any
 
 import numpy as np
 
 from service.analysis import AnalysisOptions
 from service.cpus import usable_cpus
-from service.errors import LibraryError, RamiformError
+from service.errors import RamiformError
+from service.match.library import ReferenceLibrary, process_library, start_process_library
 
 _SOURCE_SUFFIX = {"PNG": "png", "JPEG": "jpg", "TIFF": "tif", "BMP": "bmp"}
-
-
-@lru_cache(maxsize=4)
-def _reference_set(library_dir: str | None):
-    # Read-only files: caching the open set per process keeps its loaded clusters warm.
-    from service.library import load_reference_set
-
-    return load_reference_set(library_dir)
-
-
-def _reference_set_or_reason(library_dir: str | None):
-    """``(reference set, None)``, or ``(None, why the specimen is measured but not ranked)``.
-
-    A missing or damaged reference set must not cost the user the measurements; the
-    analysis then carries no matching section and says why in its warnings.
-    """
-    try:
-        return _reference_set(library_dir), None
-    except LibraryError as exc:
-        return None, f"not ranked against the reference library: {exc}"
 
 
 def matcher_rows(analysis: dict[str, Any]) -> list[dict[str, Any]]:
@@ -50,7 +30,7 @@ def matcher_rows(analysis: dict[str, Any]) -> list[dict[str, Any]]:
     return rows if isinstance(rows, list) else []
 
 
-def run_analysis(data: bytes, options: AnalysisOptions) -> dict[str, Any]:
+def run_analysis(data: bytes, options: AnalysisOptions, library: ReferenceLibrary | None = None) -> dict[str, Any]:
     """Analyse one upload; returns ``{"analysis": dict, "files": {name: bytes}}``.
 
     Files: ``source.<format>`` (the upload), ``photo.png`` and ``overlay.png`` (display
@@ -59,17 +39,19 @@ def run_analysis(data: bytes, options: AnalysisOptions) -> dict[str, Any]:
     alternative reading the segmentation offers, and ``levels.png`` (display size), the
     picture its threshold applies to, when it has one.
 
+    ``library`` is the reference library to rank against (default: this worker's, opened
+    once per process). A set that cannot be opened leaves the specimen measured but not
+    ranked, with a ``not_ranked`` warning saying why.
+
     Raises the pipeline's own errors (``RamiformError`` subclasses, ``ValueError``) unchanged.
     """
     from service.analysis import analyze_with
     from service.web import pictures, plots
     from service.web.formatting import family_name
 
-    reference_set, not_ranked = _reference_set_or_reason(options.library_dir)
-    result = analyze_with(data, options, reference_set=reference_set, match=not_ranked is None)
+    library = library or process_library(options.library_dir)
+    result = analyze_with(data, options, reference_set=library)
     analysis = result.to_dict()
-    if not_ranked is not None:
-        analysis["warnings"].append(not_ranked)
     rgb = result.image.rgb
     mask = result.segmentation.mask
     features = result.features
@@ -106,16 +88,15 @@ def reading_pictures(segmentation, display_shape: tuple[int, int]) -> dict[str, 
     return files
 
 
-def matcher_distances(vectors: list[list[float]], library_dir: str | None) -> list[list[float]]:
+def matcher_distances(vectors: list[list[float]], library_dir: str | None = None,
+                      library: ReferenceLibrary | None = None) -> list[list[float]]:
     """Mahalanobis distances between specimens in the matcher's feature space.
 
     The metric is the reference model's within-ensemble covariance pooled over its
     families, with the matcher's own variance ridge: the spread the matcher itself expects
     between clusters grown alike.
     """
-    from service.match import reference_model
-
-    model = reference_model(_reference_set(library_dir))
+    model = (library or process_library(library_dir)).model
     statistics = model.statistics
     inverse = np.linalg.inv(statistics.pooled + np.diag(statistics.floor))
     x = np.asarray(vectors, dtype=float)
@@ -128,12 +109,14 @@ class AnalysisPool:
     """Runs analyses off the event loop: a pool of processes, one per usable CPU by default.
 
     ``processes=0`` runs them in threads of this process instead (debugging, small tests).
-    A worker that dies (out of memory, killed) breaks a process pool; the pool is then
+    Each process opens ``library``'s folder once when it starts (threads share ``library``
+    itself); :meth:`run_with_library` hands the function that library. A worker that dies (out of memory, killed) breaks a process pool; the pool is then
     replaced, the one request answered with an error, and the service keeps serving.
     """
 
-    def __init__(self, processes: int) -> None:
+    def __init__(self, processes: int, library: ReferenceLibrary | None = None) -> None:
         self.processes = processes
+        self.library = library if library is not None else ReferenceLibrary(None)
         self._executor = self._new_executor()
 
     def _new_executor(self) -> concurrent.futures.Executor:
@@ -141,7 +124,8 @@ class AnalysisPool:
             return concurrent.futures.ThreadPoolExecutor(max_workers=usable_cpus())
         # spawn: a fresh interpreter per worker, never a fork of a threaded server
         return concurrent.futures.ProcessPoolExecutor(
-            max_workers=self.processes, mp_context=multiprocessing.get_context("spawn")
+            max_workers=self.processes, mp_context=multiprocessing.get_context("spawn"),
+            initializer=start_process_library, initargs=(self.library.directory,),
         )
 
     async def run(self, fn, *args: Any) -> Any:
@@ -154,6 +138,10 @@ class AnalysisPool:
                 self._executor = self._new_executor()
                 executor.shutdown(wait=False, cancel_futures=True)
             raise WorkerLostError("the analysis worker stopped unexpectedly; please try again") from exc
+
+    async def run_with_library(self, fn, *args: Any) -> Any:
+        """``fn(*args, library)``: the pool's library in threads, None (the worker's own) in processes."""
+        return await self.run(fn, *args, self.library if self.processes == 0 else None)
 
     def shutdown(self) -> None:
         self._executor.shutdown(wait=True, cancel_futures=True)

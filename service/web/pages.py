@@ -3,27 +3,24 @@
 from __future__ import annotations
 
 import base64
-from pathlib import Path
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Depends, HTTPException, Query, Request
 from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import HTMLResponse, Response
-from fastapi.templating import Jinja2Templates
 
 from service.errors import LibraryError
+from service.match.library import ReferenceLibrary
 from service.store import Store
 from service.web import compare, formatting, labels, plots, readings, report_view, study_demo
 from service.web.api import file_url, summary
-from service.web.deps import current_lab, get_pool, get_settings, get_store
+from service.web.deps import current_lab, get_library, get_pool, get_settings, get_store
 from service.web.demo import DEMO_FILENAME, DEMO_LABEL, DEMO_STORY, ensure_demo_jpeg
 from service.web.jobs import AnalysisPool, matcher_distances
 from service.web.references import ensembles_for_matches, reference_set_or_error
 from service.web.settings import Settings
+from service.web.templating import TEMPLATES_DIR, analysis_for_page, templates  # noqa: F401 - names pages offered
 
-TEMPLATES_DIR = Path(__file__).resolve().parents[2] / "templates"
-templates = Jinja2Templates(directory=TEMPLATES_DIR)
-templates.env.filters.update(sig=formatting.sig, fixed=formatting.fixed, plain=formatting.plain)
 
 router = APIRouter(include_in_schema=False)
 
@@ -86,18 +83,18 @@ async def report_page(
     request: Request,
     specimen_id: str,
     store: Store = Depends(get_store),
-    settings: Settings = Depends(get_settings),
+    library: ReferenceLibrary = Depends(get_library),
     lab: str | None = Depends(current_lab),
 ) -> HTMLResponse:
     record = await run_in_threadpool(store.get, specimen_id, owner=lab)
     if record is None:
         raise HTTPException(404, f"no specimen {specimen_id!r}")
-    analysis = record.analysis
+    analysis = analysis_for_page(record.analysis)
     matches = analysis.get("matches")
     nearest: list[dict[str, Any]] = []
     if matches:
         try:
-            nearest = ensembles_for_matches(reference_set_or_error(settings), matches)
+            nearest = ensembles_for_matches(reference_set_or_error(library), matches)
         except LibraryError:
             nearest = []
     files = {name: file_url(record, name) for name in record.files}
@@ -172,7 +169,7 @@ async def _distances(records, store: Store, lab, pool: AnalysisPool, settings: S
     if shared is not None:
         library_dir = str(settings.library_dir) if settings.library_dir else None
         try:
-            matrix = await pool.run(matcher_distances, shared[1], library_dir)
+            matrix = await pool.run_with_library(matcher_distances, shared[1], library_dir)
             return {"kind": "matcher", "matrix": matrix, "features": shared[0]}
         except LibraryError:
             pass  # the library is gone or damaged: fall back to the stored specimens' spread
@@ -182,9 +179,9 @@ async def _distances(records, store: Store, lab, pool: AnalysisPool, settings: S
 
 
 @router.get("/library", response_class=HTMLResponse, dependencies=[Depends(current_lab)])
-async def library_page(request: Request, settings: Settings = Depends(get_settings)) -> HTMLResponse:
+async def library_page(request: Request, library: ReferenceLibrary = Depends(get_library)) -> HTMLResponse:
     try:
-        references, error = reference_set_or_error(settings), None
+        references, error = reference_set_or_error(library), None
     except LibraryError as exc:
         references, error = None, str(exc)
     return _page(request, "library.html", references=references, error=error)

@@ -2,22 +2,14 @@
 
 from __future__ import annotations
 
-from functools import lru_cache
 from typing import Any
 
-from service.web.settings import Settings
+from service.match.library import ReferenceLibrary
 
 
-@lru_cache(maxsize=4)
-def _open(library_dir: str | None):
-    from service.library import load_reference_set
-
-    return load_reference_set(library_dir)
-
-
-def reference_set_or_error(settings: Settings):
-    """The configured reference set (manifest only, cached); raises ``LibraryError`` (500)."""
-    return _open(str(settings.library_dir) if settings.library_dir else None)
+def reference_set_or_error(library: ReferenceLibrary):
+    """The app's reference set (manifest only; opened once by its library); raises ``LibraryError`` (500)."""
+    return library.reference_set
 
 
 def ensembles_for_matches(references, matches: list[dict[str, Any]], limit: int = 4) -> list[dict[str, Any]]:

@@ -66,7 +66,7 @@ def test_json_lines_keep_input_order_and_report_bad_files(images, capsys):
         for key in ("tips", "junctions", "branches"):
             assert isinstance(f["skeleton"][key], int)
         assert isinstance(record["warnings"], list)
-        assert any("not calibrated" in w for w in record["warnings"])
+        assert any(w["code"] == "not_calibrated" and "not calibrated" in w["text"] for w in record["warnings"])
     # A deeper tree has more tips: a binary tree of depth k has 2**(k-1) leaves plus its root end.
     assert records[2]["features"]["skeleton"]["tips"] > records[0]["features"]["skeleton"]["tips"]
 
@@ -75,7 +75,7 @@ def test_pixel_size_gives_lengths_in_mm(images, capsys):
     main(["analyze", str(images[0]), "--json", "--pixel-size", "0.05"])
     record = json.loads(capsys.readouterr().out)
     assert record["calibration"] == {"pixel_size_mm": 0.05, "source": "user", "calibrated": True}
-    assert not any("not calibrated" in w for w in record["warnings"])
+    assert not any(w["code"] == "not_calibrated" for w in record["warnings"])
 
 
 def test_table_output_names_each_image(images):

@@ -15,7 +15,7 @@ import httpx
 import pytest
 from fastapi.testclient import TestClient
 
-from service.web import deps
+from service.web import credentials
 from service.web.app import create_app
 from service.web.auth import COOKIE_NAME, cookie_value
 from tests.reliability.conftest import app_client, encode, make_settings, specimen_rgb
@@ -193,12 +193,12 @@ def test_keys_are_compared_in_constant_time(monkeypatch, tmp_path):
         compared.append(b)
         return secrets.compare_digest(a, b)
 
-    monkeypatch.setattr(deps.hmac, "compare_digest", spy)
+    monkeypatch.setattr(credentials.hmac, "compare_digest", spy)
     settings = make_settings(tmp_path, api_keys=KEYS)
-    assert deps.lab_for_key(settings, KEY_A) == "lab-a"
+    assert credentials.lab_for_key(settings, KEY_A) == "lab-a"
     assert sorted(compared) == sorted([KEY_A.encode(), KEY_B.encode()])
     compared.clear()
-    assert deps.lab_for_key(settings, WRONG_KEY) is None and len(compared) == 2
+    assert credentials.lab_for_key(settings, WRONG_KEY) is None and len(compared) == 2
 
 
 def test_keys_never_appear_in_logs(labs, caplog):

@@ -22,6 +22,7 @@ from typing import Any
 import numpy as np
 from scipy import ndimage
 
+from service.caveats import Caveat
 from service.errors import SpecimenError
 from service.imaging.load import LoadedImage
 from service.imaging.segmentation._common import (EIGHT, SMALL_SIDE_PX, Field, as_gray_rgb, block_mean,
@@ -111,7 +112,7 @@ class Segmentation:
             **self.settings,
             "center_rc": [float(v) for v in self.center_rc],
             "mask_area_px": int(np.count_nonzero(self.mask)),
-            "warnings": list(self.warnings),
+            "warnings": [str(w) for w in self.warnings],  # plain text; codes: service.contract
         }
 
 
@@ -323,7 +324,7 @@ def segment(
         settings["contrast_to_noise"] = round(contrast, 2)
     warnings: list[str] = []
     if contrast < 3.0:
-        warnings.append(f"low contrast: the specimen stands {contrast:.1f} noise levels from the background")
+        warnings.append(Caveat("low_contrast", f"low contrast: the specimen stands {contrast:.1f} noise levels from the background"))
     rows, cols = np.nonzero(mask)
     if electrode is not None:
         center_rc = (float(electrode["center_rc"][0]), float(electrode["center_rc"][1]))
@@ -335,8 +336,8 @@ def segment(
     settings["alternatives"] = [a.to_dict() for a in alternatives]
     warnings.extend(_warnings(mask, rows, cols, center_rc, fov, width_px, small_fov, factor, chosen_mode))
     if confidence < LOW_CONFIDENCE:
-        warnings.append(f"uncertain segmentation (confidence {confidence:.2f}): another reading of the photograph "
-                        "is nearly as plausible; check the outline and take an alternative if it fits better")
+        warnings.append(Caveat("uncertain_segmentation", f"uncertain segmentation (confidence {confidence:.2f}): another reading of the photograph "
+                        "is nearly as plausible; check the outline and take an alternative if it fits better"))
     overlay = _overlay(rgb, outline, fov, center_rc)
     return Segmentation(mask=mask, overlay=overlay, settings=settings, warnings=warnings, center_rc=center_rc,
                         confidence=confidence, alternatives=tuple(alternatives), levels=levels)
@@ -581,23 +582,27 @@ def _warnings(mask: np.ndarray, rows: np.ndarray, cols: np.ndarray, center_rc: t
               fov: Field | None, width_px: float, small_fov: np.ndarray, factor: int, mode: str) -> list[str]:
     out: list[str] = []
     if mask[0].any() or mask[-1].any() or mask[:, 0].any() or mask[:, -1].any():
-        out.append("the specimen touches the image frame: it may extend beyond the photograph")
+        out.append(Caveat("touches_frame", "the specimen touches the image frame: it may extend beyond the photograph"))
     if fov is not None and mode == "threshold":
         reach = float(fov.rho(rows.astype(np.float64), cols.astype(np.float64)).max())
         if reach >= 0.99 - 2.0 * min(width_px, 0.02 * fov.r) / fov.r:
-            out.append(f"the specimen touches the {'dish rim' if fov.source == 'dish rim' else 'field edge'}"
-                       ": growth may have been cut off or the rim included")
+            rim = fov.source == "dish rim"
+            out.append(Caveat("touches_dish_rim" if rim else "touches_field_edge",
+                              f"the specimen touches the {'dish rim' if rim else 'field edge'}"
+                              ": growth may have been cut off or the rim included"))
     area = rows.size
     extent = float(np.sqrt(((rows - center_rc[0]) ** 2 + (cols - center_rc[1]) ** 2).max())) + 0.5
     fill = area / (math.pi * extent * extent)
     if fill <= 0.5 and (area < 400 or extent < 10.0 * width_px):
-        out.append(f"specimen too small: it spans {extent / max(width_px, 1e-9):.0f} branch widths, "
-                   "too few scales for a dimension fit (at least 10 wanted)")
+        out.append(Caveat("specimen_too_small", f"specimen too small: it spans {extent / max(width_px, 1e-9):.0f} branch widths, "
+                   "too few scales for a dimension fit (at least 10 wanted)"))
     field_area = float(np.count_nonzero(small_fov)) * factor * factor
     if mode == "threshold" and fill > 0.5:
-        out.append(f"the mask fills {fill:.0%} of its bounding circle: a compact blob, probably not a branching pattern")
+        out.append(Caveat("compact_blob", f"the mask fills {fill:.0%} of its bounding circle: "
+                              "a compact blob, probably not a branching pattern"))
     elif area > 0.6 * field_area:
-        out.append(f"the mask covers {area / field_area:.0%} of the field of view: probably not a branching pattern")
+        out.append(Caveat("covers_field", f"the mask covers {area / field_area:.0%} of the field of view: "
+                              "probably not a branching pattern"))
     return out
 
 
