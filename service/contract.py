@@ -435,6 +435,8 @@ class Specimen(AnalysisModel):
     files: dict[str, str] = Field(description="stored file name -> URL")
     history: list[HistoryEntry] | None = Field(
         None, description="the readings of this specimen, oldest first: 1 is the upload, then each re-measurement")
+    conditions: dict[str, dict[str, Any]] = Field(
+        default_factory=dict, description="the specimen's conditions (name -> value, unit, quantity), as studies use them")
 
 
 class SpecimenSummary(BaseModel):

@@ -162,6 +162,10 @@ def _rim(options: FilmOptions, pixel_size_mm: float | None, scene) -> tuple[floa
     return None, "none", "no dish rim was found and no rim radius was given (--rim-radius-mm with --pixel-size)"
 
 
+def _warning(code: str, text: str) -> dict[str, str]:
+    return {"code": code, "text": text}
+
+
 def analyze_film(source: bytes | str | Path | Sequence[bytes] | FilmSource, options: FilmOptions | None = None, *,
                  reference_set=None, match: bool = True, progress: Progress | None = None) -> FilmAnalysis:
     """Analyse a growth film.
@@ -302,12 +306,14 @@ def analyze_film(source: bytes | str | Path | Sequence[bytes] | FilmSource, opti
         "exposure_vs_last_frame": [exposures[k] for k in accepted],
         "left_out": left_out,
     }
-    warnings: list[str] = []
+    # Each warning carries a stable code beside its text, as the analysis JSON's do.
+    warnings: list[dict[str, str]] = []
     for item in (item for item in left_out if item["flagged"]):
-        warnings.append(f"frame {item['frame']} (t = {item['time_s']:g} s) left out of the curves: {item['reason']}")
+        warnings.append(_warning("frame_left_out", f"frame {item['frame']} (t = {item['time_s']:g} s) left out of the curves: {item['reason']}"))
     if any(abs(shifts[k][0]) > 0.05 * first_gray.shape[0] or abs(shifts[k][1]) > 0.05 * first_gray.shape[1]
            for k in accepted):
-        warnings.append("the camera moved by more than 5% of the frame during the film; check the registration")
+        warnings.append(_warning("camera_moved",
+                                 "the camera moved by more than 5% of the frame during the film; check the registration"))
 
     velocity, fit = front_velocity(times, max_radius)
     rim_px, rim_source, rim_reason = _rim(options, pixel_size_mm, scene)
@@ -319,7 +325,7 @@ def analyze_film(source: bytes | str | Path | Sequence[bytes] | FilmSource, opti
     if rim.get("reached") or (rim.get("value") is not None
                               and rim["ci95"][0] - times[-1] <= NEAR_SHARE_OF_SPAN * max(span, 1e-9)):
         caution = SHORT_CIRCUIT_CAUTION
-        warnings.append(caution)
+        warnings.append(_warning("short_circuit", caution))
     if pixel_size_mm and velocity.get("value") is not None:
         velocity["value_mm_per_s"] = velocity["value"] * pixel_size_mm
 
@@ -345,7 +351,7 @@ def analyze_film(source: bytes | str | Path | Sequence[bytes] | FilmSource, opti
         "final": final.to_dict(),
         "warnings": warnings,
     }
-    from service.analysis import json_safe
+    from service.contract import json_safe
 
     return FilmAnalysis(body=json_safe(body), arrival=arrival, final=final,
                         first_rgb=first if first.ndim == 3 else None)

@@ -67,8 +67,9 @@ def report_url(record: SpecimenRecord) -> str:
     return f"/specimens/{record.id}"
 
 
-def specimen_body(record: SpecimenRecord, history: list[Reading] | None = None) -> Specimen:
-    """The stored analysis read through the contract, with the specimen's identity and history."""
+def specimen_body(record: SpecimenRecord, history: list[Reading] | None = None,
+                  conditions: dict[str, Condition] | None = None) -> Specimen:
+    """The stored analysis read through the contract, with the specimen's identity, history and conditions."""
     body = {
         **stored_analysis(record.analysis).model_dump(),
         "id": record.id,
@@ -80,7 +81,14 @@ def specimen_body(record: SpecimenRecord, history: list[Reading] | None = None) 
     }
     if history is not None:
         body["history"] = [reading.to_dict() for reading in history]
+    body["conditions"] = conditions_to_dict(conditions or {})
     return Specimen.model_validate(body)
+
+
+async def _specimen_answer(store: Store, record: SpecimenRecord, lab: str | None) -> Specimen:
+    history = await run_in_threadpool(store.history, record.id, owner=lab)
+    conditions = await run_in_threadpool(StudyStore(store.engine).conditions_of, record.id)
+    return specimen_body(record, history, conditions)
 
 
 def summary(record: SpecimenRecord) -> dict[str, Any]:
@@ -199,11 +207,9 @@ async def create_specimen(
     record = await run_in_threadpool(partial(
         store.add, result["analysis"], result["files"], label=label, kind=kind, filename=filename, owner=lab,
         reading=first))
-    body = specimen_body(record, await run_in_threadpool(store.history, record.id, owner=lab))
     if parsed_conditions:
-        stored = await run_in_threadpool(StudyStore(store.engine).set_conditions, record.id, parsed_conditions, owner=lab)
-        body["conditions"] = conditions_to_dict(stored or {})
-    return body
+        await run_in_threadpool(StudyStore(store.engine).set_conditions, record.id, parsed_conditions, owner=lab)
+    return await _specimen_answer(store, record, lab)
 
 
 @router.get("/specimens", response_model=SpecimenPage, summary="List specimens, newest first")
@@ -234,8 +240,7 @@ async def export_all(
 async def read_specimen(
     specimen_id: str, store: Store = Depends(get_store), lab: str | None = Depends(current_lab)
 ) -> Specimen:
-    record = await _found(store, specimen_id, lab)
-    return specimen_body(record, await run_in_threadpool(store.history, specimen_id, owner=lab))
+    return await _specimen_answer(store, await _found(store, specimen_id, lab), lab)
 
 
 @router.get("/specimens/{specimen_id}/history", response_model=list[HistoryEntry], responses=_NOT_FOUND,
@@ -300,7 +305,7 @@ async def reanalyze_specimen(
         first_reading=readings.history_entry(analysis, {}, origin="upload")))
     if updated is None:
         raise HTTPException(404, f"no specimen {specimen_id!r}")
-    return specimen_body(updated, await run_in_threadpool(store.history, specimen_id, owner=lab))
+    return await _specimen_answer(store, updated, lab)
 
 
 @router.delete("/specimens/{specimen_id}", status_code=204, response_class=Response, responses=_NOT_FOUND,

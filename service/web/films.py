@@ -15,6 +15,7 @@ from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import FileResponse, HTMLResponse, RedirectResponse, Response
 from pydantic import BaseModel, ConfigDict, Field
 
+from service.contract import AnalysisModel, WarningItem
 from service.film import FilmLimits, FilmOptions
 from service.store import FilmRecord, FilmStore, Store, write_durably
 from service.web.deps import current_lab, get_pool, get_settings, get_store
@@ -50,8 +51,8 @@ class FilmBody(BaseModel):
     front_velocity_px_per_s: dict[str, Any]
     time_to_rim_s: dict[str, Any]
     tip_growth_share: dict[str, Any]
-    final: dict[str, Any]
-    warnings: list[str]
+    final: AnalysisModel = Field(description="the analysis object of the last frame, as `ramiform analyze --json` gives it")
+    warnings: list[WarningItem]
 
 
 # ----------------------------------------------------------------------------- worker
@@ -105,14 +106,18 @@ def run_film(source: bytes | list[bytes], options: FilmOptions, progress_path: s
     from service.film import analyze_film
     from service.web import pictures
     from service.web.film_plots import arrival_png, growth_svg
-    from service.web.jobs import _reference_set_or_reason
+    from service.match.library import process_library
 
-    reference_set, not_ranked = _reference_set_or_reason(options.library_dir)
-    result = analyze_film(source, options, reference_set=reference_set, match=not_ranked is None,
+    library = process_library(options.library_dir)
+    not_ranked = library.warm()
+    if not_ranked is not None:
+        not_ranked = f"not ranked against the reference library: {not_ranked}"
+    result = analyze_film(source, options, reference_set=library if not_ranked is None else None,
+                          match=not_ranked is None,
                           progress=_progress_writer(progress_path))
     body = result.to_dict()
     if not_ranked is not None:
-        body["warnings"].append(not_ranked)
+        body["warnings"].append({"code": "not_ranked", "text": not_ranked})
     final = result.final
     features = final.features
     overlay = pictures.annotated_overlay(final.image.rgb, final.segmentation.mask, features.skeleton_mask,

@@ -71,7 +71,7 @@ def test_short_circuit_caution_when_the_front_is_near_the_rim(dla_film):
     rim_px = true_max_radius(dla_film.truth[9], dla_film.center_rc)
     near = analyze_film(dla_film.frames[:9], FilmOptions(frame_interval_s=INTERVAL_S, pixel_size_mm=1.0,
                                                          rim_radius_mm=rim_px), match=False).to_dict()
-    assert near["short_circuit_caution"] and near["short_circuit_caution"] in near["warnings"]
+    assert near["short_circuit_caution"] and near["short_circuit_caution"] in [w["text"] for w in near["warnings"]]
     far = analyze_film(dla_film.frames[:9], FilmOptions(frame_interval_s=INTERVAL_S, pixel_size_mm=1.0,
                                                         rim_radius_mm=10 * rim_px), match=False).to_dict()
     assert far["short_circuit_caution"] is None
@@ -126,7 +126,7 @@ def test_camera_shift_and_a_corrupted_frame_are_registered_flagged_and_nothing_i
     assert body["frames"] == 8
     assert growth["frame_index"] == [0, 1, 2, 3, 5, 6, 7]
     assert [item["frame"] for item in growth["left_out"]] == [4]
-    assert any(w.startswith("frame 4 ") for w in body["warnings"])
+    assert any(w["code"] == "frame_left_out" and w["text"].startswith("frame 4 ") for w in body["warnings"])
     assert growth["registration_shift_rc_px"][3:] == [[-3.0, 2.0]] * 4
     assert growth["registration_shift_rc_px"][:3] == [[0.0, 0.0]] * 3
     drawn = np.array([int(film.truth[k].sum()) for k in growth["frame_index"]])
@@ -182,5 +182,5 @@ def test_frames_before_growth_starts_are_left_out_without_alarm(dla_order):
     left = {item["frame"]: item for item in body["growth"]["left_out"]}
     assert set(left) == {0, 1, 4}
     assert not left[0]["flagged"] and not left[1]["flagged"] and left[4]["flagged"]
-    assert [w.split(" ")[1] for w in body["warnings"] if w.startswith("frame ")] == ["4"]
+    assert [w["text"].split(" ")[1] for w in body["warnings"] if w["code"] == "frame_left_out"] == ["4"]
     assert body["growth"]["frame_index"] == [2, 3, 5, 6]

@@ -117,7 +117,7 @@ def test_list_and_history_answers_are_typed(client):
 
 
 #: Keys that name the stored specimen or the file rather than the analysis.
-_IDENTITY = {"id", "report_url", "label", "kind", "created_at", "files", "history", "path"}
+_IDENTITY = {"id", "report_url", "label", "kind", "created_at", "files", "history", "conditions", "path"}
 
 
 def test_the_cli_and_rest_give_one_analysis_of_one_image(client, dla_png, tiny_library, tmp_path, capsys):
