@@ -132,7 +132,7 @@ def _sor_window(phi, kind, i0, i1, j0, j1, omega, tol, max_sweeps):
 # H[0] is a multiple of 2 ** L and exceeds the electrode radius by 2 ** L + 1, so every
 # border cell of every level is electrode. Per level: phi (potential), rhs (FAS right
 # side, 0 on level 0), old (phi before the coarse solve), res (residual), kind, act
-# (tile kept?) and tiles[:n_tiles[l]] (kept tiles, in activation order).
+# (tile kept?) and tiles[:n_tiles[l]] (kept tiles, in row-major order).
 
 
 @numba.njit(cache=True)
@@ -186,6 +186,31 @@ def _interp(phi_c, i, j, h_f, h_c):
 
 
 @numba.njit(cache=True)
+def _insert_tile(tiles, n, ti, tj):
+    """Insert tile (ti, tj) into ``tiles[:n]``, kept in row-major order.
+
+    Every sweep visits the kept tiles in this order. The level arrays are large and
+    touched only near the cluster, so visiting tiles in memory order rather than in
+    the order they were kept cuts the page and cache misses: a V-cycle takes about
+    30 % less time (measured at 6,000 sites, eta 4). Results do not depend on the
+    order (red-black sweeps, and the other passes update each cell from values the
+    pass does not change), so growth is the same bit for bit.
+    """
+    lo, hi = 0, n
+    while lo < hi:
+        mid = (lo + hi) >> 1
+        if tiles[mid, 0] < ti or (tiles[mid, 0] == ti and tiles[mid, 1] < tj):
+            lo = mid + 1
+        else:
+            hi = mid
+    for t in range(n, lo, -1):
+        tiles[t, 0] = tiles[t - 1, 0]
+        tiles[t, 1] = tiles[t - 1, 1]
+    tiles[lo, 0] = ti
+    tiles[lo, 1] = tj
+
+
+@numba.njit(cache=True)
 def _activate(level, ti, tj, phis, kinds, acts, tiles, n_tiles, halves, r_out, profile_r0):
     """Keep tile (ti, tj) of ``level``: mark it, set its kinds and a first potential.
 
@@ -196,8 +221,7 @@ def _activate(level, ti, tj, phis, kinds, acts, tiles, n_tiles, halves, r_out, p
     if acts[level][ti, tj]:
         return
     acts[level][ti, tj] = 1
-    tiles[level][n_tiles[level], 0] = ti
-    tiles[level][n_tiles[level], 1] = tj
+    _insert_tile(tiles[level], n_tiles[level], ti, tj)
     n_tiles[level] += 1
     phi, kind = phis[level], kinds[level]
     side = phi.shape[0]
