@@ -245,6 +245,9 @@ def _activate(level, ti, tj, phis, kinds, acts, tiles, n_tiles, halves, r_out, p
                     or _outside(i - h, j - h + 1, scale, r_out)
                     or _outside(i - h, j - h - 1, scale, r_out)):
                 kind[i, j] = _NEAR
+    if not coarsest:
+        _fill_tile_ghosts(phi, acts[level], phis[level + 1], h, halves[level + 1], level, r_out,
+                          ti, tj)
 
 
 @numba.njit(cache=True)
@@ -304,12 +307,15 @@ def _smooth(phi, rhs, kind, tiles, n_tile, sweeps, omega, h, scale, r_out):
                 for i in range(i0, i1):
                     for j in range(j0 + ((i + j0 + colour) & 1), j1, 2):
                         k = kind[i, j]
+                        # the finest level's right side is 0: not reading it spares the
+                        # memory traffic of one large array (the sum is the same)
+                        source = rhs[i, j] if scale > 1 else 0.0
                         if k == _FREE:
                             new = 0.25 * (phi[i - 1, j] + phi[i + 1, j] + phi[i, j - 1]
-                                          + phi[i, j + 1] + rhs[i, j])
+                                          + phi[i, j + 1] + source)
                         elif k == _NEAR:
                             diag, off = _near_operator(phi, i, j, h, scale, r_out)
-                            new = (off + rhs[i, j]) / diag
+                            new = (off + source) / diag
                         else:
                             continue
                         delta = new - phi[i, j]
@@ -322,44 +328,50 @@ def _smooth(phi, rhs, kind, tiles, n_tile, sweeps, omega, h, scale, r_out):
 @numba.njit(cache=True)
 def _fill_ghosts(level, phis, acts, tiles, n_tiles, halves, r_out):
     """Set the cells just outside the kept tiles of ``level`` from the coarser level."""
-    phi, act = phis[level], acts[level]
+    phi, act, phi_c, lst = phis[level], acts[level], phis[level + 1], tiles[level]
+    h, h_c = halves[level], halves[level + 1]
+    for t in range(n_tiles[level]):
+        _fill_tile_ghosts(phi, act, phi_c, h, h_c, level, r_out, lst[t, 0], lst[t, 1])
+
+
+@numba.njit(cache=True)
+def _fill_tile_ghosts(phi, act, phi_c, h, h_c, level, r_out, ti, tj):
+    """Set the cells just outside kept tile (ti, tj) of a level (those not in another
+    kept tile) from the coarser level ``phi_c``, by bilinear interpolation or as
+    electrode."""
     side = phi.shape[0]
     n_t = act.shape[0]
-    h, h_c = halves[level], halves[level + 1]
-    phi_c = phis[level + 1]
     scale = 1 << level
-    for t in range(n_tiles[level]):
-        ti, tj = tiles[level][t, 0], tiles[level][t, 1]
-        for side_k in range(4):
-            ni, nj = ti, tj
-            if side_k == 0:
-                ni += 1
-            elif side_k == 1:
-                ni -= 1
-            elif side_k == 2:
-                nj += 1
-            else:
-                nj -= 1
-            if ni < 0 or nj < 0 or ni >= n_t or nj >= n_t or act[ni, nj]:
+    for side_k in range(4):
+        ni, nj = ti, tj
+        if side_k == 0:
+            ni += 1
+        elif side_k == 1:
+            ni -= 1
+        elif side_k == 2:
+            nj += 1
+        else:
+            nj -= 1
+        if ni < 0 or nj < 0 or ni >= n_t or nj >= n_t or act[ni, nj]:
+            continue
+        if side_k < 2:
+            i = ti * TILE + TILE if side_k == 0 else ti * TILE - 1
+            if i < 0 or i >= side:
                 continue
-            if side_k < 2:
-                i = ti * TILE + TILE if side_k == 0 else ti * TILE - 1
-                if i < 0 or i >= side:
-                    continue
-                for j in range(tj * TILE, min(tj * TILE + TILE, side)):
-                    if _outside(i - h, j - h, scale, r_out):
-                        phi[i, j] = 1.0
-                    else:
-                        phi[i, j] = _interp(phi_c, i, j, h, h_c)
-            else:
-                j = tj * TILE + TILE if side_k == 2 else tj * TILE - 1
-                if j < 0 or j >= side:
-                    continue
-                for i in range(ti * TILE, min(ti * TILE + TILE, side)):
-                    if _outside(i - h, j - h, scale, r_out):
-                        phi[i, j] = 1.0
-                    else:
-                        phi[i, j] = _interp(phi_c, i, j, h, h_c)
+            for j in range(tj * TILE, min(tj * TILE + TILE, side)):
+                if _outside(i - h, j - h, scale, r_out):
+                    phi[i, j] = 1.0
+                else:
+                    phi[i, j] = _interp(phi_c, i, j, h, h_c)
+        else:
+            j = tj * TILE + TILE if side_k == 2 else tj * TILE - 1
+            if j < 0 or j >= side:
+                continue
+            for i in range(ti * TILE, min(ti * TILE + TILE, side)):
+                if _outside(i - h, j - h, scale, r_out):
+                    phi[i, j] = 1.0
+                else:
+                    phi[i, j] = _interp(phi_c, i, j, h, h_c)
 
 
 @numba.njit(cache=True)
@@ -380,12 +392,13 @@ def _restrict(level, phis, rhss, olds, ress, kinds, acts, tiles, n_tiles, halves
         for i in range(ti * TILE, min(ti * TILE + TILE, side_f)):
             for j in range(tj * TILE, min(tj * TILE + TILE, side_f)):
                 k = kind_f[i, j]
+                source = rhs_f[i, j] if level > 0 else 0.0  # (level 0: see _smooth)
                 if k == _FREE and 0 < i < side_f - 1 and 0 < j < side_f - 1:
-                    res[i, j] = rhs_f[i, j] - (4.0 * phi_f[i, j] - phi_f[i - 1, j] - phi_f[i + 1, j]
-                                               - phi_f[i, j - 1] - phi_f[i, j + 1])
+                    res[i, j] = source - (4.0 * phi_f[i, j] - phi_f[i - 1, j] - phi_f[i + 1, j]
+                                          - phi_f[i, j - 1] - phi_f[i, j + 1])
                 elif k == _NEAR:
                     diag, off = _near_operator(phi_f, i, j, h_f, 1 << level, r_out)
-                    res[i, j] = rhs_f[i, j] - (diag * phi_f[i, j] - off)
+                    res[i, j] = source - (diag * phi_f[i, j] - off)
                 else:
                     res[i, j] = 0.0
     c = level + 1
@@ -480,12 +493,20 @@ def _prolong(level, phis, olds, kinds, tiles, n_tiles, halves):
 
 @numba.njit(cache=True)
 def _v_cycle(phis, rhss, olds, ress, kinds, acts, tiles, n_tiles, halves, r_out,
-             coarse_sweeps, coarse_tol, pre, post):
+             coarse_sweeps, coarse_tol, pre, post, fill_first=True):
     """One FAS V(pre, post) cycle over the kept tiles of every level; returns the largest
-    correction of the final fine sweep."""
+    correction of the final fine sweep.
+
+    ``fill_first=False`` skips setting the cells just outside the kept tiles before the
+    first sweep of each level. Valid between cycles of growth: they were set at the end
+    of the previous cycle from the coarser level, which has not changed since where
+    they read it (only new tiles were kept there, and ``_activate`` sets the cells
+    around those), so they already hold what the fill would write.
+    """
     top = len(phis) - 1
     for level in range(top):
-        _fill_ghosts(level, phis, acts, tiles, n_tiles, halves, r_out)
+        if fill_first:
+            _fill_ghosts(level, phis, acts, tiles, n_tiles, halves, r_out)
         _smooth(phis[level], rhss[level], kinds[level], tiles[level], n_tiles[level], pre, 1.0,
                 halves[level], 1 << level, r_out)
         _restrict(level, phis, rhss, olds, ress, kinds, acts, tiles, n_tiles, halves, r_out)
@@ -614,7 +635,7 @@ def _grow_on_grid(sites_i, sites_j, k_done, n_total, uniforms, eta, r_limit,
                         2.0 / (1.0 + math.sin(math.pi / (2.0 * half + 2.0))), tol, max_local)
         if k % cycle_every == 0:
             _v_cycle(phis, rhss, olds, ress, kinds, acts, tiles, n_tiles, halves, r_out,
-                     coarse_sweeps, 0.1 * tol, pre, post)
+                     coarse_sweeps, 0.1 * tol, pre, post, False)
     return k, r_cluster
 
 
