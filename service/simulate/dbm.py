@@ -289,6 +289,17 @@ def _add_site(i, j, phis, kinds, acts, tiles, n_tiles, halves, r_out, reaches):
 
 
 @numba.njit(cache=True)
+def _run_end(tiles, t, n_tile):
+    """End (exclusive) of the run of tiles from ``t`` on that lie side by side in one
+    tile row. The list is in row-major order, so sweeps walk such a run as one strip:
+    longer inner loops, the same cells (and, for red-black sweeps, the same results)."""
+    u = t + 1
+    while u < n_tile and tiles[u, 0] == tiles[t, 0] and tiles[u, 1] == tiles[u - 1, 1] + 1:
+        u += 1
+    return u
+
+
+@numba.njit(cache=True)
 def _smooth(phi, rhs, kind, tiles, n_tile, sweeps, omega, h, scale, r_out):
     """Red-black SOR sweeps (Gauss-Seidel for omega = 1) of A phi = rhs over kept tiles.
 
@@ -300,10 +311,13 @@ def _smooth(phi, rhs, kind, tiles, n_tile, sweeps, omega, h, scale, r_out):
     for _ in range(sweeps):
         biggest = 0.0
         for colour in range(2):
-            for t in range(n_tile):
-                ti, tj = tiles[t, 0], tiles[t, 1]
+            t = 0
+            while t < n_tile:
+                u = _run_end(tiles, t, n_tile)
+                ti = tiles[t, 0]
                 i0, i1 = max(ti * TILE, 1), min(ti * TILE + TILE, side - 1)
-                j0, j1 = max(tj * TILE, 1), min(tj * TILE + TILE, side - 1)
+                j0, j1 = max(tiles[t, 1] * TILE, 1), min(tiles[u - 1, 1] * TILE + TILE, side - 1)
+                t = u
                 for i in range(i0, i1):
                     for j in range(j0 + ((i + j0 + colour) & 1), j1, 2):
                         k = kind[i, j]
@@ -387,10 +401,15 @@ def _restrict(level, phis, rhss, olds, ress, kinds, acts, tiles, n_tiles, halves
     act_f = acts[level]
     side_f = phi_f.shape[0]
     h_f = halves[level]
-    for t in range(n_tiles[level]):
-        ti, tj = tiles[level][t, 0], tiles[level][t, 1]
+    fine_tiles = tiles[level]
+    t = 0
+    while t < n_tiles[level]:
+        u = _run_end(fine_tiles, t, n_tiles[level])
+        ti = fine_tiles[t, 0]
+        j_lo, j_hi = fine_tiles[t, 1] * TILE, min(fine_tiles[u - 1, 1] * TILE + TILE, side_f)
+        t = u
         for i in range(ti * TILE, min(ti * TILE + TILE, side_f)):
-            for j in range(tj * TILE, min(tj * TILE + TILE, side_f)):
+            for j in range(j_lo, j_hi):
                 k = kind_f[i, j]
                 source = rhs_f[i, j] if level > 0 else 0.0  # (level 0: see _smooth)
                 if k == _FREE and 0 < i < side_f - 1 and 0 < j < side_f - 1:
@@ -469,12 +488,18 @@ def _prolong(level, phis, olds, kinds, tiles, n_tiles, halves):
         for a in range(ti * TILE, min(ti * TILE + TILE, side_c)):
             for b in range(tj * TILE, min(tj * TILE + TILE, side_c)):
                 old_c[a, b] = phi_c[a, b] - old_c[a, b]
-    for t in range(n_tiles[level]):
-        ti, tj = tiles[level][t, 0], tiles[level][t, 1]
+    fine_tiles = tiles[level]
+    t = 0
+    while t < n_tiles[level]:
+        u = _run_end(fine_tiles, t, n_tiles[level])
+        ti = fine_tiles[t, 0]
+        j_lo = max(fine_tiles[t, 1] * TILE, 1)
+        j_hi = min(fine_tiles[u - 1, 1] * TILE + TILE, side - 1)
+        t = u
         for i in range(max(ti * TILE, 1), min(ti * TILE + TILE, side - 1)):
             x = i - h
             a = (x >> 1) + h_c
-            for j in range(max(tj * TILE, 1), min(tj * TILE + TILE, side - 1)):
+            for j in range(j_lo, j_hi):
                 if kind[i, j] != _FREE and kind[i, j] != _NEAR:
                     continue
                 y = j - h
