@@ -132,7 +132,7 @@ def _sor_window(phi, kind, i0, i1, j0, j1, omega, tol, max_sweeps):
 # H[0] is a multiple of 2 ** L and exceeds the electrode radius by 2 ** L + 1, so every
 # border cell of every level is electrode. Per level: phi (potential), rhs (FAS right
 # side, 0 on level 0), old (phi before the coarse solve), res (residual), kind, act
-# (tile kept?) and tiles[:n_tiles[l]] (kept tiles, in activation order).
+# (tile kept?) and tiles[:n_tiles[l]] (kept tiles, in row-major order).
 
 
 @numba.njit(cache=True)
@@ -186,6 +186,31 @@ def _interp(phi_c, i, j, h_f, h_c):
 
 
 @numba.njit(cache=True)
+def _insert_tile(tiles, n, ti, tj):
+    """Insert tile (ti, tj) into ``tiles[:n]``, kept in row-major order.
+
+    Every sweep visits the kept tiles in this order. The level arrays are large and
+    touched only near the cluster, so visiting tiles in memory order rather than in
+    the order they were kept cuts the page and cache misses: a V-cycle takes about
+    30 % less time (measured at 6,000 sites, eta 4). Results do not depend on the
+    order (red-black sweeps, and the other passes update each cell from values the
+    pass does not change), so growth is the same bit for bit.
+    """
+    lo, hi = 0, n
+    while lo < hi:
+        mid = (lo + hi) >> 1
+        if tiles[mid, 0] < ti or (tiles[mid, 0] == ti and tiles[mid, 1] < tj):
+            lo = mid + 1
+        else:
+            hi = mid
+    for t in range(n, lo, -1):
+        tiles[t, 0] = tiles[t - 1, 0]
+        tiles[t, 1] = tiles[t - 1, 1]
+    tiles[lo, 0] = ti
+    tiles[lo, 1] = tj
+
+
+@numba.njit(cache=True)
 def _activate(level, ti, tj, phis, kinds, acts, tiles, n_tiles, halves, r_out, profile_r0):
     """Keep tile (ti, tj) of ``level``: mark it, set its kinds and a first potential.
 
@@ -196,8 +221,7 @@ def _activate(level, ti, tj, phis, kinds, acts, tiles, n_tiles, halves, r_out, p
     if acts[level][ti, tj]:
         return
     acts[level][ti, tj] = 1
-    tiles[level][n_tiles[level], 0] = ti
-    tiles[level][n_tiles[level], 1] = tj
+    _insert_tile(tiles[level], n_tiles[level], ti, tj)
     n_tiles[level] += 1
     phi, kind = phis[level], kinds[level]
     side = phi.shape[0]
@@ -221,6 +245,9 @@ def _activate(level, ti, tj, phis, kinds, acts, tiles, n_tiles, halves, r_out, p
                     or _outside(i - h, j - h + 1, scale, r_out)
                     or _outside(i - h, j - h - 1, scale, r_out)):
                 kind[i, j] = _NEAR
+    if not coarsest:
+        _fill_tile_ghosts(phi, acts[level], phis[level + 1], h, halves[level + 1], level, r_out,
+                          ti, tj)
 
 
 @numba.njit(cache=True)
@@ -262,6 +289,17 @@ def _add_site(i, j, phis, kinds, acts, tiles, n_tiles, halves, r_out, reaches):
 
 
 @numba.njit(cache=True)
+def _run_end(tiles, t, n_tile):
+    """End (exclusive) of the run of tiles from ``t`` on that lie side by side in one
+    tile row. The list is in row-major order, so sweeps walk such a run as one strip:
+    longer inner loops, the same cells (and, for red-black sweeps, the same results)."""
+    u = t + 1
+    while u < n_tile and tiles[u, 0] == tiles[t, 0] and tiles[u, 1] == tiles[u - 1, 1] + 1:
+        u += 1
+    return u
+
+
+@numba.njit(cache=True)
 def _smooth(phi, rhs, kind, tiles, n_tile, sweeps, omega, h, scale, r_out):
     """Red-black SOR sweeps (Gauss-Seidel for omega = 1) of A phi = rhs over kept tiles.
 
@@ -273,19 +311,25 @@ def _smooth(phi, rhs, kind, tiles, n_tile, sweeps, omega, h, scale, r_out):
     for _ in range(sweeps):
         biggest = 0.0
         for colour in range(2):
-            for t in range(n_tile):
-                ti, tj = tiles[t, 0], tiles[t, 1]
+            t = 0
+            while t < n_tile:
+                u = _run_end(tiles, t, n_tile)
+                ti = tiles[t, 0]
                 i0, i1 = max(ti * TILE, 1), min(ti * TILE + TILE, side - 1)
-                j0, j1 = max(tj * TILE, 1), min(tj * TILE + TILE, side - 1)
+                j0, j1 = max(tiles[t, 1] * TILE, 1), min(tiles[u - 1, 1] * TILE + TILE, side - 1)
+                t = u
                 for i in range(i0, i1):
                     for j in range(j0 + ((i + j0 + colour) & 1), j1, 2):
                         k = kind[i, j]
+                        # the finest level's right side is 0: not reading it spares the
+                        # memory traffic of one large array (the sum is the same)
+                        source = rhs[i, j] if scale > 1 else 0.0
                         if k == _FREE:
                             new = 0.25 * (phi[i - 1, j] + phi[i + 1, j] + phi[i, j - 1]
-                                          + phi[i, j + 1] + rhs[i, j])
+                                          + phi[i, j + 1] + source)
                         elif k == _NEAR:
                             diag, off = _near_operator(phi, i, j, h, scale, r_out)
-                            new = (off + rhs[i, j]) / diag
+                            new = (off + source) / diag
                         else:
                             continue
                         delta = new - phi[i, j]
@@ -298,44 +342,50 @@ def _smooth(phi, rhs, kind, tiles, n_tile, sweeps, omega, h, scale, r_out):
 @numba.njit(cache=True)
 def _fill_ghosts(level, phis, acts, tiles, n_tiles, halves, r_out):
     """Set the cells just outside the kept tiles of ``level`` from the coarser level."""
-    phi, act = phis[level], acts[level]
+    phi, act, phi_c, lst = phis[level], acts[level], phis[level + 1], tiles[level]
+    h, h_c = halves[level], halves[level + 1]
+    for t in range(n_tiles[level]):
+        _fill_tile_ghosts(phi, act, phi_c, h, h_c, level, r_out, lst[t, 0], lst[t, 1])
+
+
+@numba.njit(cache=True)
+def _fill_tile_ghosts(phi, act, phi_c, h, h_c, level, r_out, ti, tj):
+    """Set the cells just outside kept tile (ti, tj) of a level (those not in another
+    kept tile) from the coarser level ``phi_c``, by bilinear interpolation or as
+    electrode."""
     side = phi.shape[0]
     n_t = act.shape[0]
-    h, h_c = halves[level], halves[level + 1]
-    phi_c = phis[level + 1]
     scale = 1 << level
-    for t in range(n_tiles[level]):
-        ti, tj = tiles[level][t, 0], tiles[level][t, 1]
-        for side_k in range(4):
-            ni, nj = ti, tj
-            if side_k == 0:
-                ni += 1
-            elif side_k == 1:
-                ni -= 1
-            elif side_k == 2:
-                nj += 1
-            else:
-                nj -= 1
-            if ni < 0 or nj < 0 or ni >= n_t or nj >= n_t or act[ni, nj]:
+    for side_k in range(4):
+        ni, nj = ti, tj
+        if side_k == 0:
+            ni += 1
+        elif side_k == 1:
+            ni -= 1
+        elif side_k == 2:
+            nj += 1
+        else:
+            nj -= 1
+        if ni < 0 or nj < 0 or ni >= n_t or nj >= n_t or act[ni, nj]:
+            continue
+        if side_k < 2:
+            i = ti * TILE + TILE if side_k == 0 else ti * TILE - 1
+            if i < 0 or i >= side:
                 continue
-            if side_k < 2:
-                i = ti * TILE + TILE if side_k == 0 else ti * TILE - 1
-                if i < 0 or i >= side:
-                    continue
-                for j in range(tj * TILE, min(tj * TILE + TILE, side)):
-                    if _outside(i - h, j - h, scale, r_out):
-                        phi[i, j] = 1.0
-                    else:
-                        phi[i, j] = _interp(phi_c, i, j, h, h_c)
-            else:
-                j = tj * TILE + TILE if side_k == 2 else tj * TILE - 1
-                if j < 0 or j >= side:
-                    continue
-                for i in range(ti * TILE, min(ti * TILE + TILE, side)):
-                    if _outside(i - h, j - h, scale, r_out):
-                        phi[i, j] = 1.0
-                    else:
-                        phi[i, j] = _interp(phi_c, i, j, h, h_c)
+            for j in range(tj * TILE, min(tj * TILE + TILE, side)):
+                if _outside(i - h, j - h, scale, r_out):
+                    phi[i, j] = 1.0
+                else:
+                    phi[i, j] = _interp(phi_c, i, j, h, h_c)
+        else:
+            j = tj * TILE + TILE if side_k == 2 else tj * TILE - 1
+            if j < 0 or j >= side:
+                continue
+            for i in range(ti * TILE, min(ti * TILE + TILE, side)):
+                if _outside(i - h, j - h, scale, r_out):
+                    phi[i, j] = 1.0
+                else:
+                    phi[i, j] = _interp(phi_c, i, j, h, h_c)
 
 
 @numba.njit(cache=True)
@@ -351,46 +401,45 @@ def _restrict(level, phis, rhss, olds, ress, kinds, acts, tiles, n_tiles, halves
     act_f = acts[level]
     side_f = phi_f.shape[0]
     h_f = halves[level]
-    for t in range(n_tiles[level]):
-        ti, tj = tiles[level][t, 0], tiles[level][t, 1]
+    fine_tiles = tiles[level]
+    t = 0
+    while t < n_tiles[level]:
+        u = _run_end(fine_tiles, t, n_tiles[level])
+        ti = fine_tiles[t, 0]
+        j_lo, j_hi = fine_tiles[t, 1] * TILE, min(fine_tiles[u - 1, 1] * TILE + TILE, side_f)
+        t = u
         for i in range(ti * TILE, min(ti * TILE + TILE, side_f)):
-            for j in range(tj * TILE, min(tj * TILE + TILE, side_f)):
+            for j in range(j_lo, j_hi):
                 k = kind_f[i, j]
+                source = rhs_f[i, j] if level > 0 else 0.0  # (level 0: see _smooth)
                 if k == _FREE and 0 < i < side_f - 1 and 0 < j < side_f - 1:
-                    res[i, j] = rhs_f[i, j] - (4.0 * phi_f[i, j] - phi_f[i - 1, j] - phi_f[i + 1, j]
-                                               - phi_f[i, j - 1] - phi_f[i, j + 1])
+                    res[i, j] = source - (4.0 * phi_f[i, j] - phi_f[i - 1, j] - phi_f[i + 1, j]
+                                          - phi_f[i, j - 1] - phi_f[i, j + 1])
                 elif k == _NEAR:
                     diag, off = _near_operator(phi_f, i, j, h_f, 1 << level, r_out)
-                    res[i, j] = rhs_f[i, j] - (diag * phi_f[i, j] - off)
+                    res[i, j] = source - (diag * phi_f[i, j] - off)
                 else:
                     res[i, j] = 0.0
     c = level + 1
     phi, rhs, old, kind = phis[c], rhss[c], olds[c], kinds[c]
     side = phi.shape[0]
     h = halves[c]
-    n_tf = act_f.shape[0]
     tiles_c = tiles[c]
-    for t in range(n_tiles[c]):
-        ti, tj = tiles_c[t, 0], tiles_c[t, 1]
+    t = 0
+    while t < n_tiles[c]:
+        u = _run_end(tiles_c, t, n_tiles[c])
+        ti = tiles_c[t, 0]
         a0, a1 = ti * TILE, min(ti * TILE + TILE, side)
-        b0, b1 = tj * TILE, min(tj * TILE + TILE, side)
-        # the whole tile is covered when every fine tile under its stencils is kept
-        r0, r1 = 2 * (a0 - h) + h_f - 1, 2 * (a1 - 1 - h) + h_f + 1
-        q0, q1 = 2 * (b0 - h) + h_f - 1, 2 * (b1 - 1 - h) + h_f + 1
-        whole = r0 >= 0 and q0 >= 0 and r1 < side_f and q1 < side_f
-        if whole:
-            for u in range(r0 // TILE, r1 // TILE + 1):
-                for v in range(q0 // TILE, q1 // TILE + 1):
-                    if u >= n_tf or v >= n_tf or not act_f[u, v]:
-                        whole = False
+        b0, b1 = tiles_c[t, 1] * TILE, min(tiles_c[u - 1, 1] * TILE + TILE, side)
+        t = u
         for a in range(a0, a1):
             for b in range(b0, b1):
                 fi, fj = 2 * (a - h) + h_f, 2 * (b - h) + h_f
-                covered = whole or (0 < fi < side_f - 1 and 0 < fj < side_f - 1
-                                    and act_f[(fi - 1) // TILE, (fj - 1) // TILE]
-                                    and act_f[(fi - 1) // TILE, (fj + 1) // TILE]
-                                    and act_f[(fi + 1) // TILE, (fj - 1) // TILE]
-                                    and act_f[(fi + 1) // TILE, (fj + 1) // TILE])
+                covered = (0 < fi < side_f - 1 and 0 < fj < side_f - 1
+                           and act_f[(fi - 1) // TILE, (fj - 1) // TILE]
+                           and act_f[(fi - 1) // TILE, (fj + 1) // TILE]
+                           and act_f[(fi + 1) // TILE, (fj - 1) // TILE]
+                           and act_f[(fi + 1) // TILE, (fj + 1) // TILE])
                 if covered and kind[a, b] != _ELECTRODE:
                     phi[a, b] = phi_f[fi, fj]
                     rhs[a, b] = 4.0 * (0.25 * res[fi, fj] + 0.125 * (
@@ -403,10 +452,14 @@ def _restrict(level, phis, rhss, olds, ress, kinds, acts, tiles, n_tiles, halves
                     old[a, b] = 0.0
     # second pass: add A(injected) to covered free cells (needs all injections done),
     # and remember the coarse potential before the coarse solve
-    for t in range(n_tiles[c]):
-        ti, tj = tiles_c[t, 0], tiles_c[t, 1]
+    t = 0
+    while t < n_tiles[c]:
+        u = _run_end(tiles_c, t, n_tiles[c])
+        ti = tiles_c[t, 0]
+        b0, b1 = tiles_c[t, 1] * TILE, min(tiles_c[u - 1, 1] * TILE + TILE, side)
+        t = u
         for a in range(ti * TILE, min(ti * TILE + TILE, side)):
-            for b in range(tj * TILE, min(tj * TILE + TILE, side)):
+            for b in range(b0, b1):
                 if old[a, b] == 1.0 and 0 < a < side - 1 and 0 < b < side - 1:
                     if kind[a, b] == _FREE:
                         rhs[a, b] += (4.0 * phi[a, b] - phi[a - 1, b] - phi[a + 1, b]
@@ -427,17 +480,28 @@ def _prolong(level, phis, olds, kinds, tiles, n_tiles, halves):
     phi_c, old_c = phis[level + 1], olds[level + 1]
     h, h_c = halves[level], halves[level + 1]
     side_c = phi_c.shape[0]
-    for t in range(n_tiles[level + 1]):
-        ti, tj = tiles[level + 1][t, 0], tiles[level + 1][t, 1]
+    coarse_tiles = tiles[level + 1]
+    t = 0
+    while t < n_tiles[level + 1]:
+        u = _run_end(coarse_tiles, t, n_tiles[level + 1])
+        ti = coarse_tiles[t, 0]
+        b0, b1 = coarse_tiles[t, 1] * TILE, min(coarse_tiles[u - 1, 1] * TILE + TILE, side_c)
+        t = u
         for a in range(ti * TILE, min(ti * TILE + TILE, side_c)):
-            for b in range(tj * TILE, min(tj * TILE + TILE, side_c)):
+            for b in range(b0, b1):
                 old_c[a, b] = phi_c[a, b] - old_c[a, b]
-    for t in range(n_tiles[level]):
-        ti, tj = tiles[level][t, 0], tiles[level][t, 1]
+    fine_tiles = tiles[level]
+    t = 0
+    while t < n_tiles[level]:
+        u = _run_end(fine_tiles, t, n_tiles[level])
+        ti = fine_tiles[t, 0]
+        j_lo = max(fine_tiles[t, 1] * TILE, 1)
+        j_hi = min(fine_tiles[u - 1, 1] * TILE + TILE, side - 1)
+        t = u
         for i in range(max(ti * TILE, 1), min(ti * TILE + TILE, side - 1)):
             x = i - h
             a = (x >> 1) + h_c
-            for j in range(max(tj * TILE, 1), min(tj * TILE + TILE, side - 1)):
+            for j in range(j_lo, j_hi):
                 if kind[i, j] != _FREE and kind[i, j] != _NEAR:
                     continue
                 y = j - h
@@ -456,12 +520,20 @@ def _prolong(level, phis, olds, kinds, tiles, n_tiles, halves):
 
 @numba.njit(cache=True)
 def _v_cycle(phis, rhss, olds, ress, kinds, acts, tiles, n_tiles, halves, r_out,
-             coarse_sweeps, coarse_tol, pre, post):
+             coarse_sweeps, coarse_tol, pre, post, fill_first=True):
     """One FAS V(pre, post) cycle over the kept tiles of every level; returns the largest
-    correction of the final fine sweep."""
+    correction of the final fine sweep.
+
+    ``fill_first=False`` skips setting the cells just outside the kept tiles before the
+    first sweep of each level. Valid between cycles of growth: they were set at the end
+    of the previous cycle from the coarser level, which has not changed since where
+    they read it (only new tiles were kept there, and ``_activate`` sets the cells
+    around those), so they already hold what the fill would write.
+    """
     top = len(phis) - 1
     for level in range(top):
-        _fill_ghosts(level, phis, acts, tiles, n_tiles, halves, r_out)
+        if fill_first:
+            _fill_ghosts(level, phis, acts, tiles, n_tiles, halves, r_out)
         _smooth(phis[level], rhss[level], kinds[level], tiles[level], n_tiles[level], pre, 1.0,
                 halves[level], 1 << level, r_out)
         _restrict(level, phis, rhss, olds, ress, kinds, acts, tiles, n_tiles, halves, r_out)
@@ -590,7 +662,7 @@ def _grow_on_grid(sites_i, sites_j, k_done, n_total, uniforms, eta, r_limit,
                         2.0 / (1.0 + math.sin(math.pi / (2.0 * half + 2.0))), tol, max_local)
         if k % cycle_every == 0:
             _v_cycle(phis, rhss, olds, ress, kinds, acts, tiles, n_tiles, halves, r_out,
-                     coarse_sweeps, 0.1 * tol, pre, post)
+                     coarse_sweeps, 0.1 * tol, pre, post, False)
     return k, r_cluster
 
 
@@ -878,14 +950,22 @@ def dbm(n_particles: int, *, eta: float, seed: int, outer_radius: int | None = N
     Why this solver (measured on the 2-core machine, under load, same run): an
     algebraic multigrid library (pyamg 5.4.1, smoothed aggregation) would need a new
     hierarchy or a stale preconditioner every step, since each new site changes the
-    matrix. On the full electrode disc of a 3,000-site cluster at eta = 2 (5.4 x 10^5
-    unknowns) its setup took 14 s, one V-cycle 0.36 s and a warm-started CG solve to
-    1e-6 2.9 s, against 19 ms for one V-cycle of this hierarchy on the same cluster;
-    at eta = 4 the disc holds tens of millions of unknowns. The previous solver here
-    (windowed SOR with two-grid cycles over the whole disc, kept as the baseline in
-    ``benchmarks/_dbm_baseline.py``) swept the whole disc every step, 2 to 2.5 cluster
-    radii across, which at eta >= 3 is hundreds of times the cluster's neighbourhood.
-    Figures: ``benchmarks/bench_dbm.py``.
+    matrix. On the full electrode disc of a 3,000-site cluster at eta = 2 (8.7 x 10^5
+    unknowns) its setup took 1.5 s, one V-cycle 139 ms and a warm-started CG solve to
+    1e-6 1.0 s, against 3 ms for one V-cycle of this hierarchy on the same cluster; at
+    eta = 4 the disc holds tens of millions of unknowns. A V-cycle restricted to the
+    tiles whose potential still moves (an active-set cycle in the spirit of Rüde's fully
+    adaptive multigrid) was tried and measured slower (62 s against 7 s for 3,000 sites
+    at eta = 4): next to the cluster one cycle of this hierarchy leaves about 0.6 of the
+    error (coarse cells within half a spacing of a site are held), so the
+    corrections stay above tolerance on about half of the tiles every step. What paid
+    off is the order of the work (same arithmetic, so the same clusters bit for bit):
+    tiles visited in row-major order, runs of side-by-side tiles swept as one strip, no
+    reads of the finest level's zero right side, no refills of ghost cells that already
+    hold their values; together 1.3-1.7x less CPU time at 10,000 sites. The solver before
+    the multigrid hierarchy swept the whole disc every step, 2 to 2.5 cluster radii
+    across, which at eta >= 3 is hundreds of times the cluster's neighbourhood.
+    Figures: ``benchmarks/bench_dbm.py`` (the solver before issue 11 beside this one).
 
     Accuracy: against a direct sparse solve of the same lattice problem (cluster at 0,
     the fine electrode circle at 1), the growth probabilities of the 10 most probable
