@@ -124,7 +124,8 @@ def scaling_range(
     widths (at least ``MIN_BOX_PX``); a range narrower than ``MIN_FIT_SPAN`` is widened
     downwards. A ``compact`` specimen is measured from 1 px to ``1 / COMPACT_UPPER_WIDTHS`` of
     its width, where it is two-dimensional and its outline does not yet weigh on the
-    counts. Narrow or compact cases carry a warning naming ``what`` was fitted.
+    counts. Compact cases carry a warning naming ``what`` was fitted (a short range is
+    warned of by ``_fit_mask``, which knows the scales actually fitted).
     """
     warnings: list[str] = []
     upper = max(upper_px, 1.0)
@@ -140,12 +141,6 @@ def scaling_range(
         lower = max(MIN_BOX_PX, LOWER_CUTOFF_WIDTHS * width_px)
         if upper / lower < MIN_FIT_SPAN:
             lower = max(1.0, upper / MIN_FIT_SPAN)
-    if upper / lower < MIN_TRUSTED_SPAN:
-        warnings.append(Caveat(
-            f"{_subject(what)}_short_range",
-            f"{what}: the scaling range {lower:.1f}-{upper:.1f} px spans less than one decade; "
-            "the dimension is uncertain",
-        ))
     return lower, upper, warnings
 
 
@@ -167,6 +162,14 @@ def _fit_mask(scales: np.ndarray, lower: float, upper: float, what: str, warning
         in_fit = np.zeros(scales.size, dtype=bool)
         in_fit[nearest] = True
         warnings.append(Caveat(f"{_subject(what)}_few_scales", f"{what}: fewer than three scales in the scaling range"))
+    # Said of the scales actually fitted, so the warning names the range the result shows.
+    fitted = scales[in_fit]
+    if fitted.max() / fitted.min() < MIN_TRUSTED_SPAN:
+        warnings.append(Caveat(
+            f"{_subject(what)}_short_range",
+            f"{what}: the scales fitted, {fitted.min():g}-{fitted.max():g} px, span less than one decade; "
+            "the dimension is uncertain",
+        ))
     return in_fit
 
 

@@ -212,26 +212,34 @@ async def create_specimen(
     return await _specimen_answer(store, record, lab)
 
 
+#: Substring filter on labels (case-insensitive; % and _ are plain characters).
+LabelPart = Annotated[str | None, Query(max_length=200, description="only specimens whose label contains this text, "
+                                                                    "ignoring case")]
+
+
 @router.get("/specimens", response_model=SpecimenPage, summary="List specimens, newest first")
 async def list_specimens(
     limit: Annotated[int, Query(ge=1, le=500)] = 50,
     offset: Annotated[int, Query(ge=0, le=2**31 - 1)] = 0,  # bounded: the database's integer
-    label: Annotated[str | None, Query(max_length=200, description="only specimens with this label")] = None,
+    label: Annotated[str | None, Query(max_length=200, description="only specimens with exactly this label")] = None,
+    label_contains: LabelPart = None,
     store: Store = Depends(get_store),
     lab: str | None = Depends(current_lab),
 ) -> SpecimenPage:
-    records, total = await run_in_threadpool(store.list, owner=lab, label=label, limit=limit, offset=offset)
+    records, total = await run_in_threadpool(store.list, owner=lab, label=label, label_contains=label_contains,
+                                             limit=limit, offset=offset)
     return SpecimenPage(total=total, limit=limit, offset=offset, items=[SpecimenSummary(**summary(r)) for r in records])
 
 
 # Declared before /specimens/{specimen_id} so that "export.csv" is not taken for an id.
 @router.get("/specimens/export.csv", response_class=Response, summary="CSV of every specimen (label filter)")
 async def export_all(
-    label: Annotated[str | None, Query(max_length=200)] = None,
+    label: Annotated[str | None, Query(max_length=200, description="only specimens with exactly this label")] = None,
+    label_contains: LabelPart = None,
     store: Store = Depends(get_store),
     lab: str | None = Depends(current_lab),
 ) -> Response:
-    records, _ = await run_in_threadpool(store.list, owner=lab, label=label, limit=None)
+    records, _ = await run_in_threadpool(store.list, owner=lab, label=label, label_contains=label_contains, limit=None)
     return _csv(specimens_csv(records), "ramiform-specimens.csv")
 
 

@@ -64,6 +64,11 @@ def test_upload_read_list_export_delete(client, dla_png):
     page = client.get("/api/specimens", params={"limit": 1, "offset": 1}).json()["items"]
     assert [s["id"] for s in page] == [body["id"]]
     assert [s["id"] for s in client.get("/api/specimens", params={"label": "B"}).json()["items"]] == [second["id"]]
+    # a part of a label, any case: "dish <b>A</b>" holds "<B>A"
+    part = client.get("/api/specimens", params={"label_contains": "<B>a"}).json()["items"]
+    assert [s["id"] for s in part] == [body["id"]]
+    some = client.get("/api/specimens/export.csv", params={"label_contains": "dish"})
+    assert [r["id"] for r in csv.DictReader(io.StringIO(some.text))] == [body["id"]]
 
     # CSV: one specimen, and the whole list (the route is not mistaken for an id)
     one = list(csv.DictReader(io.StringIO(client.get(f"/api/specimens/{body['id']}/export.csv").text)))
