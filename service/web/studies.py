@@ -349,9 +349,12 @@ async def read_conditions(specimen_id: str, store: Store = Depends(get_store),
 
 @router.put("/api/specimens/{specimen_id}/conditions", responses=_ATTACH_ERRORS,
             summary="Set a specimen's conditions (merged, or replaced with replace=true)")
-async def put_conditions(specimen_id: str, body: ConditionsIn, studies: StudyStore = Depends(get_studies),
+async def put_conditions(specimen_id: str, body: ConditionsIn, store: Store = Depends(get_store),
+                         studies: StudyStore = Depends(get_studies),
                          lab: str | None = Depends(current_lab)) -> dict[str, Any]:
     parsed = parse_conditions(body.conditions)
+    if await run_in_threadpool(store.get, specimen_id, owner=lab) is None:  # a film's are under /api/films
+        raise HTTPException(404, f"no specimen {specimen_id!r}")
     merged = await run_in_threadpool(lambda: studies.set_conditions(specimen_id, parsed, owner=lab,
                                                                    replace=body.replace))
     if merged is None:

@@ -91,7 +91,7 @@ def test_a_film_and_a_specimen_in_one_study(client, film, specimen):
     assert float(rows[1]["film.front_velocity_px_per_s"]) == velocity["value"]
     assert float(rows[1]["film.front_velocity_px_per_s_ci95_low"]) == velocity["ci95"][0]
     assert rows[0]["film.front_velocity_px_per_s"] == ""
-    assert "growth film" in client.get(study["page_url"]).text
+    assert "growth film (last frame)" in client.get(study["page_url"]).text  # the row says what it is
 
 
 def test_a_bad_unit_on_a_film_stores_nothing(client, video, film):
@@ -114,3 +114,10 @@ def test_deleting_a_film_drops_its_study_rows_and_conditions(client, video, spec
     from service.store import StudyStore
 
     assert StudyStore(client.app.state.store.engine).conditions_of(extra["id"]) == {}
+
+
+def test_a_film_is_not_a_specimen_on_the_specimen_routes(client, film):
+    assert client.get(f"/api/specimens/{film['id']}/conditions").status_code == 404
+    assert client.put(f"/api/specimens/{film['id']}/conditions",
+                      json={"conditions": {"voltage": "1 V"}}).status_code == 404
+    assert client.get(f"/api/films/{film['id']}/conditions").json()["voltage"]["canonical_value"] == 4.0
