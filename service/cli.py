@@ -98,6 +98,10 @@ def _add_film(sub: argparse._SubParsersAction) -> None:
                    help="radius of the rim electrode from the centre electrode, mm (needs --pixel-size)")
     p.add_argument("--pixel-size", type=_positive, default=None, metavar="MM", help="pixel size in millimetres")
     p.add_argument("--library", default=None, metavar="DIR", help="reference set (default: the bundled one)")
+    p.add_argument("--conditions", default=None, metavar="TEXT",
+                   help='the run\'s conditions, e.g. "voltage = 4 V; electrolyte = CuSO4" (or a JSON object); '
+                        "they appear under 'conditions' in the result; a unit that does not parse stops "
+                        "before any work (status 2)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=_run_film)
 

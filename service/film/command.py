@@ -55,6 +55,10 @@ def summary_lines(body: dict[str, Any]) -> list[str]:
     matches = final.get("matches") or []
     if matches:
         lines.append(f"last frame ranks nearest: {matches[0]['regime']} (p = {matches[0]['probability']:.2f})")
+    if body.get("conditions"):
+        lines.append("conditions: " + "; ".join(
+            f"{name} = {c['value']}" + (f" {c['unit']}" if c.get("unit") else "")
+            for name, c in body["conditions"].items()))
     lines.extend(f"warning: {w}" for w in body.get("warnings", []))
     return lines
 
@@ -65,6 +69,20 @@ def run_film_command(args, *, out: TextIO | None = None, err: TextIO | None = No
     from service.film import FilmOptions, analyze_film
 
     paths = [Path(p) for p in args.film]
+    conditions = None
+    if getattr(args, "conditions", None) is not None:
+        from service.study import conditions_to_dict, parse_conditions_text
+
+        try:  # before any work: a unit that does not parse reads no frame
+            conditions = conditions_to_dict(parse_conditions_text(args.conditions))
+        except RamiformError as exc:
+            error = {"error": {"status": exc.status_code, "type": type(exc).__name__,
+                               "detail": f"--conditions: {exc}"}, "film": [str(p) for p in paths]}
+            if args.json:
+                out.write(json.dumps(error) + "\n")
+            else:
+                err.write(f"error: --conditions: {exc}\n")
+            return 2
     options = FilmOptions(filename=paths[0].name if len(paths) == 1 else None,
                           frame_interval_s=args.frame_interval, rim_radius_mm=args.rim_radius_mm,
                           pixel_size_mm=args.pixel_size, library_dir=args.library)
@@ -84,6 +102,8 @@ def run_film_command(args, *, out: TextIO | None = None, err: TextIO | None = No
             err.write(f"error: {exc}\n")
         return 1
     body = result.to_dict()
+    if conditions is not None:
+        body["conditions"] = conditions
     if args.json:
         out.write(json.dumps(body, allow_nan=False, separators=(",", ":")) + "\n")
     else:

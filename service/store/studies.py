@@ -1,9 +1,11 @@
-"""Studies in the store: a study groups specimens; each specimen carries its conditions.
+"""Studies in the store: a study groups specimens and growth films; each carries its conditions.
 
 Three tables beside the specimens (created by ``Store.create_schema`` like every table of
 ``Base``): ``studies``, ``study_members`` (study, specimen) and ``specimen_conditions``
 (one row per condition of a specimen, so the same specimen shows the same conditions in
-every study it belongs to). Each change is one transaction: a request that fails (an
+every study it belongs to). A growth film (table ``films``) is a member the same way: its
+``specimen_id`` columns hold the film's id (ids of both tables come from one random
+generator, see ``new_specimen_id``), and every id is resolved in both tables. Each change is one transaction: a request that fails (an
 unknown specimen, a condition clashing with the study's) changes nothing.
 """
 
@@ -15,18 +17,20 @@ from dataclasses import dataclass
 from datetime import datetime, timezone
 from typing import Any
 
-from sqlalchemy import DateTime, Engine, Float, Integer, String, UniqueConstraint, delete, func, select
+from sqlalchemy import DateTime, Engine, Float, Integer, String, UniqueConstraint, delete, func, or_, select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Mapped, Session, mapped_column
 
 from service.errors import ConflictError, RamiformError
+from service.store.films import FilmRecord, FilmRow
+from service.store.films import _record as _film_record
 from service.store.models import Base, SpecimenRow
 from service.store.store import SpecimenRecord, _record, _utc
 from service.study.conditions import Condition, check_consistent, parse_condition
 
 
 class UnknownSpecimenError(RamiformError):
-    """A specimen named in a request does not exist (or is another lab's); nothing was changed."""
+    """A specimen or film named in a request does not exist (or is another lab's); nothing was changed."""
 
     status_code = 404
 
@@ -124,8 +128,10 @@ class StudyStore:
 
     def _counts(self, session: Session, ids: Sequence[str]) -> dict[str, int]:
         query = (select(StudyMemberRow.study_id, func.count())
-                 .join(SpecimenRow, SpecimenRow.id == StudyMemberRow.specimen_id)
-                 .where(StudyMemberRow.study_id.in_(ids)).group_by(StudyMemberRow.study_id))
+                 .where(StudyMemberRow.study_id.in_(ids),
+                        or_(StudyMemberRow.specimen_id.in_(select(SpecimenRow.id)),
+                            StudyMemberRow.specimen_id.in_(select(FilmRow.id))))
+                 .group_by(StudyMemberRow.study_id))
         return {study_id: int(n) for study_id, n in session.execute(query)}
 
     def list(self, *, owner: str | None = None, name: str | None = None) -> list[StudyRecord]:
@@ -176,15 +182,19 @@ class StudyStore:
         return list(session.scalars(query))
 
     def members(self, study_id: str, *, owner: str | None = None
-                ) -> list[tuple[SpecimenRecord, dict[str, Condition]]] | None:
-        """The study's specimens in the order added, each with its conditions; ``None`` when
-        the study is not the owner's. A specimen deleted since is left out."""
+                ) -> list[tuple[SpecimenRecord | FilmRecord, dict[str, Condition]]] | None:
+        """The study's specimens and films in the order added, each with its conditions; ``None``
+        when the study is not the owner's. A specimen or film deleted since is left out."""
         with Session(self.engine) as session:
             study = session.get(StudyRow, study_id)
             if study is None or (owner is not None and study.owner != owner):
                 return None
             ids = self._member_ids(session, study_id)
-            specimens = {row.id: _record(row) for row in session.scalars(select(SpecimenRow).where(SpecimenRow.id.in_(ids)))}
+            specimens: dict[str, SpecimenRecord | FilmRecord] = {
+                row.id: _record(row) for row in session.scalars(select(SpecimenRow).where(SpecimenRow.id.in_(ids)))}
+            specimens.update({row.id: _film_record(row)
+                              for row in session.scalars(select(FilmRow).where(FilmRow.id.in_(ids)))
+                              if row.id not in specimens})
             conditions = self._conditions(session, list(specimens))
         return [(specimens[i], conditions[i]) for i in ids if i in specimens]
 
@@ -192,14 +202,22 @@ class StudyStore:
         with Session(self.engine) as session:
             return self._conditions(session, [specimen_id])[specimen_id]
 
+    @staticmethod
+    def _known(session: Session, ids: Sequence[str], owner: str | None) -> set[str]:
+        """The ids among ``ids`` naming a specimen or a film of the owner's."""
+        known: set[str] = set()
+        for row_type in (SpecimenRow, FilmRow):
+            query = select(row_type.id).where(row_type.id.in_(ids))
+            if owner is not None:
+                query = query.where(row_type.owner == owner)
+            known.update(session.scalars(query))
+        return known
+
     def _check_specimens(self, session: Session, ids: Sequence[str], owner: str | None) -> None:
-        query = select(SpecimenRow.id).where(SpecimenRow.id.in_(ids))
-        if owner is not None:
-            query = query.where(SpecimenRow.owner == owner)
-        known = set(session.scalars(query))
+        known = self._known(session, ids, owner)
         missing = [i for i in ids if i not in known]
         if missing:
-            raise UnknownSpecimenError(f"no specimen {missing[0]!r}" + (f" (and {len(missing) - 1} more)"
+            raise UnknownSpecimenError(f"no specimen or film {missing[0]!r}" + (f" (and {len(missing) - 1} more)"
                                                                         if len(missing) > 1 else "")
                                        + "; nothing was attached")
 
@@ -226,7 +244,7 @@ class StudyStore:
 
     def attach(self, study_id: str, entries: Sequence[tuple[str, Mapping[str, Condition] | None]], *,
                owner: str | None = None) -> bool:
-        """Add specimens (each optionally with conditions, merged into its own) to the study.
+        """Add specimens or films by id (each optionally with conditions, merged into its own) to the study.
 
         All or nothing: an unknown specimen raises ``UnknownSpecimenError`` (404), a
         condition whose quantity clashes with the same name elsewhere in one of its studies
@@ -272,18 +290,17 @@ class StudyStore:
             return bool(result.rowcount)
 
     def forget_specimen(self, specimen_id: str) -> None:
-        """Drop a deleted specimen's memberships and conditions (reads already skip them)."""
+        """Drop a deleted specimen's (or film's) memberships and conditions (reads already skip them)."""
         with Session(self.engine) as session, session.begin():
             session.execute(delete(StudyMemberRow).where(StudyMemberRow.specimen_id == specimen_id))
             session.execute(delete(SpecimenConditionRow).where(SpecimenConditionRow.specimen_id == specimen_id))
 
     def set_conditions(self, specimen_id: str, conditions: Mapping[str, Condition], *, owner: str | None = None,
                        replace: bool = False) -> dict[str, Condition] | None:
-        """Merge (or with ``replace`` set) the specimen's conditions; ``None`` when it is not the
-        owner's. A clash with one of its studies raises ConditionError and changes nothing."""
+        """Merge (or with ``replace`` set) the conditions of a specimen or film; ``None`` when it is
+        not the owner's. A clash with one of its studies raises ConditionError and changes nothing."""
         with Session(self.engine) as session, session.begin():
-            row = session.get(SpecimenRow, specimen_id)
-            if row is None or (owner is not None and row.owner != owner):
+            if specimen_id not in self._known(session, [specimen_id], owner):
                 return None
             current = self._conditions(session, [specimen_id])[specimen_id]
             merged = dict(conditions) if replace else {**current, **conditions}

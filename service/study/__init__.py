@@ -28,6 +28,7 @@ from service.study.table import (
     axis_for,
     condition_names,
     diagram,
+    growth_measurements_of,
     measurements_of,
     quantities,
     regime_groups,
@@ -42,7 +43,7 @@ from service.study.table_csv import parse_header, read_conditions_table
 __all__ = [
     "CANONICAL_UNITS", "KNOWN_UNITS", "Axis", "Condition", "ConditionError", "DiagramPoint", "Measurement",
     "Member", "Point", "Row", "Series", "axis_for", "check_consistent", "condition_names", "conditions_to_dict",
-    "diagram", "measurements_of", "parse_condition", "parse_conditions", "parse_conditions_text", "parse_header", "parse_unit",
+    "diagram", "growth_measurements_of", "measurements_of", "parse_condition", "parse_conditions", "parse_conditions_text", "parse_header", "parse_unit",
     "quantities", "read_conditions_table", "regime_groups", "regime_series", "series", "study_csv",
     "study_rows", "verdict_of",
 ]

@@ -21,17 +21,32 @@ from service.study.conditions import CANONICAL_UNITS, Condition, ConditionError,
 
 @dataclass(frozen=True)
 class Member:
-    """One specimen of a study as the store hands it over."""
+    """One specimen (or growth film) of a study as the store hands it over.
+
+    For a film (``kind="film"``) ``analysis`` is its ``final`` analysis (the last frame, ranked
+    like a photograph) and ``growth`` the film's whole JSON, from which the growth figures
+    worth plotting against conditions join the row (:func:`growth_measurements_of`).
+    """
 
     specimen_id: str
     label: str | None
     filename: str | None
     analysis: Mapping[str, Any]
     conditions: Mapping[str, Condition]
+    kind: str = "specimen"
+    growth: Mapping[str, Any] | None = None
 
     @property
     def name(self) -> str:
         return self.label or self.filename or self.specimen_id[:8]
+
+    @classmethod
+    def of_film(cls, film_id: str, label: str | None, filename: str | None, film: Mapping[str, Any],
+                conditions: Mapping[str, Condition]) -> "Member":
+        """A film as a study member: its last frame's analysis plus its growth figures."""
+        final = film.get("final")
+        return cls(film_id, label, filename, final if isinstance(final, Mapping) else {}, conditions,
+                   kind="film", growth=film)
 
 
 @dataclass(frozen=True)
@@ -54,6 +69,7 @@ class Row:
     top_probability: float | None
     confident: bool | None
     regime_probabilities: Mapping[str, float] = field(default_factory=dict)
+    kind: str = "specimen"
 
     @property
     def uncertain(self) -> bool:
@@ -63,6 +79,7 @@ class Row:
     def to_dict(self) -> dict[str, Any]:
         return {
             "specimen_id": self.specimen_id,
+            "kind": self.kind,
             "name": self.name,
             "conditions": {n: c.to_dict() for n, c in self.conditions.items()},
             "measurements": {k: {"value": m.value, "ci95": list(m.ci95) if m.ci95 else None}
@@ -123,6 +140,23 @@ def measurements_of(analysis: Mapping[str, Any]) -> dict[str, Measurement]:
     return out
 
 
+#: A film's growth figures in the study table: measurement key -> key of the film's JSON.
+GROWTH_QUANTITIES = {"film.front_velocity_px_per_s": "front_velocity_px_per_s",
+                     "film.tip_growth_share": "tip_growth_share"}
+
+
+def growth_measurements_of(film: Mapping[str, Any]) -> dict[str, Measurement]:
+    """A film's growth figures worth plotting against conditions: the front velocity (px/s,
+    with its 95% interval) and the tip growth share (the share of new deposit near the tips)."""
+    out: dict[str, Measurement] = {}
+    for key, name in GROWTH_QUANTITIES.items():
+        entry = film.get(name)
+        value = _finite(entry.get("value")) if isinstance(entry, Mapping) else None
+        if value is not None:
+            out[key] = Measurement(value, _interval(entry.get("ci95")))
+    return out
+
+
 def verdict_of(analysis: Mapping[str, Any]) -> tuple[str | None, float | None, bool | None, dict[str, float]]:
     """(top regime, its probability, whether the verdict is confident, every regime's probability).
 
@@ -149,8 +183,11 @@ def study_rows(members: Iterable[Member]) -> list[Row]:
     rows = []
     for member in members:
         top, probability, confident, probabilities = verdict_of(member.analysis)
-        rows.append(Row(member.specimen_id, member.name, dict(member.conditions), measurements_of(member.analysis),
-                        top, probability, confident, probabilities))
+        measured = measurements_of(member.analysis)
+        if member.growth is not None:
+            measured.update(growth_measurements_of(member.growth))
+        rows.append(Row(member.specimen_id, member.name, dict(member.conditions), measured,
+                        top, probability, confident, probabilities, kind=member.kind))
     return rows
 
 
@@ -309,7 +346,7 @@ def _cell(value: Any) -> Any:
 
 
 def study_csv(rows: Sequence[Row]) -> str:
-    """The study table as CSV: identity, one column per condition (``name [unit]``, values
+    """The study table as CSV: identity (id, ``specimen`` or ``film``, name), one column per condition (``name [unit]``, values
     as written), the top regime, then every measurement with ``_ci95_low``/``_high``."""
     kinds = condition_names(rows)
     condition_columns: list[tuple[str, str]] = []
@@ -322,7 +359,7 @@ def study_csv(rows: Sequence[Row]) -> str:
             condition_columns.append((name, f"{name} [{unit}]" if unit else name))
     measured = quantities(rows)
     with_interval = {key for row in rows for key, m in row.measurements.items() if m.ci95 is not None}
-    header = ["specimen_id", "name", *(title for _, title in condition_columns),
+    header = ["specimen_id", "kind", "name", *(title for _, title in condition_columns),
               "top_regime", "top_probability", "confident_verdict"]
     for key in measured:
         header += [key, f"{key}_ci95_low", f"{key}_ci95_high"] if key in with_interval else [key]
@@ -330,7 +367,7 @@ def study_csv(rows: Sequence[Row]) -> str:
     writer = csv.writer(out, lineterminator="\r\n")
     writer.writerow([_cell(title) for title in header])
     for row in rows:
-        cells: list[Any] = [row.specimen_id, _cell(row.name)]
+        cells: list[Any] = [row.specimen_id, row.kind, _cell(row.name)]
         for name, title in condition_columns:
             condition = row.conditions.get(name)
             if condition is None:

@@ -17,7 +17,9 @@ from pydantic import BaseModel, ConfigDict, Field
 
 from service.contract import AnalysisModel, WarningItem
 from service.film import FilmLimits, FilmOptions
-from service.store import FilmRecord, FilmStore, Store, write_durably
+from service.store import FilmRecord, FilmStore, Store, StudyStore, write_durably
+from service.study import Condition, conditions_to_dict
+from service.web.api import parse_conditions_field
 from service.web.deps import current_lab, get_pool, get_settings, get_store
 from service.web.jobs import AnalysisPool
 from service.web.settings import Settings
@@ -53,6 +55,8 @@ class FilmBody(BaseModel):
     tip_growth_share: dict[str, Any]
     final: AnalysisModel = Field(description="the analysis object of the last frame, as `ramiform analyze --json` gives it")
     warnings: list[WarningItem]
+    conditions: dict[str, Any] = Field(default_factory=dict,
+                                       description="the film's typed conditions, as a specimen's `conditions`")
 
 
 # ----------------------------------------------------------------------------- worker
@@ -150,10 +154,15 @@ def file_url(record: FilmRecord, name: str) -> str:
     return f"/api/films/{record.id}/files/{name}"
 
 
-def film_body(record: FilmRecord) -> dict[str, Any]:
+def film_body(record: FilmRecord, conditions: dict[str, Condition] | None = None) -> dict[str, Any]:
     return {**record.analysis, "id": record.id, "report_url": f"/films/{record.id}", "label": record.label,
             "created_at": record.created_at.isoformat(),
-            "files": {name: file_url(record, name) for name in record.files}}
+            "files": {name: file_url(record, name) for name in record.files},
+            "conditions": conditions_to_dict(conditions or {})}
+
+
+async def _film_answer(store: Store, record: FilmRecord) -> dict[str, Any]:
+    return film_body(record, await run_in_threadpool(StudyStore(store.engine).conditions_of, record.id))
 
 
 def _times(values: list[str] | None) -> tuple[float, ...] | None:
@@ -201,7 +210,8 @@ async def _analyse_and_store(source, options: FilmOptions, *, label: str | None,
              responses={413: {"description": "too many frames, pixels or seconds"},
                         415: {"description": "not a video, TIFF stack or image"},
                         422: {"description": "one frame only, frames of different sizes, a damaged or truncated "
-                                             "video, no frame times, nothing to measure"}})
+                                             "video, no frame times, nothing to measure, conditions that do not "
+                                             "parse (nothing is stored)"}})
 async def create_film(
     film: Annotated[UploadFile | None, File(description="MP4, MOV or AVI video, or a multi-page TIFF")] = None,
     frames: Annotated[list[UploadFile] | None, File(description="several frame images, in order")] = None,
@@ -212,6 +222,9 @@ async def create_film(
     rim_radius_mm: Annotated[float | None, Form(gt=0, description="rim electrode radius from the centre, mm")] = None,
     pixel_size_mm: Annotated[float | None, Form(gt=0, description="pixel size, mm")] = None,
     label: Annotated[str | None, Form(max_length=200, description="free text, e.g. the cell and the run")] = None,
+    conditions: Annotated[str | None, Form(max_length=20000, description=(
+        'typed conditions as for a specimen: a JSON object, e.g. {"voltage": "4 V", "electrolyte": "CuSO4"}, or '
+        '"voltage = 4 V; electrolyte = CuSO4"; a unit that does not parse is refused (422) before any work'))] = None,
     progress_token: Annotated[str | None, Form(pattern=r"^[A-Za-z0-9_-]{16,64}$",
                                                description="a random token of the client's; while the film is "
                                                            "analysed, GET /api/films/progress/{token} tells how far")
@@ -224,6 +237,7 @@ async def create_film(
     """Analyse the film and store it; answers 201 once its record and pictures are on disk."""
     if label is not None and not label.isprintable():
         raise HTTPException(422, "label must be plain text on one line (no control characters)")
+    parsed_conditions = parse_conditions_field(conditions)  # before any work: a bad unit stores nothing
     if (film is None) == (not frames):
         raise HTTPException(422, "send either one 'film' file or several 'frames' (with 'frame_times_s' or "
                                  "'frame_interval_s'), not both and not neither")
@@ -242,7 +256,9 @@ async def create_film(
                           limits=_limits(settings))
     record = await _analyse_and_store(source, options, label=label, lab=lab, store=store, pool=pool,
                                       progress_token=progress_token)
-    return film_body(record)
+    if parsed_conditions:
+        await run_in_threadpool(StudyStore(store.engine).set_conditions, record.id, parsed_conditions, owner=lab)
+    return await _film_answer(store, record)
 
 
 @router.get("/api/films/progress/{token}", tags=["films"], summary="How far the analysis of an uploaded film is")
@@ -283,15 +299,17 @@ async def _found(store: Store, film_id: str, lab: str | None) -> FilmRecord:
             responses={404: {"description": "no such film"}})
 async def read_film(film_id: str, store: Store = Depends(get_store),
                     lab: str | None = Depends(current_lab)) -> dict[str, Any]:
-    return film_body(await _found(store, film_id, lab))
+    return await _film_answer(store, await _found(store, film_id, lab))
 
 
 @router.delete("/api/films/{film_id}", status_code=204, response_class=Response, tags=["films"],
-               summary="Delete a film with its pictures", responses={404: {"description": "no such film"}})
+               summary="Delete a film with its pictures, conditions and study rows",
+               responses={404: {"description": "no such film"}})
 async def delete_film(film_id: str, store: Store = Depends(get_store),
                       lab: str | None = Depends(current_lab)) -> Response:
     if not await run_in_threadpool(partial(FilmStore(store).delete, film_id, owner=lab)):
         raise HTTPException(404, f"no film {film_id!r}")
+    await run_in_threadpool(StudyStore(store.engine).forget_specimen, film_id)
     return Response(status_code=204)
 
 
@@ -330,7 +348,7 @@ async def films_page(request: Request, store: Store = Depends(get_store),
 async def film_page(request: Request, film_id: str, store: Store = Depends(get_store),
                     lab: str | None = Depends(current_lab)) -> HTMLResponse:
     record = await _found(store, film_id, lab)
-    body = film_body(record)
+    body = await _film_answer(store, record)
     tip = body.get("tip_growth_share") or {}
     references = sorted((tip.get("references") or {}).items(), key=lambda kv: -kv[1]["value"])
     return _templates().TemplateResponse(request, "film.html", {

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import asyncio
 from dataclasses import replace
+from functools import partial
 from typing import Annotated, Any
 from urllib.parse import urlencode
 
@@ -17,7 +18,7 @@ from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from pydantic import BaseModel, Field, field_validator
 
 from service.errors import RamiformError
-from service.store import SpecimenRecord, Store, StudyRecord, StudyStore
+from service.store import FilmRecord, FilmStore, SpecimenRecord, Store, StudyRecord, StudyStore
 from service.study import (
     KNOWN_UNITS,
     Condition,
@@ -35,6 +36,7 @@ from service.study import (
     study_csv,
     study_rows,
 )
+from service.web import films as film_routes
 from service.web import readings, study_demo, study_plots
 from service.web.api import ErrorBody, file_url, report_url
 from service.web.deps import current_lab, get_pool, get_settings, get_store
@@ -60,6 +62,8 @@ QUANTITY_WORDS = {
     "skeleton.junctions": "junctions",
     "skeleton.branches": "branches",
     "branch_width_px": "branch width (px)",
+    "film.front_velocity_px_per_s": "front velocity of a film (px/s)",
+    "film.tip_growth_share": "tip growth share of a film",
 }
 
 
@@ -103,7 +107,7 @@ def _plain_id(value: str) -> str:
 
 
 class SpecimenEntry(BaseModel):
-    id: str = Field(min_length=1, max_length=64, description="a stored specimen's id")
+    id: str = Field(min_length=1, max_length=64, description="a stored specimen's or growth film's id")
 
     @field_validator("id")
     @classmethod
@@ -116,7 +120,7 @@ class SpecimenEntry(BaseModel):
 
 class Attach(BaseModel):
     specimens: list[SpecimenEntry | Annotated[str, Field(min_length=1, max_length=64)]] = Field(
-        min_length=1, max_length=500, description="specimen ids, or objects with an id and conditions")
+        min_length=1, max_length=500, description="specimen (or film) ids, or objects with an id and conditions")
 
     @field_validator("specimens")
     @classmethod
@@ -147,12 +151,22 @@ async def _study(studies: StudyStore, study_id: str, lab: str | None) -> StudyRe
     return study
 
 
-async def _rows(studies: StudyStore, study_id: str, lab: str | None) -> tuple[list[Row], list[SpecimenRecord]]:
+Record = SpecimenRecord | FilmRecord
+
+
+def member_of(record: Record, conditions: dict[str, Condition]) -> Member:
+    """A stored specimen, or a film (its last frame's analysis and growth figures), as a study member."""
+    if isinstance(record, FilmRecord):
+        return Member.of_film(record.id, record.label, record.filename, record.analysis, conditions)
+    return Member(record.id, record.label, record.filename, record.analysis, conditions)
+
+
+async def _rows(studies: StudyStore, study_id: str, lab: str | None) -> tuple[list[Row], list[Record]]:
     members = await run_in_threadpool(studies.members, study_id, owner=lab)
     if members is None:
         raise HTTPException(404, f"no study {study_id!r}")
     records = [record for record, _ in members]
-    rows = study_rows(Member(r.id, r.label, r.filename, r.analysis, conditions) for r, conditions in members)
+    rows = study_rows(member_of(r, conditions) for r, conditions in members)
     return rows, records
 
 
@@ -185,13 +199,22 @@ def plot_urls(study_id: str, chosen: dict[str, Any]) -> dict[str, str | None]:
     }
 
 
-def table_entry(row: Row, record: SpecimenRecord) -> dict[str, Any]:
+def table_entry(row: Row, record: Record) -> dict[str, Any]:
     body = row.to_dict()
-    body.update(report_url=report_url(record), thumbnail_url=file_url(record, "thumbnail.png"),
-                label=record.label, filename=record.filename)
+    if isinstance(record, FilmRecord):
+        analysis = record.analysis.get("final") if isinstance(record.analysis, dict) else None
+        body.update(report_url=f"/films/{record.id}", thumbnail_url=film_routes.file_url(record, "thumbnail.png"))
+        for key, name in (("front_velocity_px_per_s", "film.front_velocity_px_per_s"),
+                          ("tip_growth_share", "film.tip_growth_share")):
+            m = row.measurements.get(name)
+            body[key] = None if m is None else {"value": m.value, "ci95": list(m.ci95) if m.ci95 else None}
+    else:
+        analysis = record.analysis
+        body.update(report_url=report_url(record), thumbnail_url=file_url(record, "thumbnail.png"))
+    body.update(label=record.label, filename=record.filename)
     box = row.measurements.get("box_dimension")
     body["box_dimension"] = None if box is None else {"value": box.value, "ci95": list(box.ci95) if box.ci95 else None}
-    estimates = (record.analysis.get("parameter_estimates") or {}) if isinstance(record.analysis, dict) else {}
+    estimates = (analysis.get("parameter_estimates") or {}) if isinstance(analysis, dict) else {}
     body["parameter_estimates"] = {
         regime: {name: {"value": e.get("value"), "ci95": e.get("ci95")} for name, e in params.items()
                  if isinstance(e, dict)}
@@ -199,7 +222,7 @@ def table_entry(row: Row, record: SpecimenRecord) -> dict[str, Any]:
     return body
 
 
-def study_body(study: StudyRecord, rows: list[Row], records: list[SpecimenRecord], **choices: str | None
+def study_body(study: StudyRecord, rows: list[Row], records: list[Record], **choices: str | None
                ) -> dict[str, Any]:
     chosen = plot_choices(rows, **choices)
     return {
@@ -246,7 +269,7 @@ async def delete_study(study_id: str, studies: StudyStore = Depends(get_studies)
 
 
 @router.post("/api/studies/{study_id}/specimens", responses=_ATTACH_ERRORS,
-             summary="Attach stored specimens, each optionally with its conditions")
+             summary="Attach stored specimens or growth films (by id), each optionally with its conditions")
 async def attach_specimens(study_id: str, body: Attach, studies: StudyStore = Depends(get_studies),
                            lab: str | None = Depends(current_lab)) -> dict[str, Any]:
     """All or nothing: every condition is parsed and every id checked before anything is written."""
@@ -326,13 +349,39 @@ async def read_conditions(specimen_id: str, store: Store = Depends(get_store),
 
 @router.put("/api/specimens/{specimen_id}/conditions", responses=_ATTACH_ERRORS,
             summary="Set a specimen's conditions (merged, or replaced with replace=true)")
-async def put_conditions(specimen_id: str, body: ConditionsIn, studies: StudyStore = Depends(get_studies),
+async def put_conditions(specimen_id: str, body: ConditionsIn, store: Store = Depends(get_store),
+                         studies: StudyStore = Depends(get_studies),
                          lab: str | None = Depends(current_lab)) -> dict[str, Any]:
     parsed = parse_conditions(body.conditions)
+    if await run_in_threadpool(store.get, specimen_id, owner=lab) is None:  # a film's are under /api/films
+        raise HTTPException(404, f"no specimen {specimen_id!r}")
     merged = await run_in_threadpool(lambda: studies.set_conditions(specimen_id, parsed, owner=lab,
                                                                    replace=body.replace))
     if merged is None:
         raise HTTPException(404, f"no specimen {specimen_id!r}")
+    return conditions_to_dict(merged)
+
+
+@router.get("/api/films/{film_id}/conditions", tags=["films"], summary="A growth film's conditions")
+async def read_film_conditions(film_id: str, store: Store = Depends(get_store),
+                               studies: StudyStore = Depends(get_studies),
+                               lab: str | None = Depends(current_lab)) -> dict[str, Any]:
+    if await run_in_threadpool(FilmStore(store).get, film_id, owner=lab) is None:
+        raise HTTPException(404, f"no film {film_id!r}")
+    return conditions_to_dict(await run_in_threadpool(studies.conditions_of, film_id))
+
+
+@router.put("/api/films/{film_id}/conditions", tags=["films"], responses=_ATTACH_ERRORS,
+            summary="Set a growth film's conditions (merged, or replaced with replace=true)")
+async def put_film_conditions(film_id: str, body: ConditionsIn, store: Store = Depends(get_store),
+                              studies: StudyStore = Depends(get_studies),
+                              lab: str | None = Depends(current_lab)) -> dict[str, Any]:
+    parsed = parse_conditions(body.conditions)
+    if await run_in_threadpool(FilmStore(store).get, film_id, owner=lab) is None:
+        raise HTTPException(404, f"no film {film_id!r}")
+    merged = await run_in_threadpool(lambda: studies.set_conditions(film_id, parsed, owner=lab, replace=body.replace))
+    if merged is None:
+        raise HTTPException(404, f"no film {film_id!r}")
     return conditions_to_dict(merged)
 
 
@@ -368,8 +417,11 @@ async def _study_page(request: Request, study_id: str, studies: StudyStore, stor
     body = study_body(study, rows, records, **choices)
     members = {record.id for record in records}
     recent, _ = await run_in_threadpool(store.list, owner=lab, limit=200)
+    films, _ = await run_in_threadpool(partial(FilmStore(store).list, owner=lab, limit=100))
     candidates = [(r.id, r.label or r.filename or r.id[:8], r.created_at.isoformat()[:16].replace("T", " "))
                   for r in recent if r.id not in members]
+    candidates += [(r.id, f"growth film: {r.label or r.filename or r.id[:8]}",
+                    r.created_at.isoformat()[:16].replace("T", " ")) for r in films if r.id not in members]
     return _templates().TemplateResponse(request, "study.html", {
         "study": body, "items": [], "conditions": list(body["conditions"]),
         "quantities": [(key, quantity_words(key)) for key in body["quantities"]],

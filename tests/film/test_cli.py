@@ -47,3 +47,20 @@ def test_a_malformed_interval_is_an_argparse_error(film_path):
     with pytest.raises(SystemExit) as info:
         main(["film", str(film_path), "--frame-interval", "-3"])
     assert info.value.code == 2
+
+
+def test_film_conditions_join_the_json(film_path, capsys):
+    assert main(["film", str(film_path), "--frame-interval", "30", "--json",
+                 "--conditions", "voltage=4000 mV; electrolyte=CuSO4"]) == 0
+    body = json.loads(capsys.readouterr().out)
+    # 4000 mV is 4 V by the SI prefix (BIPM SI Brochure, 9th ed.)
+    assert body["conditions"]["voltage"]["canonical_value"] == 4.0 and body["conditions"]["voltage"]["unit"] == "mV"
+    assert body["conditions"]["electrolyte"] == {"value": "CuSO4", "unit": None, "quantity": "text"}
+
+
+def test_film_conditions_with_a_bad_unit_stop_before_any_work(film_path, capsys):
+    assert main(["film", str(film_path), "--json", "--conditions", "voltage = 4 volts"]) == 2
+    out, err = capsys.readouterr()
+    error = json.loads(out)["error"]
+    assert error["status"] == 422 and "volts" in error["detail"]
+    assert "frame" not in err  # no frame was read

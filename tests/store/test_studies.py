@@ -84,3 +84,44 @@ def test_studies_are_scoped_to_their_lab(store):
         studies.attach(study.id, [(theirs.id, None)], owner="lab-a")
     assert studies.members(study.id, owner="lab-a") == []
     assert studies.delete(study.id, owner="lab-a") and studies.get(study.id) is None
+
+
+def _film(i: int) -> dict:
+    # the shape of a stored film's JSON that studies read: its last frame's analysis and its growth figures
+    return {"frames": 3, "final": _analysis(10 + i),
+            "front_velocity_px_per_s": {"value": 0.5 + i, "ci95": [0.25 + i, 0.75 + i]},
+            "tip_growth_share": {"value": 0.8}}
+
+
+def test_a_growth_film_is_a_member_like_a_specimen(store):
+    from service.store import FilmRecord, FilmStore
+
+    studies, films = StudyStore(store.engine), FilmStore(store)
+    specimen = store.add(_analysis(0), {"a.png": b"x"}, owner="lab-a")
+    film = films.add(_film(0), {"thumbnail.png": b"x"}, label="cell 7", owner="lab-a")
+    theirs = films.add(_film(1), {"thumbnail.png": b"x"}, owner="lab-b")
+    study = studies.create("voltage series", owner="lab-a")
+
+    assert studies.set_conditions(film.id, parse_conditions({"voltage": "4 V"}), owner="lab-a") is not None
+    assert studies.set_conditions(theirs.id, parse_conditions({"voltage": "4 V"}), owner="lab-a") is None
+    assert studies.attach(study.id, [(specimen.id, parse_conditions({"voltage": "2 V"})), (film.id, None)],
+                          owner="lab-a")
+    members = studies.members(study.id, owner="lab-a")
+    assert [record.id for record, _ in members] == [specimen.id, film.id]
+    assert isinstance(members[1][0], FilmRecord) and members[1][1]["voltage"].value == 4.0
+    assert studies.get(study.id).n_specimens == 2
+    before = _snapshot(studies, study.id)
+
+    # all or nothing, and another lab's film is unknown here
+    with pytest.raises(UnknownSpecimenError):
+        studies.attach(study.id, [(film.id, parse_conditions({"voltage": "5 V"})), (theirs.id, None)], owner="lab-a")
+    with pytest.raises(ConditionError):  # 'voltage' is a voltage in this study
+        studies.set_conditions(film.id, parse_conditions({"voltage": "0.1 M"}), owner="lab-a")
+    assert _snapshot(studies, study.id) == before
+
+    # deleting the film takes it out of the study; forgetting it drops its rows and conditions
+    assert films.delete(film.id, owner="lab-a")
+    assert [record.id for record, _ in studies.members(study.id)] == [specimen.id]
+    assert studies.get(study.id).n_specimens == 1
+    studies.forget_specimen(film.id)
+    assert studies.conditions_of(film.id) == {}
