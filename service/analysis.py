@@ -32,6 +32,8 @@ class AnalysisOptions:
     threshold: float | None = None
     roi: tuple[float, ...] | None = None
     exclude: tuple[tuple[float, float, float, float], ...] | None = None
+    #: Areas painted out: ``((points ((x, y), ...), radius_px), ...)`` in px.
+    exclude_strokes: tuple[tuple[tuple[tuple[float, float], ...], float], ...] | None = None
     page: int | None = None
     library_dir: str | None = None
     max_pixels: int | None = None
@@ -86,6 +88,7 @@ def analyze(
     roi: tuple[float, ...] | None = None,
     exclude=None,
     lighting: str = "auto",
+    exclude_strokes=None,
     page: int | None = None,
     max_pixels: int | None = None,
     reference_set=None,
@@ -105,6 +108,8 @@ def analyze(
         Segmentation overrides, see :func:`service.imaging.segment` (``roi`` a circle
         ``(cx, cy, r)`` or an ellipse ``(cx, cy, rx, ry, angle_deg)``; ``exclude`` boxes
         ``(x0, y0, x1, y1)`` in px).
+    exclude_strokes : sequence of (points, radius_px), optional
+        Areas painted out with a brush, ``points`` ``[(x, y), ...]`` in px; left out with the boxes.
     page : int, optional
         TIFF page to read (default: the first).
     max_pixels : int, optional
@@ -125,7 +130,7 @@ def analyze(
     image = load_image(data, page=page, max_pixels=max_pixels or DEFAULT_MAX_PIXELS)
     calibration = _calibration(image, pixel_size_mm)
     seg = segment(image, mode=mode, polarity=polarity, threshold=threshold, roi=roi, exclude=exclude,
-                  lighting=lighting)
+                  lighting=lighting, exclude_strokes=exclude_strokes)
     features = measure(seg.mask, pixel_size_mm=calibration["pixel_size_mm"], center_rc=seg.center_rc)
     warnings = list(image.warnings) + list(seg.warnings)
     warnings += [w for w in features.warnings if w not in warnings]
@@ -179,6 +184,7 @@ def analyze_with(source: bytes | str | Path, options: AnalysisOptions, *, refere
         roi=options.roi,
         exclude=options.exclude,
         lighting=options.lighting,
+        exclude_strokes=options.exclude_strokes,
         page=options.page,
         max_pixels=options.max_pixels,
         reference_set=reference_set,

@@ -1,11 +1,14 @@
 // Report page: delete (asks first); and the reading editor - take another reading, mark the dish
-// as an ellipse and the areas to leave out as boxes on the photo, preview a threshold over the
-// photo, then measure again in place (POST .../reanalyze) and swap in the updated report.
+// as an ellipse and the areas to leave out as boxes or brush strokes on the photo, preview a
+// threshold over the photo, then measure again in place (POST .../reanalyze) and swap in the
+// updated report.
 (function () {
   "use strict";
   const SVG = "http://www.w3.org/2000/svg";
   const HANDLE_SCREEN_PX = 11;
   const MIN_BOX_PX = 3;
+  // The server's bounds on painted strokes (service/web/readings.py).
+  const MAX_STROKES = 64, MAX_STROKE_POINTS = 1000, MAX_BRUSH_PX = 500;
   let dropWindowListeners = null;
 
   function initDelete() {
@@ -47,8 +50,15 @@
       roiSet: Boolean(asked.roi),
       ellipse: ellipseFrom(asked.roi) || (field ? { ...field } : { ...fallback }),
       exclude: (asked.exclude || []).map((b) => b.slice()),
+      // Brush strokes in photo px: {points: [[x, y], ...], radius: r}.
+      paint: (asked.paint || []).map((s) => ({ points: s.points.map((p) => p.slice()), radius: s.radius_px })),
       draft: null,
     };
+    const brush = document.getElementById("brush-radius");
+    const brushShown = document.getElementById("brush-radius-value");
+    const undoStroke = document.getElementById("paint-undo");
+    brush.max = String(Math.min(MAX_BRUSH_PX, Math.max(8, Math.round(0.15 * Math.min(W, H)))));
+    brush.value = String(Math.max(2, Math.round(0.02 * Math.min(W, H))));
     let levels = null; // {width, height, values: Uint8ClampedArray}
     let drag = null;
     let busy = false;
@@ -98,6 +108,11 @@
                                     "data-box": i, "vector-effect": "non-scaling-stroke" });
         node("title", {}, rect).textContent = "left out; with the box tool, click to keep it again";
       });
+      state.paint.forEach((s) => {
+        const d = s.points.map(([x, y], k) => `${k ? "L" : "M"}${x.toFixed(1)} ${y.toFixed(1)}`).join(" ")
+          + (s.points.length === 1 ? " l0.01 0" : "");
+        node("path", { d, class: "paint", "stroke-width": 2 * s.radius });
+      });
       if (state.draft) {
         const [x0, y0, x1, y1] = state.draft;
         node("rect", { x: Math.min(x0, x1), y: Math.min(y0, y1), width: Math.abs(x1 - x0), height: Math.abs(y1 - y0),
@@ -107,8 +122,11 @@
         : `ellipse ${(2 * e.rx).toFixed(0)} × ${(2 * e.ry).toFixed(0)} px, turned ${e.angle.toFixed(0)}°`;
       regionState.textContent = (state.roiSet ? "Dish set by hand: " : (field ? "Dish as found: " : "No dish found; drag to set one: "))
         + `${shape} at (${e.cx.toFixed(0)}, ${e.cy.toFixed(0)}).`
-        + (state.exclude.length ? ` ${state.exclude.length} area${state.exclude.length > 1 ? "s" : ""} left out.` : "");
-      svg.classList.toggle("boxing", tool() === "exclude");
+        + (state.exclude.length ? ` ${state.exclude.length} area${state.exclude.length > 1 ? "s" : ""} left out.` : "")
+        + (state.paint.length ? ` ${state.paint.length} brush stroke${state.paint.length > 1 ? "s" : ""} painted out.` : "");
+      svg.classList.toggle("boxing", tool() === "exclude" || tool() === "paint");
+      brushShown.textContent = `${brush.value} px`;
+      undoStroke.disabled = busy || !state.paint.length;
       for (const input of numberInputs) {
         if (document.activeElement !== input) input.value = String(Math.round(e[input.dataset.roi]));
       }
@@ -138,7 +156,14 @@
       if (busy) return;
       const target = event.target;
       const [x, y] = imagePoint(event);
-      if (tool() === "exclude") {
+      if (tool() === "paint") {
+        if (state.paint.length >= MAX_STROKES) {
+          say(`At most ${MAX_STROKES} brush strokes: take one back or clear them first.`, true);
+          return;
+        }
+        drag = { kind: "paint" };
+        state.paint.push({ points: [[x, y]], radius: Number(brush.value) });
+      } else if (tool() === "exclude") {
         if (target.dataset && target.dataset.box !== undefined) {
           state.exclude.splice(Number(target.dataset.box), 1);
           changed();
@@ -161,6 +186,12 @@
       const e = state.ellipse;
       if (drag.kind === "box") {
         state.draft[2] = x; state.draft[3] = y;
+      } else if (drag.kind === "paint") {
+        // A point every quarter brush radius (at least one photo pixel) is enough for a smooth path.
+        const stroke = state.paint[state.paint.length - 1], last = stroke.points[stroke.points.length - 1];
+        if (stroke.points.length >= MAX_STROKE_POINTS) return;
+        if (Math.hypot(x - last[0], y - last[1]) < Math.max(1, stroke.radius / 4)) return;
+        stroke.points.push([x, y]);
       } else if (drag.kind === "move") {
         e.cx = drag.start.cx + x - drag.from[0];
         e.cy = drag.start.cy + y - drag.from[1];
@@ -213,6 +244,29 @@
       return flipped ? !below : below;
     }
 
+    // The strokes drawn at the levels picture's size: 1 where a brush covered the pixel.
+    function paintedAt(lw, lh, sx, sy) {
+      if (!state.paint.length) return null;
+      const scratch = document.createElement("canvas");
+      scratch.width = lw; scratch.height = lh;
+      const ctx = scratch.getContext("2d", { willReadFrequently: true });
+      ctx.lineCap = "round"; ctx.lineJoin = "round"; ctx.strokeStyle = "#000"; ctx.fillStyle = "#000";
+      for (const s of state.paint) {
+        const r = s.radius / Math.sqrt(sx * sy);
+        if (s.points.length === 1) {
+          ctx.beginPath(); ctx.arc(s.points[0][0] / sx, s.points[0][1] / sy, r, 0, 2 * Math.PI); ctx.fill();
+          continue;
+        }
+        ctx.lineWidth = 2 * r;
+        ctx.beginPath();
+        s.points.forEach(([x, y], k) => (k ? ctx.lineTo(x / sx, y / sy) : ctx.moveTo(x / sx, y / sy)));
+        ctx.stroke();
+      }
+      const alpha = ctx.getImageData(0, 0, lw, lh).data, out = new Uint8Array(lw * lh);
+      for (let k = 0; k < out.length; k++) out[k] = alpha[4 * k + 3] >= 128 ? 1 : 0;
+      return out;
+    }
+
     function preview() {
       shownValue.textContent = Number(slider.value).toFixed(3);
       const ctx = canvas.getContext("2d");
@@ -229,6 +283,7 @@
       let ca = 1, sa = 0;
       if (region) { const a = (region.angle * Math.PI) / 180; ca = Math.cos(a); sa = Math.sin(a); }
       const boxes = state.exclude.map((b) => [b[0] / sx, b[1] / sy, b[2] / sx, b[3] / sy]);
+      const painted = paintedAt(lw, lh, sx, sy);
       let inside = 0, taken = 0;
       for (let i = 0; i < lh; i++) {
         const y = (i + 0.5) * sy;
@@ -240,7 +295,7 @@
           }
           let left = false;
           for (const b of boxes) if (j >= b[0] && j < b[2] && i >= b[1] && i < b[3]) { left = true; break; }
-          if (left) continue;
+          if (left || (painted && painted[i * lw + j])) continue;
           inside += 1;
           const k = i * lw + j, level = values[k];
           if (dark ? level < t : level > t) {
@@ -285,9 +340,14 @@
       state.ellipse = field ? { ...field } : { ...fallback };
       changed();
     });
-    document.getElementById("exclude-clear").addEventListener("click", () => { state.exclude = []; changed(); });
+    undoStroke.addEventListener("click", () => { state.paint.pop(); changed(); });
+    brush.addEventListener("input", draw);
+    document.getElementById("exclude-clear").addEventListener("click", () => {
+      state.exclude = []; state.paint = []; changed();
+    });
     document.getElementById("reading-reset").addEventListener("click", () => {
-      measure({ mode: null, polarity: null, threshold: null, roi: null, exclude: null }, "every setting automatic");
+      measure({ mode: null, polarity: null, threshold: null, roi: null, exclude: null, paint: null },
+              "every setting automatic");
     });
     // One resize listener per editor: the one of a report swapped out is dropped.
     if (dropWindowListeners) dropWindowListeners.abort();
@@ -305,6 +365,7 @@
         roi: state.roiSet ? { cx: round(e.cx), cy: round(e.cy), rx: round(e.rx), ry: round(e.ry),
                               angle_deg: round(((e.angle % 360) + 540) % 360 - 180) } : null,
         exclude: state.exclude.map(([x0, y0, x1, y1]) => ({ x0, y0, x1, y1 })),
+        paint: state.paint.map((s) => ({ points: s.points.map(([x, y]) => [round(x), round(y)]), radius_px: s.radius })),
       };
       measure(body, "the settings above");
     });

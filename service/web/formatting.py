@@ -99,7 +99,7 @@ def field_ellipse(field: Any, width_px: int, height_px: int) -> dict[str, float]
 
 
 _ASKED_WORDS = {"mode": "mode", "polarity": "specimen", "threshold": "threshold", "roi": "region",
-                "exclude": "left out"}
+                "exclude": "left out", "paint": "painted out"}
 
 
 def overrides_in_words(requested: dict[str, Any]) -> str:
@@ -115,6 +115,8 @@ def overrides_in_words(requested: dict[str, Any]) -> str:
             parts.append(f"{shape} at ({value[0]:.0f}, {value[1]:.0f})")
         elif key == "exclude" and isinstance(value, list):
             parts.append(f"{len(value)} area{'s' if len(value) != 1 else ''} left out")
+        elif key == "paint" and isinstance(value, list):
+            parts.append(f"{len(value)} brush stroke{'s' if len(value) != 1 else ''} painted out")
         elif key == "mode":
             parts.append(f"{value} mode")
         else:

@@ -141,7 +141,8 @@ SETTINGS: dict[str, str] = {
 }
 
 #: Settings that are positions or bookkeeping: kept in the JSON, never shown as a result.
-HIDDEN_SETTINGS = ("center_rc", "alternatives", "reading.roi", "field_of_view.center_rc",
+HIDDEN_SETTINGS = ("center_rc", "alternatives", "reading.roi", "reading.exclude", "reading.exclude_strokes",
+                   "field_of_view.center_rc",
                    "electrode.center_rc", "field_of_view.ellipse.semi_axes_px")
 
 REGIMES: dict[str, str] = {

@@ -4,8 +4,9 @@ A reading is one segmentation of the uploaded image with the settings a person c
 the automatic ones). ``POST /api/specimens/{id}/reanalyze`` takes a :class:`Reanalysis`;
 fields it leaves out keep what the current reading asked for, a field sent as ``null``
 goes back to the automatic choice, and ``reading`` takes one of the alternatives the
-current analysis offered. The settings asked for are kept in every history entry, so the
-next re-measurement starts from them.
+current analysis offered. Areas to leave out come as boxes (``exclude``) and as brush
+strokes (``paint``), both in photo pixels. The settings asked for are kept in every
+history entry, so the next re-measurement starts from them.
 """
 
 from __future__ import annotations
@@ -19,7 +20,10 @@ from pydantic import BaseModel, ConfigDict, Field, model_validator
 _FAR_PX = 1e6
 #: Most exclusion boxes in one request.
 MAX_EXCLUDE_BOXES = 64
-
+#: Most painted strokes in one request, points in one stroke, and the widest brush (px).
+MAX_PAINT_STROKES = 64
+MAX_STROKE_POINTS = 1000
+MAX_BRUSH_RADIUS_PX = 500.0
 
 
 class RegionOfInterest(BaseModel):
@@ -72,6 +76,25 @@ class ExcludeBox(BaseModel):
         return (math.floor(self.x0), math.floor(self.y0), math.ceil(self.x1), math.ceil(self.y1))
 
 
+class PaintStroke(BaseModel):
+    """An area painted out with a brush: the path's points ``[x, y]`` in px and the brush radius."""
+
+    model_config = ConfigDict(extra="forbid", allow_inf_nan=False)
+
+    points: list[tuple[float, float]] = Field(min_length=1, max_length=MAX_STROKE_POINTS,
+                                              description="the brush's path, [x, y] in px from the top-left corner")
+    radius_px: float = Field(gt=0, le=MAX_BRUSH_RADIUS_PX, description="brush radius, px")
+
+    @model_validator(mode="after")
+    def _near_the_image(self) -> PaintStroke:
+        if any(not (-_FAR_PX <= v <= _FAR_PX) for point in self.points for v in point):
+            raise ValueError(f"stroke points must lie within {_FAR_PX:g} px of the image")
+        return self
+
+    def as_plain(self) -> dict[str, Any]:
+        return {"points": [[float(x), float(y)] for x, y in self.points], "radius_px": float(self.radius_px)}
+
+
 class Reanalysis(BaseModel):
     """What to change for a new reading of a stored specimen (no re-upload)."""
 
@@ -87,12 +110,14 @@ class Reanalysis(BaseModel):
     roi: RegionOfInterest | None = Field(None, description="the dish or region to analyse; null = find it")
     exclude: list[ExcludeBox] | None = Field(None, max_length=MAX_EXCLUDE_BOXES,
                                              description="areas to leave out; [] or null = none")
+    paint: list[PaintStroke] | None = Field(None, max_length=MAX_PAINT_STROKES,
+                                            description="areas painted out with a brush; [] or null = none")
     reading: int | None = Field(None, ge=0, le=1000,
                                 description="index of one of the current analysis's alternative readings to take")
 
 
 #: The override keys a reading can ask for, in the order they are shown.
-OVERRIDE_KEYS = ("mode", "polarity", "lighting", "threshold", "roi", "exclude")
+OVERRIDE_KEYS = ("mode", "polarity", "lighting", "threshold", "roi", "exclude", "paint")
 
 
 def _normalised(key: str, value: Any) -> Any:
@@ -104,6 +129,10 @@ def _normalised(key: str, value: Any) -> Any:
     if key == "exclude":
         boxes = [b.as_tuple() if isinstance(b, ExcludeBox) else tuple(int(v) for v in b) for b in value]
         return [list(b) for b in boxes] or None
+    if key == "paint":
+        strokes = [s.as_plain() if isinstance(s, PaintStroke) else PaintStroke.model_validate(s).as_plain()
+                   for s in value]
+        return strokes or None
     if key == "threshold":
         return float(value)
     return value
@@ -170,6 +199,15 @@ def check_against_image(requested: dict[str, Any], width_px: int, height_px: int
         if x1 <= 0 or y1 <= 0 or x0 >= width_px or y0 >= height_px:
             raise ValueError(f"the area to exclude ({x0}, {y0}, {x1}, {y1}) lies wholly outside the "
                              f"{width_px} x {height_px} px image")
+    for k, stroke in enumerate(requested.get("paint") or ()):
+        xs = [p[0] for p in stroke["points"]]
+        ys = [p[1] for p in stroke["points"]]
+        r = stroke["radius_px"]
+        # The box round the brush's path: a stroke missing the image by less is refused by the
+        # segmentation's own, exact check.
+        if max(xs) + r <= 0 or max(ys) + r <= 0 or min(xs) - r >= width_px or min(ys) - r >= height_px:
+            raise ValueError(f"painted stroke {k} (starting at x={xs[0]:g}, y={ys[0]:g}) lies wholly outside "
+                             f"the {width_px} x {height_px} px image")
 
 
 def options_fields(requested: dict[str, Any]) -> dict[str, Any]:
@@ -182,6 +220,8 @@ def options_fields(requested: dict[str, Any]) -> dict[str, Any]:
         "threshold": requested.get("threshold"),
         "roi": tuple(roi) if roi is not None else None,
         "exclude": tuple(tuple(box) for box in requested["exclude"]) if requested.get("exclude") else None,
+        "exclude_strokes": tuple((tuple(tuple(p) for p in s["points"]), s["radius_px"]) for s in requested["paint"])
+        if requested.get("paint") else None,
     }
 
 

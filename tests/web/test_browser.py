@@ -249,6 +249,25 @@ def test_fix_the_reading_on_the_report_without_uploading_again(server, browser, 
     page.locator(f"#threshold-preview:not([data-tinted='{first}'])").wait_for()
     # a higher threshold takes more pixels when it takes those below it, fewer otherwise
     assert (_tinted(page) > first) is dark and _tinted(page) != first
+    # Paint over the middle of the dish with the brush: a translucent path, taken back and painted
+    # again; the preview leaves the painted pixels out, so it tints fewer.
+    page.check("input[name=tool][value=paint]")
+    page.eval_on_selector("#brush-radius", "b => { b.value = '12'; b.dispatchEvent(new Event('input')); }")
+    before_paint = _tinted(page)
+    stage = page.locator("#stage-marks").bounding_box()
+    for attempt in range(2):
+        page.mouse.move(stage["x"] + 0.35 * stage["width"], stage["y"] + 0.5 * stage["height"])
+        page.mouse.down()
+        page.mouse.move(stage["x"] + 0.65 * stage["width"], stage["y"] + 0.5 * stage["height"], steps=12)
+        page.mouse.up()
+        assert page.locator("path.paint").count() == 1
+        assert page.get_attribute("path.paint", "stroke-width") == "24"
+        if attempt == 0:
+            page.click("#paint-undo")
+            assert page.locator("path.paint").count() == 0
+    assert "1 brush stroke painted out" in page.inner_text("#region-state")
+    page.locator(f"#threshold-preview:not([data-tinted='{before_paint}'])").wait_for()
+    assert _tinted(page) < before_paint
     page.screenshot(path=shots / "reading-editor.png", full_page=True)
     assert not [s for s in sent if "/reanalyze" in s[1]], "the preview must not measure anything"
 
@@ -263,6 +282,8 @@ def test_fix_the_reading_on_the_report_without_uploading_again(server, browser, 
     asked = record["history"][-1]["requested"]
     assert len(asked["roi"]) == 5 and asked["exclude"] and asked["threshold"] == pytest.approx(
         float(page.input_value("#threshold")), abs=1e-9)
+    assert len(asked["paint"]) == 1 and asked["paint"][0]["radius_px"] == 12.0
+    assert len(asked["paint"][0]["points"]) > 2
 
     # One click on another reading: measured again, the report shows it, the history says so.
     alternatives = record["segmentation"].get("alternatives") or []

@@ -67,3 +67,38 @@ def test_a_region_or_box_wholly_outside_the_image_is_refused_with_the_reason():
 def test_malformed_overrides_fail_validation(body):
     with pytest.raises(ValidationError):
         Reanalysis.model_validate(body)
+
+
+def test_painted_strokes_are_kept_like_boxes_and_become_what_segment_takes():
+    stroke = {"points": [[10, 12.5], [30, 12.5]], "radius_px": 4}
+    body = Reanalysis.model_validate({"paint": [stroke]})
+    requested, _ = resolve(body, {"exclude": [[0, 0, 5, 5]]}, _ANALYSIS)
+    plain = {"points": [[10.0, 12.5], [30.0, 12.5]], "radius_px": 4.0}
+    assert requested == {"exclude": [[0, 0, 5, 5]], "paint": [plain]}
+    assert options_fields(requested)["exclude_strokes"] == ((((10.0, 12.5), (30.0, 12.5)), 4.0),)
+    # left out: kept; null or []: none
+    assert resolve(Reanalysis.model_validate({"threshold": 0.4}), requested, _ANALYSIS)[0]["paint"] == [plain]
+    assert "paint" not in resolve(Reanalysis.model_validate({"paint": None}), requested, _ANALYSIS)[0]
+    assert "paint" not in resolve(Reanalysis.model_validate({"paint": []}), requested, _ANALYSIS)[0]
+    assert options_fields({})["exclude_strokes"] is None
+
+
+@pytest.mark.parametrize("paint", [
+    [{"points": [], "radius_px": 3}],
+    [{"points": [[1, 2]], "radius_px": 0}],
+    [{"points": [[1, 2]], "radius_px": 501}],
+    [{"points": [[1, 2, 3]], "radius_px": 2}],
+    [{"points": [[1, 2]] * 1001, "radius_px": 2}],
+    [{"points": [[1, 2]], "radius_px": 2}] * 65,
+    [{"points": [[1, 2]], "radius_px": 2, "colour": "red"}],
+    [{"points": [[2e6, 2]], "radius_px": 2}],
+])
+def test_bad_strokes_fail_validation(paint):
+    with pytest.raises(ValidationError):
+        Reanalysis.model_validate({"paint": paint})
+
+
+def test_a_stroke_wholly_outside_the_image_is_refused():
+    check_against_image({"paint": [{"points": [[-3.0, 40.0]], "radius_px": 4.0}]}, 100, 80)  # reaches in
+    with pytest.raises(ValueError, match="painted stroke 0 .*outside the 100 x 80 px image"):
+        check_against_image({"paint": [{"points": [[110.0, 40.0], [140.0, 5.0]], "radius_px": 10.0}]}, 100, 80)

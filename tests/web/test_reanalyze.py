@@ -111,6 +111,43 @@ def test_a_new_reading_is_the_pipelines_answer_for_the_overrides_and_keeps_the_s
     assert [h["number"] for h in third["history"]] == [1, 2, 3]
 
 
+def test_painting_over_part_of_the_specimen_leaves_it_out_and_the_history_keeps_the_strokes(client, png):
+    from service.imaging.segmentation.scene import stroke_mask
+
+    body = _upload(client, png, label="painted", kind="electrodeposit")
+    before = _mask(client, body["files"]["mask.png"])
+    # Brush over the branch tip farthest from the seed, along the way towards the seed.
+    rows, cols = np.nonzero(before)
+    seed_r, seed_c = rows.mean(), cols.mean()
+    tip = int(np.argmax((rows - seed_r) ** 2 + (cols - seed_c) ** 2))
+    tip_x, tip_y = cols[tip] + 0.5, rows[tip] + 0.5
+    towards = (0.85 * tip_x + 0.15 * (seed_c + 0.5), 0.85 * tip_y + 0.15 * (seed_r + 0.5))
+    stroke = {"points": [[float(tip_x), float(tip_y)], [round(towards[0], 1), round(towards[1], 1)]], "radius_px": 6.0}
+    painted = stroke_mask([(stroke["points"], stroke["radius_px"])], before.shape)
+    assert before[painted].any()
+
+    answer = client.post(f"/api/specimens/{body['id']}/reanalyze", json={"paint": [stroke]})
+    assert answer.status_code == 200, answer.text
+    again = answer.json()
+    after = _mask(client, again["files"]["mask.png"])
+    assert not after[painted].any()  # nothing the brush covered is specimen any more
+    assert np.count_nonzero(after) < np.count_nonzero(before)
+    strokes = ((tuple(tuple(p) for p in stroke["points"]), stroke["radius_px"]),)
+    expected = _direct(png, exclude_strokes=strokes)
+    for key in ("segmentation", "features"):
+        assert again[key] == expected[key], key
+    assert again["segmentation"]["reading"]["exclude_strokes"] == [stroke]
+    assert again["history"][-1]["requested"] == {"paint": [stroke]}
+    assert "1 brush stroke painted out" in client.get(f"/specimens/{body['id']}").text
+
+    # Left out, the strokes stay; null clears them and the tip comes back.
+    kept = client.post(f"/api/specimens/{body['id']}/reanalyze", json={"polarity": "dark"}).json()
+    assert kept["history"][-1]["requested"] == {"polarity": "dark", "paint": [stroke]}
+    cleared = client.post(f"/api/specimens/{body['id']}/reanalyze", json={"paint": None, "polarity": None}).json()
+    assert cleared["history"][-1]["requested"] == {}
+    assert np.array_equal(_mask(client, cleared["files"]["mask.png"]), before)
+
+
 def test_taking_an_alternative_reading_reproduces_it(client, png):
     body = _upload(client, png)
     alternatives = body["segmentation"]["alternatives"]
@@ -171,6 +208,13 @@ BAD = [
     ({"exclude": [{"x0": 10, "y0": 10, "x1": 5, "y1": 20}]}, "x1 > x0"),
     ({"exclude": [{"x0": 900, "y0": 900, "x1": 950, "y1": 950}]}, "outside"),
     ({"exclude": [{"x0": 1, "y0": 1, "x1": 2, "y1": 2}] * 65}, "exclude"),
+    ({"paint": [{"points": [[900, 900], [950, 960]], "radius_px": 8}]}, "outside"),
+    # The box round this stroke overlaps the image's corner, the brush does not: the
+    # segmentation's exact check refuses it.
+    ({"paint": [{"points": [[-6, -6]], "radius_px": 8}]}, "outside"),
+    ({"paint": [{"points": [], "radius_px": 8}]}, "paint"),
+    ({"paint": [{"points": [[5, 5]], "radius_px": -1}]}, "radius_px"),
+    ({"paint": [{"points": [[5, 5]], "radius_px": 8}] * 65}, "paint"),
     ({"reading": 99}, "alternatives"),
     ({"reading": -1}, "reading"),
     ({"colour": "red"}, "colour"),

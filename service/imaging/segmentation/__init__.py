@@ -31,7 +31,7 @@ from service.imaging.segmentation.cleanup import branch_width_px, keep_specimen
 from service.imaging.segmentation.field_of_view import find_field, parse_roi
 from service.imaging.segmentation.ridge import choose_mode, ridge_mask
 from service.imaging.segmentation.scene import (exclusion_mask, find_electrode, glare_mask, rim_structures,
-                                                wire_paths)
+                                                stroke_mask, wire_paths)
 from service.imaging.segmentation.threshold import (EVENINGS, even_light, fit_background, levels_picture,
                                                     pick_threshold, threshold_mask)
 
@@ -140,6 +140,7 @@ def segment(
     roi=None,
     exclude=None,
     lighting: str = "auto",
+    exclude_strokes=None,
 ) -> Segmentation:
     """Segment the specimen in a photograph.
 
@@ -166,6 +167,9 @@ def segment(
     lighting : {"auto", "smooth", "patchy"}
         How the light is evened: a smooth surface (gradients, vignetting), or a local median
         that follows shadows and fast changes; ``auto`` scores both.
+    exclude_strokes : sequence of (points, radius_px), optional
+        Areas painted out with a brush, left out with the boxes: ``points`` ``[(x, y), ...]``
+        in px, see :func:`service.imaging.segmentation.scene.stroke_mask`.
 
     Returns
     -------
@@ -219,6 +223,9 @@ def segment(
         raise SpecimenError(f"image is {w} x {h} px; at least 16 x 16 px is needed to segment a specimen")
     user_fov = parse_roi(roi, (h, w)) if roi is not None else None
     excluded = exclusion_mask(exclude, (h, w))
+    painted = stroke_mask(exclude_strokes, (h, w))
+    if painted is not None:
+        excluded = painted if excluded is None else excluded | painted
 
     factor = max(1, math.ceil(max(h, w) / SMALL_SIDE_PX))
     small = block_mean(gray, factor)
@@ -332,6 +339,13 @@ def segment(
         center_rc = (float(rows.mean()), float(cols.mean()))
 
     settings["reading"] = _overrides(plan, chosen_mode, threshold, user_fov)
+    # What was left out by hand belongs to the reading too (a mask given as an array cannot be written down).
+    if exclude is not None and not isinstance(exclude, np.ndarray):
+        settings["reading"]["exclude"] = [[float(v) for v in box] for box in exclude]
+    if painted is not None:
+        settings["reading"]["exclude_strokes"] = [
+            {"points": [[float(x), float(y)] for x, y in np.asarray(points, dtype=float).reshape(-1, 2)],
+             "radius_px": float(radius)} for points, radius in exclude_strokes]
     settings["confidence"] = round(confidence, 3)
     settings["alternatives"] = [a.to_dict() for a in alternatives]
     warnings.extend(_warnings(mask, rows, cols, center_rc, fov, width_px, small_fov, factor, chosen_mode))

@@ -36,6 +36,67 @@ def exclusion_mask(exclude, shape: tuple[int, int]) -> np.ndarray | None:
     return out
 
 
+def stroke_mask(strokes, shape: tuple[int, int]) -> np.ndarray | None:
+    """Areas the user paints out: brush strokes ``(points, radius_px)`` as a bool mask of ``shape``.
+
+    Parameters
+    ----------
+    strokes : sequence of (points, radius_px)
+        ``points`` a sequence of ``(x, y)`` in px (x from the left edge, y down from the top;
+        pixel ``(row i, column j)`` spans ``[j, j + 1) x [i, i + 1)``, as the boxes of
+        :func:`exclusion_mask` do); ``radius_px`` the brush radius, > 0.
+    shape : (rows, columns)
+
+    Returns
+    -------
+    ndarray of bool or None
+        A pixel is painted when its centre ``(j + 0.5, i + 0.5)`` lies closer than
+        ``radius_px`` to the polyline through the points (one point: a disc, the digital disc
+        :func:`skimage.draw.disk` draws). None when there are no strokes.
+
+    Raises
+    ------
+    ValueError
+        A stroke without points, with a non-finite coordinate or a radius <= 0, or one that
+        covers no pixel of the image.
+    """
+    if strokes is None or len(strokes) == 0:
+        return None
+    h, w = shape
+    out = np.zeros(shape, dtype=bool)
+    for k, stroke in enumerate(strokes):
+        try:
+            points, radius = stroke
+            xy = np.asarray(points, dtype=float).reshape(-1, 2)
+            radius = float(radius)
+        except (TypeError, ValueError):
+            raise ValueError(f"a painted stroke must be (points [(x, y), ...], radius_px), got {stroke!r}"[:200]) from None
+        if len(xy) == 0 or not np.isfinite(xy).all() or not (math.isfinite(radius) and radius > 0):
+            raise ValueError(f"painted stroke {k} needs at least one finite point and a radius > 0")
+        # Strategy: each segment (a single point is a segment of length 0) paints the pixels of
+        # its bounding box, grown by the radius, whose centre lies within the radius of it.
+        starts, ends = (xy, xy) if len(xy) == 1 else (xy[:-1], xy[1:])
+        covered = False
+        for (ax, ay), (bx, by) in zip(starts, ends):
+            c0, c1 = max(0, math.floor(min(ax, bx) - radius)), min(w, math.ceil(max(ax, bx) + radius) + 1)
+            r0, r1 = max(0, math.floor(min(ay, by) - radius)), min(h, math.ceil(max(ay, by) + radius) + 1)
+            if c0 >= c1 or r0 >= r1:
+                continue
+            px = np.arange(c0, c1, dtype=float)[None, :] + 0.5 - ax
+            py = np.arange(r0, r1, dtype=float)[:, None] + 0.5 - ay
+            dx, dy = bx - ax, by - ay
+            length2 = dx * dx + dy * dy
+            t = np.clip((px * dx + py * dy) / length2, 0.0, 1.0) if length2 > 0 else 0.0
+            inside = (px - t * dx) ** 2 + (py - t * dy) ** 2 < radius * radius
+            if inside.any():
+                out[r0:r1, c0:c1] |= inside
+                covered = True
+        if not covered:
+            raise ValueError(f"painted stroke {k} (starting at x={xy[0, 0]:g}, y={xy[0, 1]:g}) lies wholly "
+                             f"outside the {w} x {h} px image")
+    return out
+
+
 def rim_structures(mask: np.ndarray, fov: Field, width_px: float) -> tuple[np.ndarray, dict[str, Any]]:
     """Pieces of ``mask`` that run along the field's edge: a lighter ring, a wall highlight or
     shadow, tape on the rim. Returns a mask of them and a summary.
