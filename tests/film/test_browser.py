@@ -6,60 +6,19 @@ analysis process pool (the bundled reference set), as tests/web/test_browser.py 
 
 from __future__ import annotations
 
-import os
-import socket
-import subprocess
-import sys
-import time
-from pathlib import Path
-
-import httpx
 import pytest
 
 from service.film.synthetic import encode_video, render_film
 from service.simulate import grow
+from tests.live_server import CHROMIUM, CHROMIUM_ARGS, live_server
 
 pytestmark = pytest.mark.browser
-
-CHROMIUM = Path("/usr/bin/chromium")
-CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update",
-                 "--disable-sync", "--no-first-run"]
-
-
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
 
 
 @pytest.fixture(scope="module")
 def server(tmp_path_factory):
-    if not CHROMIUM.exists():
-        pytest.skip("no browser: /usr/bin/chromium is missing (scripts/system-deps.sh installs it through apt)")
-    port = _free_port()
-    data_dir = tmp_path_factory.mktemp("film-browser-data")
-    env = {**os.environ, "RAMIFORM_DATA_DIR": str(data_dir), "RAMIFORM_WORKERS": "1"}
-    env.pop("RAMIFORM_DATABASE_URL", None)
-    env.pop("RAMIFORM_LIBRARY_DIR", None)
-    log = open(data_dir / "server.log", "wb")
-    proc = subprocess.Popen([sys.executable, "-m", "service.cli", "serve", "--port", str(port)],
-                            env=env, stdout=log, stderr=subprocess.STDOUT)
-    base = f"http://127.0.0.1:{port}"
-    try:
-        for _ in range(300):
-            try:
-                if httpx.get(f"{base}/api/health", timeout=1).status_code == 200:
-                    break
-            except httpx.TransportError:
-                pass
-            if proc.poll() is not None:
-                pytest.fail(f"the server stopped: {(data_dir / 'server.log').read_text()}")
-            time.sleep(0.1)
+    with live_server(tmp_path_factory.mktemp("film-browser-data")) as base:
         yield base
-    finally:
-        proc.terminate()
-        proc.wait(timeout=30)
-        log.close()
 
 
 def test_upload_a_film_through_the_page_and_read_its_report(server, tmp_path):

@@ -6,61 +6,24 @@ port, with a real analysis process pool. Screenshots land in ``test-artifacts/``
 
 from __future__ import annotations
 
-import os
-import socket
-import subprocess
-import sys
-import time
 from pathlib import Path
 
 import httpx
 import numpy as np
 import pytest
 
+from tests.live_server import CHROMIUM, CHROMIUM_ARGS, live_server
 from tests.web.conftest import specimen_png
 
 pytestmark = pytest.mark.browser
 
-CHROMIUM = Path("/usr/bin/chromium")
 ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts"
-CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update",
-                 "--disable-sync", "--no-first-run"]
-
-
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
 
 
 @pytest.fixture(scope="module")
 def server(tmp_path_factory, tiny_library):
-    if not CHROMIUM.exists():
-        pytest.skip("no browser: /usr/bin/chromium is missing (scripts/system-deps.sh installs it through apt)")
-    port = _free_port()
-    data_dir = tmp_path_factory.mktemp("browser-data")
-    env = {**os.environ, "RAMIFORM_DATA_DIR": str(data_dir), "RAMIFORM_WORKERS": "1",
-           "RAMIFORM_LIBRARY_DIR": str(tiny_library)}
-    env.pop("RAMIFORM_DATABASE_URL", None)
-    log = open(data_dir / "server.log", "wb")
-    proc = subprocess.Popen([sys.executable, "-m", "service.cli", "serve", "--port", str(port)],
-                            env=env, stdout=log, stderr=subprocess.STDOUT)
-    base = f"http://127.0.0.1:{port}"
-    try:
-        for _ in range(300):
-            try:
-                if httpx.get(f"{base}/api/health", timeout=1).status_code == 200:
-                    break
-            except httpx.TransportError:
-                pass
-            if proc.poll() is not None:
-                pytest.fail(f"the server stopped: {(data_dir / 'server.log').read_text()}")
-            time.sleep(0.1)
+    with live_server(tmp_path_factory.mktemp("browser-data"), library_dir=tiny_library) as base:
         yield base
-    finally:
-        proc.terminate()
-        proc.wait(timeout=30)
-        log.close()
 
 
 @pytest.fixture(scope="module")
