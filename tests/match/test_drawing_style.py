@@ -43,9 +43,7 @@ def _check(result, label: str) -> str:
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("seed", [11, pytest.param(12, marks=pytest.mark.xfail(
-    strict=True, reason="issue 10: on the regrown set, seed 12 drawn 2 sites thick gets sticking 0.29 "
-                        "in [0.10, 0.84], which misses 1 (its verdict stays the DLA class)"))])
+@pytest.mark.parametrize("seed", [11, 12])
 def test_the_same_cluster_at_four_thicknesses_keeps_its_regime_and_sticking(reference_set, seed):
     mask = dla(15000, seed=seed) != 0
     lines = []
