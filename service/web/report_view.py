@@ -16,12 +16,9 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
+from service.quality import UNCERTAIN, judge_dimension
 from service.web import labels
 
-#: A plane figure's dimension lies in [0, 2] (a point 0, a curve 1, a filled region 2).
-DIMENSION_RANGE = (0.0, 2.0)
-#: An interval wider than this is not a measurement of a plane figure's dimension.
-DIMENSION_WIDTH_LIMIT = DIMENSION_RANGE[1] - DIMENSION_RANGE[0]
 #: Fits over less than this many decades of scale are flagged (common practice: at least one decade).
 MIN_DECADES = 1.0
 #: A fit starting closer than this many branch widths sees drawn strokes rather than the pattern.
@@ -114,30 +111,12 @@ class DimensionFit:
     reason: str
 
 
-def check_dimension(value: Any, ci95: Any) -> tuple[str, str]:
-    """("ok" | "flagged" | "withheld", reason) for a fractal dimension of a plane figure."""
-    v = _number(value)
-    lo_d, hi_d = DIMENSION_RANGE
-    if v is None:
-        return "withheld", "the fit gave no finite value"
-    if not lo_d <= v <= hi_d:
-        return "withheld", (f"the fit gave {v:.2f}, outside 0 to 2, the range any pattern drawn on a plane can have; "
-                            "the scaling is not a power law over the fitted range (a filled or nearly filled image "
-                            "gives this)")
-    interval = _interval(ci95)
-    if interval is None:
-        return "flagged", "no interval could be computed"
-    lo, hi = interval
-    if hi - lo > DIMENSION_WIDTH_LIMIT:
-        return "withheld", (f"its 95% interval ({lo:.2f} to {hi:.2f}) is wider than the whole range 0 to 2 a plane "
-                            "pattern allows: the data do not determine it")
-    if hi - lo > 0.5 * DIMENSION_WIDTH_LIMIT:
-        return "withheld", (f"its 95% interval ({lo:.2f} to {hi:.2f}) spans more than half of the range 0 to 2: "
-                            "too loose to tell growth regimes apart")
-    if lo < lo_d or hi > hi_d:
-        return "flagged", (f"its 95% interval ({lo:.3f} to {hi:.3f}) runs past {'0' if lo < lo_d else '2'}, "
-                           "a bound no plane pattern crosses; read it as reaching that bound")
-    return "ok", ""
+def check_dimension(value: Any, ci95: Any, fit_range_px: Any = None, n_fit_points: Any = None) -> tuple[str, str]:
+    """("ok" | "flagged" | "withheld", reason) for a fractal dimension of a plane figure: the
+    contract's judgement (:func:`service.quality.judge_dimension`), "uncertain" shown as flagged."""
+    judged = judge_dimension(_number(value), _interval(ci95), _interval(fit_range_px),
+                             n_fit_points if isinstance(n_fit_points, int) else None)
+    return ("flagged" if judged.status == UNCERTAIN else judged.status), judged.reason or ""
 
 
 def _interval(ci95: Any) -> tuple[float, float] | None:
@@ -171,12 +150,10 @@ def dimension_fits(features: dict[str, Any]) -> list[DimensionFit]:
         fit = features.get(key)
         if not isinstance(fit, dict):
             continue
-        status, reason = check_dimension(fit.get("value"), fit.get("ci95"))
+        status, reason = check_dimension(fit.get("value"), fit.get("ci95"), fit.get("fit_range_px"),
+                                         fit.get("n_fit_points"))
         r = _interval(fit.get("fit_range_px"))
         decades = math.log10(r[1] / r[0]) if r and r[0] > 0 else None
-        if status == "ok" and decades is not None and decades < MIN_DECADES:
-            status, reason = "flagged", (f"fitted over {decades:.2f} of a decade of scale; the common practice is at "
-                                         "least one decade, so read it with care")
         out.append(DimensionFit(key, label, _number(fit.get("value")), _interval(fit.get("ci95")), r, decades,
                                 status, reason))
     return out

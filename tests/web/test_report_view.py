@@ -77,8 +77,9 @@ def test_an_impossible_mass_radius_dimension_is_withheld(analysis, value, ci95):
 
 
 def test_an_interval_running_past_two_is_flagged_not_trusted():
-    # a nearly filled pattern: 1.98 with an interval to 2.03 is possible, the interval's top is not
-    assert check_dimension(1.98, [1.93, 2.03])[0] == "flagged"
+    # a nearly filled pattern: 1.98 is possible, an interval reaching 2.10 is not (beyond the few
+    # hundredths an outline's rounding adds above 2; the contract's judgement, service.quality)
+    assert check_dimension(1.98, [1.86, 2.10])[0] == "flagged"
     assert check_dimension(1.71, [1.66, 1.76]) == ("ok", "")
     assert check_dimension(float("nan"), [1.0, 1.2])[0] == "withheld"
     assert check_dimension(-0.1, [-0.2, 0.0])[0] == "withheld"
