@@ -2,26 +2,25 @@
 
 Three plots, each from the plain data of :mod:`service.study.table`: a measured quantity
 against a condition with 95% intervals, each regime's probability against a condition,
-and the morphology diagram over two conditions. The look lives in :func:`_figure` and
-:func:`_svg` alone, so a house style can replace it in one place.
+and the morphology diagram over two conditions, drawn in the pages' house style
+(:mod:`service.web.plots`).
 """
 
 from __future__ import annotations
 
-import io
 from collections.abc import Sequence
 
 import matplotlib
 
 matplotlib.use("Agg")
 
-from matplotlib.backends.backend_svg import FigureCanvasSVG  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 from matplotlib.lines import Line2D  # noqa: E402
 
 from service.study.table import Axis, DiagramPoint, Series  # noqa: E402
-
-from service.web.plots import CYCLE, HOUSE_STYLE, INK  # noqa: E402
+from service.web.plots import CYCLE, INK, house_style  # noqa: E402
+from service.web.plots import _figure as plain_figure  # noqa: E402
+from service.web.plots import _svg as plain_svg  # noqa: E402
 from service.web.plots import SPECIMEN as POINTS  # noqa: E402
 
 #: Marker and colour of each regime (shape and colour both, so the key reads in grey too).
@@ -34,22 +33,12 @@ REGIME_STYLE = {
 _OTHER_STYLES = tuple(zip(("v", "P", "X", "h"), CYCLE[4:]))
 _UNRANKED = ("x", "#8a8f94")
 
-#: The pages' one house style (``service.web.plots``).
-_STYLE = HOUSE_STYLE
+_house_figure = house_style(plain_figure)
+_svg = house_style(plain_svg)
 
 
 def _figure(width_in: float = 5.6, height_in: float = 3.6) -> Figure:
-    with matplotlib.rc_context(_STYLE):
-        fig = Figure(figsize=(width_in, height_in), layout="constrained")
-        fig.add_subplot()
-    return fig
-
-
-def _svg(fig: Figure) -> bytes:
-    out = io.BytesIO()
-    with matplotlib.rc_context(_STYLE):
-        FigureCanvasSVG(fig).print_svg(out, metadata={"Date": None, "Creator": "ramiform"})
-    return out.getvalue()
+    return _house_figure(width_in, height_in)
 
 
 def regime_style(regime: str | None, known: Sequence[str] = ()) -> tuple[str, str]:
