@@ -16,7 +16,7 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
-from service.quality import UNCERTAIN, judge_dimension
+from service.quality import UNCERTAIN, grid_cell, judge_dimension
 from service.web import labels
 
 #: Fits over less than this many decades of scale are flagged (common practice: at least one decade).
@@ -447,19 +447,6 @@ class Estimate:
     reason: str = ""
 
 
-def _grid_step(value: float, grid: list[float], log_axis: bool) -> tuple[float, float] | None:
-    """The cell around ``value`` on the library grid: half-way to each neighbouring library value."""
-    g = sorted(x for x in grid if _number(x) is not None and (not log_axis or x > 0))
-    if len(g) < 2:
-        return None
-    t = (lambda x: math.log(x)) if log_axis else (lambda x: x)
-    back = (lambda x: math.exp(x)) if log_axis else (lambda x: x)
-    nearest = min(range(len(g)), key=lambda i: abs(t(g[i]) - t(value)) if (not log_axis or value > 0) else abs(g[i] - value))
-    lo = back((t(g[nearest - 1]) + t(g[nearest])) / 2) if nearest > 0 else g[0]
-    hi = back((t(g[nearest]) + t(g[nearest + 1])) / 2) if nearest < len(g) - 1 else g[-1]
-    return lo, hi
-
-
 def parameter_estimates(analysis: dict[str, Any], v: Verdict) -> list[Estimate]:
     """Parameter estimates with their 95% interval; an interval or spread finer than the library
     grid is not shown as a result: the estimate is given as the grid cell it falls in."""
@@ -477,7 +464,7 @@ def parameter_estimates(analysis: dict[str, Any], v: Verdict) -> list[Estimate]:
             log_axis = est.get("axis") == "log"
             interval = _interval(est.get("ci95"))
             std = _number(est.get("std"))
-            cell = _grid_step(value, grid, log_axis) if value is not None else None
+            cell = grid_cell(grid, value, "log" if log_axis else "linear") if value is not None else None
             status, reason, shown_interval = "ok", "", ""
             if value is None:
                 status, reason = "withheld", "no estimate"
