@@ -128,11 +128,11 @@ def _order(library_dir: str, ensemble_id: str, index: int) -> np.ndarray:
     return _reference_set(library_dir).arrival_order(ensemble_id, index)
 
 
-@lru_cache(maxsize=4)
 def _reference_set(library_dir: str):
-    from service.library import load_reference_set
+    """The process's reference set (the one ``ReferenceLibrary`` kept for this folder)."""
+    from service.match.library import process_library
 
-    return load_reference_set(library_dir or None)
+    return process_library(library_dir or None).reference_set
 
 
 def families(reference_set) -> list[tuple[str, Any]]:
