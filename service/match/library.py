@@ -119,6 +119,13 @@ def library_of(reference) -> ReferenceLibrary:
     return own
 
 
+def _asked(library: ReferenceLibrary) -> str | None:
+    source = library._source
+    if source is None or isinstance(source, (str, bytes, Path)):
+        return None if source is None else str(source)
+    return library.directory
+
+
 #: The library this process opened for its work (an analysis worker's, a batch's).
 _PROCESS: list[ReferenceLibrary] = []
 
@@ -134,7 +141,10 @@ def start_process_library(directory: str | None) -> ReferenceLibrary:
 
 
 def process_library(directory: str | None) -> ReferenceLibrary:
-    """This process's library of ``directory``: the one opened for it, else one opened now and kept."""
-    if not (_PROCESS and _PROCESS[0].directory == directory):
+    """This process's library of ``directory``: the one opened for it, else one opened now and kept.
+
+    Matched on the folder asked for (``directory`` once opened names the folder found, which for
+    the bundled set is not the None asked for)."""
+    if not (_PROCESS and _asked(_PROCESS[0]) == (None if directory is None else str(directory))):
         _PROCESS[:] = [ReferenceLibrary(directory)]
     return _PROCESS[0]

@@ -63,3 +63,12 @@ def test_a_worker_process_keeps_the_library_its_initializer_opened(tmp_path, mon
     assert process_library(str(tmp_path / "nowhere")) is opened
     other = process_library(None)
     assert other is not opened and process_library(None) is other
+
+
+def test_the_bundled_library_is_kept_once_its_set_is_open(monkeypatch):
+    # Once open, a library names the folder it found; asked again for the bundled set (None),
+    # the process must hand back the same library, not open and load it anew for every job.
+    monkeypatch.setattr(library_module, "_PROCESS", [])
+    first = process_library(None)
+    first.reference_set  # noqa: B018 - opening the set is the point
+    assert process_library(None) is first
