@@ -6,6 +6,8 @@ Three kinds are recognised, tried in this order:
 - a dish: the region that the bench around the frame does not reach, bounded by a strong,
   closed, elliptical edge (a dish seen at a slant is an ellipse), whatever the bench, the
   solution and the rim look like;
+- a dish whose wall's edge drowns in the bench's texture (brushed metal, wood grain): the same
+  search on a median-filtered copy, then the region of colours the bench does not have;
 - a dish rim found by a circular Hough transform (a rim on a bench of the solution's own colour).
 
 When none fits, the whole image is the field. A region of interest given by the user
@@ -55,6 +57,10 @@ def find_field(small: np.ndarray, small_rgb: np.ndarray, factor: int) -> tuple[F
     """Field of view in full-resolution px from the reduced grey and RGB copies."""
     surround = _dark_surround_field(small, factor)
     dish = _dish_field(small, small_rgb, factor)
+    if dish is None:
+        dish = _dish_field(small, small_rgb, factor, despeckle=True)
+    if dish is None:
+        dish = _off_bench_field(small, small_rgb, factor)
     if surround is not None:
         # A bright field on a dark surround: a fundus camera's, or a dish on a dark bench. The
         # dish finder's ellipse follows a field seen at a slant better than an equal-area circle.
@@ -127,7 +133,20 @@ def _colour_gradient(img: np.ndarray) -> np.ndarray:
     return total
 
 
-def _dish_field(small: np.ndarray, small_rgb: np.ndarray, factor: int) -> Field | None:
+def _despeckled(img: np.ndarray) -> np.ndarray:
+    """Each channel median-filtered over 5 x 5 px: the streaks of brushed metal or wood grain
+    (a pixel or two wide at this size) go, a dish wall's edge stays where it was."""
+    return np.stack([ndimage.median_filter(img[:, :, ch], 5) for ch in range(img.shape[2])], axis=-1)
+
+
+def _frame_band(th: int, tw: int) -> np.ndarray:
+    k = max(2, round(0.03 * min(th, tw)))
+    band = np.zeros((th, tw), dtype=bool)
+    band[:k], band[-k:], band[:, :k], band[:, -k:] = True, True, True, True
+    return band
+
+
+def _dish_field(small: np.ndarray, small_rgb: np.ndarray, factor: int, despeckle: bool = False) -> Field | None:
     """The dish as the ellipse that bounds what the bench does not reach.
 
     Strategy: the bench is what fills the frame's outer band (its most common colour there; a
@@ -137,7 +156,7 @@ def _dish_field(small: np.ndarray, small_rgb: np.ndarray, factor: int) -> Field 
     less the stretches on the frame, is fitted with an ellipse by RANSAC (a wire or a
     reflection leaves outliers); the dish is accepted when most of the outline lies on the
     ellipse, the edge there is far stronger than the bench's texture, and the inside holds
-    a specimen.
+    a specimen. With ``despeckle`` the colours are median-filtered first (see ``_despeckled``).
     """
     f2 = max(1, math.ceil(max(small.shape) / _DISH_SIDE_PX))
     img = block_mean(small_rgb, f2)
@@ -145,10 +164,10 @@ def _dish_field(small: np.ndarray, small_rgb: np.ndarray, factor: int) -> Field 
     th, tw = grey.shape
     if min(th, tw) < 32:
         return None
+    if despeckle:
+        img = _despeckled(img)
     grad = _colour_gradient(img)
-    k = max(2, round(0.03 * min(th, tw)))
-    band = np.zeros((th, tw), dtype=bool)
-    band[:k], band[-k:], band[:, :k], band[:, -k:] = True, True, True, True
+    band = _frame_band(th, tw)
     bench_colour = np.median(img[band], axis=0)
     dist = np.sqrt(((img - bench_colour) ** 2).sum(axis=2))
     spread = robust_sigma(dist[band])
@@ -196,6 +215,61 @@ def _dish_field(small: np.ndarray, small_rgb: np.ndarray, factor: int) -> Field 
     # The watershed line sits on the wall's edge; step in by about a reduced pixel.
     margin = 1.5 * scale
     return Field(cy, cx, ell.a * scale - margin, ell.b * scale - margin, ell.theta, "dish rim")
+
+
+def _off_bench_field(small: np.ndarray, small_rgb: np.ndarray, factor: int) -> Field | None:
+    """The dish as the largest region of colours the bench does not have, fitted by an ellipse.
+
+    For a dish whose wall leaves no closed edge stronger than the bench's grain, but whose
+    solution or wall differs in colour from the bench: the bench's colour is read in the
+    frame's outer band (median-filtered, see ``_despeckled``), everything farther from it than
+    four times the band's own spread is off the bench; the largest such region, holes filled,
+    is the dish when most of its outline off the frame lies on one ellipse, the bench lies
+    just beyond it, and a specimen lies inside.
+    """
+    from skimage.measure import find_contours
+
+    f2 = max(1, math.ceil(max(small.shape) / _DISH_SIDE_PX))
+    img = _despeckled(block_mean(small_rgb, f2))
+    grey = block_mean(small, f2)
+    th, tw = grey.shape
+    if min(th, tw) < 32:
+        return None
+    band = _frame_band(th, tw)
+    dist = np.sqrt(((img - np.median(img[band], axis=0)) ** 2).sum(axis=2))
+    bench = dist < max(4.0 * robust_sigma(dist[band]), 0.06)
+    if np.count_nonzero(bench & band) < 0.4 * np.count_nonzero(band):
+        return None
+    labels, n = ndimage.label(ndimage.binary_opening(~bench, iterations=2))
+    if n == 0:
+        return None
+    region = ndimage.binary_fill_holes(labels == int(np.argmax(np.bincount(labels.ravel())[1:])) + 1)
+    if not 0.06 <= np.count_nonzero(region) / region.size <= 0.97:
+        return None
+    outline = max(find_contours(np.pad(region, 1).astype(np.float32), 0.5), key=len) - 1.0
+    on_frame = (outline[:, 0] <= 1.0) | (outline[:, 1] <= 1.0) | (outline[:, 0] >= th - 2.0) | (outline[:, 1] >= tw - 2.0)
+    pts = outline[~on_frame][:, ::-1]  # (x, y)
+    if len(pts) < 40:
+        return None
+    pts = pts[:: max(1, len(pts) // 400)]
+    fitted = fit_ellipse_robust(pts, tolerance_px=max(1.5, 0.03 * math.sqrt(np.count_nonzero(region) / math.pi)))
+    if fitted is None or float(fitted[1].mean()) < 0.7:
+        return None
+    (xc, yc, a, b, theta), _ = fitted
+    if min(a, b) <= 0.1 * min(th, tw) or min(a, b) < 0.5 * max(a, b):
+        return None
+    ell = Field(yc, xc, a, b, theta, "dish rim")
+    yy, xx = np.ogrid[:th, :tw]
+    rho = ell.rho(*np.broadcast_arrays(yy.astype(np.float64), xx.astype(np.float64)))
+    beyond = (rho >= 1.12) & (rho <= 1.3)
+    if np.count_nonzero(beyond) >= 0.1 * math.pi * (1.3 ** 2 - 1.12 ** 2) * a * b and float(bench[beyond].mean()) < 0.5:
+        return None
+    if not holds_structure(grey, rho <= 0.9):
+        return None
+    scale = f2 * factor
+    cy, cx = _to_full(yc, xc, scale)
+    margin = 1.5 * scale
+    return Field(cy, cx, a * scale - margin, b * scale - margin, theta, "dish rim")
 
 
 def _closed_ellipse(grad: np.ndarray, bench: np.ndarray, inner: np.ndarray, th: int,
