@@ -212,6 +212,27 @@ def glare_mask(rgb: np.ndarray, width_px: float) -> np.ndarray | None:
     return grown & ndimage.binary_dilation(bright, iterations=2)
 
 
+def glare_halo_pieces(mask: np.ndarray, glare: np.ndarray) -> np.ndarray:
+    """Pieces of ``mask`` lying (nine tenths of them or more) within a glare spot's soft halo:
+    within one spot radius of its clipped part. A glare spot fades over about its own radius,
+    so a threshold leaves a ring of it behind; a branch that passes by lies mostly outside."""
+    labels, n = ndimage.label(glare)
+    if n == 0:
+        return np.zeros(mask.shape, dtype=bool)
+    radius = np.sqrt(np.bincount(labels.ravel())[1:] / math.pi)
+    dist, (ir, ic) = ndimage.distance_transform_edt(labels == 0, return_indices=True)
+    halo = dist <= radius[np.maximum(labels[ir, ic] - 1, 0)]
+    del dist, ir, ic
+    pieces, m = ndimage.label(mask, structure=np.ones((3, 3), dtype=bool))
+    if m == 0:
+        return np.zeros(mask.shape, dtype=bool)
+    size = np.bincount(pieces.ravel(), minlength=m + 1)
+    inside = np.bincount(pieces[halo].ravel(), minlength=m + 1)
+    drop = inside >= 0.9 * size
+    drop[0] = False
+    return drop[pieces]
+
+
 def find_electrode(mask: np.ndarray, seed_rc: tuple[float, float], width_px: float) -> dict[str, Any] | None:
     """A compact disc much thicker than the branches near the seed: the centre electrode."""
     h, w = mask.shape
@@ -279,11 +300,20 @@ def wire_paths(mask: np.ndarray, rgb: np.ndarray, fov: Field, seed_rc: tuple[flo
         entries.append(float(np.mean(idx)) % n_bins)
     if not entries:
         return empty
-    cost = np.where(small, 1.0, 1e4)
+    # Off the mask costs a thousand steps: a route may bridge a pixel or two where the lead
+    # breaks at this resolution (it is thin, or crosses the rim's cut), no more.
+    cost = np.where(small, 1.0, 1e3)
     dist_small = ndimage.distance_transform_edt(small)
     seed_s = (int(np.clip(round((seed_rc[0] - (factor - 1) / 2.0) / factor), 0, sh - 1)),
               int(np.clip(round((seed_rc[1] - (factor - 1) / 2.0) / factor), 0, sw - 1)))
-    gray = rgb.mean(axis=2, dtype=np.float32)
+    if not small[seed_s]:
+        # The seed (the field's centre) may fall a pixel or two beside the electrode the lead
+        # ends on: route to the mask's nearest pixel, when it is near.
+        gap = np.hypot(rows - seed_s[0], cols - seed_s[1])
+        nearest = int(np.argmin(gap))
+        if gap[nearest] > 0.1 * fs.r:
+            return empty
+        seed_s = (int(rows[nearest]), int(cols[nearest]))
     out = np.zeros(mask.shape, dtype=bool)
     leads = 0
     for b in entries:
@@ -293,7 +323,7 @@ def wire_paths(mask: np.ndarray, rgb: np.ndarray, fov: Field, seed_rc: tuple[flo
         k = int(np.argmax(np.where(in_bin, rho[edge], -1.0)))
         start = (int(rows[edge][k]), int(cols[edge][k]))
         path, total = route_through_array(cost, start, seed_s, fully_connected=True, geometric=True)
-        if total >= 1e4:
+        if total >= 3e3:
             continue  # not joined to the seed through the mask
         path = np.asarray(path, dtype=np.float64)
         length = float(np.sum(np.hypot(*np.diff(path, axis=0).T)))
@@ -306,9 +336,9 @@ def wire_paths(mask: np.ndarray, rgb: np.ndarray, fov: Field, seed_rc: tuple[flo
         for coord in (path[:, 0], path[:, 1]):
             fit = np.polyval(np.polyfit(s, coord, 3), s)
             resid = max(resid, float(np.sqrt(np.mean((coord - fit) ** 2))))
-        if resid > max(0.34 * width, 0.6):
+        if resid > max(0.34 * width, 1.0):
             continue
-        if not _continues_beyond(gray, path, factor, fov, width * factor):
+        if not _continues_beyond(rgb, path, factor, fov, width * factor):
             continue
         # The lead's pixels: the mask within half its width and a pixel of the route.
         tube = np.zeros((sh, sw), dtype=bool)
@@ -322,14 +352,15 @@ def wire_paths(mask: np.ndarray, rgb: np.ndarray, fov: Field, seed_rc: tuple[flo
     return out, {"leads": leads}
 
 
-def _continues_beyond(gray: np.ndarray, path: np.ndarray, factor: int, fov: Field, width_px: float) -> bool:
+def _continues_beyond(rgb: np.ndarray, path: np.ndarray, factor: int, fov: Field, width_px: float) -> bool:
     """Whether the photograph shows the route's line going on past the field's edge.
 
     The line is extended from the route's outer quarter; along it, beyond the edge (rho 1.04
-    to 1.25), the grey must differ from the grey at the same rho a few widths to either
-    side, on most samples, as a lead lying on the rim and the bench does.
+    to 1.25), its colour must differ (by 12 levels in some channel) from the colour at the
+    same rho a few widths to either side, on most samples, as a lead lying on the rim and
+    the bench does (a red lead on a green rim differs in colour, hardly in grey).
     """
-    h, w = gray.shape
+    h, w = rgb.shape[:2]
     full = path * factor + (factor - 1) / 2.0
     n = max(4, len(full) // 4)
     outer = full[:n]
@@ -339,7 +370,10 @@ def _continues_beyond(gray: np.ndarray, path: np.ndarray, factor: int, fov: Fiel
         return False
     direction /= norm
     normal = np.array([-direction[1], direction[0]])
-    offset = max(3.0 * width_px, 6.0)
+    # A lead curves: the straight extension drifts off a thin one, so the line is looked for
+    # within a few pixels (or a width) either side of it.
+    reach = max(3, int(round(width_px)))
+    offset = max(3.0 * width_px, 6.0) + reach
     differs = []
     for step in np.linspace(0.0, 0.3 * fov.r, 40):
         p = outer[0] + direction * step
@@ -347,10 +381,14 @@ def _continues_beyond(gray: np.ndarray, path: np.ndarray, factor: int, fov: Fiel
         if not 1.04 <= rho <= 1.25:
             continue
         sides = [p + normal * offset, p - normal * offset]
-        pts = [p] + sides
-        if any(not (0 <= q[0] < h and 0 <= q[1] < w) for q in pts):
+        if any(not (0 <= q[0] < h and 0 <= q[1] < w) for q in sides):
             continue
-        on = float(gray[int(p[0]), int(p[1])])
-        off = [float(gray[int(q[0]), int(q[1])]) for q in sides]
-        differs.append(abs(on - off[0]) > 12.0 and abs(on - off[1]) > 12.0)
+        off = [rgb[int(q[0]), int(q[1])].astype(np.float32) for q in sides]
+        best = 0.0
+        for t in range(-reach, reach + 1):
+            q = p + normal * t
+            if 0 <= q[0] < h and 0 <= q[1] < w:
+                on = rgb[int(q[0]), int(q[1])].astype(np.float32)
+                best = max(best, min(float(np.abs(on - off[0]).max()), float(np.abs(on - off[1]).max())))
+        differs.append(best > 12.0)
     return len(differs) >= 4 and float(np.mean(differs)) >= 0.6
