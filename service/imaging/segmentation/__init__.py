@@ -30,8 +30,8 @@ from service.imaging.segmentation._common import (EIGHT, SMALL_SIDE_PX, Field, a
 from service.imaging.segmentation.cleanup import branch_width_px, keep_specimen
 from service.imaging.segmentation.field_of_view import find_field, parse_roi
 from service.imaging.segmentation.ridge import choose_mode, ridge_mask
-from service.imaging.segmentation.scene import (exclusion_mask, find_electrode, glare_mask, rim_structures,
-                                                stroke_mask, wire_paths)
+from service.imaging.segmentation.scene import (exclusion_mask, find_electrode, glare_halo_pieces, glare_mask,
+                                                rim_structures, stroke_mask, wire_paths)
 from service.imaging.segmentation.threshold import (EVENINGS, even_light, fit_background, levels_picture,
                                                     pick_threshold, threshold_mask)
 
@@ -261,6 +261,7 @@ def segment(
              if fov is not None and fov_kind != "roi" else None)
     scored = [_score_plan(plan, score_small, factor * score_factor, score_excluded, found) for plan in plans]
     scored = _penalise_partial(plans, scored)
+    scored = _penalise_interstitial(plans, scored, score_small, factor * score_factor)
     if chosen_mode == "ridge":
         best_index = None
     else:
@@ -287,6 +288,8 @@ def segment(
                             plan.evening)
         t, method, contrast = pick_threshold(evened, fov, threshold)
         mask = threshold_mask(evened, fov, t)
+        if best_index is not None and threshold is None:
+            settings["kept_near_scored_reading"] = _keep_near(mask, scored[best_index][1], factor * score_factor)
         details = {
             "polarity": evened.polarity,
             "polarity_source": evened.polarity_source if polarity != "auto" or best_index is None
@@ -322,9 +325,11 @@ def segment(
     if not mask.any():
         raise SpecimenError("no specimen found: nothing is left after thresholding and removing specks")
     settings["branch_width_px"] = round(width_px, 2)
-    outline = mask & ~ndimage.binary_erosion(mask, structure=EIGHT, border_value=0)
     electrode = find_electrode(mask, seed_rc, width_px) if chosen_mode == "threshold" else None
+    if electrode is not None:
+        _clear_bare_electrode(mask, electrode)
     settings["electrode"] = electrode
+    outline = mask & ~ndimage.binary_erosion(mask, structure=EIGHT, border_value=0)
     if levels is not None:
         contrast = min(contrast, _deposit_contrast(levels, mask, electrode, settings, seed_rc,
                                                    fov.r if fov is not None else 0.5 * min(h, w)))
@@ -435,6 +440,14 @@ def _score_plan(plan: _Plan, small: np.ndarray, factor: int, small_excluded: np.
     sign = 1.0 if plan.polarity == "dark" else -1.0
     stands_out = (sign * (float(np.median(small[around])) - float(np.median(small[mask]))) / max(noise, 0.5 / 255.0)
                   if around.any() else 0.0)
+    # ... and against the grey just outside its outline, as a share of the field's range of
+    # greys: a halo of solution round a deposit, which a local background brightens, has
+    # nearly the same solution on both sides of its outline (the reduced copy is so smooth
+    # that such a step is still many noise levels).
+    ring = fov_mask & ndimage.binary_dilation(filled, iterations=3) & ~ndimage.binary_dilation(filled)
+    lo, hi = np.percentile(small[fov_mask], (1.0, 99.0))
+    step_here = (sign * (float(np.median(small[ring])) - float(np.median(small[mask]))) / max(float(hi - lo), 1.0 / 255.0)
+                 if ring.any() else 0.0)
     kept_share = area / max(1.0, float(np.count_nonzero(raw)))
     terms = {
         "fills_field": -8.0 * max(0.0, fill - 0.45),
@@ -444,6 +457,7 @@ def _score_plan(plan: _Plan, small: np.ndarray, factor: int, small_excluded: np.
         "contrast": 0.5 * math.log(max(min(contrast, 60.0), 0.5) / 3.0),
         "outline_on_edges": -3.0 * min(1.0, max(0.0, 1.0 - math.log(max(edge_support, 1e-3)) / math.log(4.0))),
         "not_its_side": -4.0 * min(1.0, max(0.0, 1.0 - stands_out / 6.0)),
+        "faint_step": -3.0 * min(1.0, max(0.0, 1.0 - step_here / 0.15)),
         "field_found": 1.0 if fov is not None else 0.0,
     }
     if found is not None and fov is None:
@@ -468,6 +482,73 @@ def _penalise_partial(plans: list[_Plan], scored: list) -> list:
             if penalty < ti.get("partial", 0.0):
                 terms = {**out[i][2], "partial": penalty}
                 out[i] = (float(sum(terms.values())), mi, terms)
+    return out
+
+
+def _clear_bare_electrode(mask: np.ndarray, electrode: dict[str, Any]) -> None:
+    """Clear, in place, an electrode the deposit leaves bare: it is not grown (a simulated
+    cluster grows from its seed site alone). Bare means that less than half of the ring
+    round it (out to twice its radius) is deposit; a deposit that covers its electrode
+    (a compact or dense one) keeps it, as part of what was grown over it."""
+    cy, cx = (float(v) for v in electrode["center_rc"])
+    r = float(electrode["radius_px"]) + 1.5
+    reach = 2.0 * r + 2.0
+    r0, c0 = max(0, int(cy - reach)), max(0, int(cx - reach))
+    window = mask[r0: int(cy + reach) + 2, c0: int(cx + reach) + 2]
+    yy, xx = np.ogrid[r0: r0 + window.shape[0], c0: c0 + window.shape[1]]
+    d2 = (yy - cy) ** 2 + (xx - cx) ** 2
+    disc = d2 <= r * r
+    ring = (d2 > (r + 2.0) ** 2) & (d2 <= reach * reach)
+    if not ring.any() or np.count_nonzero(window & ring) >= 0.5 * np.count_nonzero(ring):
+        return
+    if np.count_nonzero(window & disc) < np.count_nonzero(mask):
+        electrode["cleared_px"] = int(np.count_nonzero(window & disc))
+        window &= ~disc
+
+
+def _keep_near(mask: np.ndarray, scored_mask: np.ndarray, step: int) -> bool:
+    """Clear, in place, what the full-resolution threshold took far from the reading that was
+    scored, when that is most of it (a sharp shadow's edge, which the evened light follows
+    at one resolution and not at the other); returns whether it did. Branches too thin for
+    the scored copy stay: they lie within two of its pixels of what it saw."""
+    near = ndimage.binary_dilation(scored_mask, iterations=2)
+    rows = np.minimum(np.arange(mask.shape[0]) // step, near.shape[0] - 1)
+    cols = np.minimum(np.arange(mask.shape[1]) // step, near.shape[1] - 1)
+    far = mask & ~near[np.ix_(rows, cols)]
+    if np.count_nonzero(far) <= 0.5 * np.count_nonzero(mask):
+        return False
+    mask &= ~far
+    return True
+
+
+def _penalise_interstitial(plans: list[_Plan], scored: list, small: np.ndarray, factor: int) -> list:
+    """A reading that lies mostly within (or just round) the envelope of a reading of the other
+    polarity in the same field, and whose grey stays less than half as far from the
+    background beyond both as that reading's grey does, is the solution between the other's
+    branches (or a halo round them), not a specimen: it loses four points. The background
+    is the field beyond both envelopes."""
+    out = list(scored)
+    envelopes = [ndimage.binary_fill_holes(ndimage.binary_closing(m, structure=EIGHT, iterations=4)) if m.any() else m
+                 for _, m, _ in scored]
+    around = [ndimage.binary_dilation(e, iterations=3) for e in envelopes]
+    for i, (pi, (si, mi, ti)) in enumerate(zip(plans, scored)):
+        if not mi.any() or "interstitial" in ti:
+            continue
+        for j, (pj, (sj, mj, _)) in enumerate(zip(plans, scored)):
+            if pi.polarity == pj.polarity or pi.fov is not pj.fov or not mj.any():
+                continue
+            if np.count_nonzero(mi & around[j]) < 0.7 * np.count_nonzero(mi):
+                continue
+            fov = pi.fov.reduced(factor) if pi.fov is not None else None
+            field = field_mask(small.shape, fov) if fov is not None else np.ones(small.shape, dtype=bool)
+            beyond = field & ~(around[i] | around[j])
+            if np.count_nonzero(beyond) < 0.1 * np.count_nonzero(field):
+                continue
+            ground = float(np.median(small[beyond]))
+            if abs(float(np.median(small[mi])) - ground) < 0.5 * abs(float(np.median(small[mj])) - ground):
+                terms = {**ti, "interstitial": -4.0}
+                out[i] = (float(sum(terms.values())), mi, terms)
+                break
     return out
 
 
@@ -582,8 +663,10 @@ def _remove_scene(mask: np.ndarray, rgb: np.ndarray, fov: Field | None, excluded
     if polarity == "bright":
         glare = glare_mask(rgb, width)
         if glare is not None:
-            info["glare_px"] = int(np.count_nonzero(mask & glare))
             mask &= ~glare
+            halo = glare_halo_pieces(mask, glare)
+            info["glare_px"] = int(np.count_nonzero(glare)) + int(np.count_nonzero(halo))
+            mask &= ~halo
     if fov is not None:
         rim, rim_info = rim_structures(mask, fov, width)
         mask &= ~rim

@@ -1,0 +1,118 @@
+"""Scene parts a bench photograph adds round a deposit, each drawn here by hand, with numpy
+alone, where it is known exactly: a dish on a grained bench, a glare spot's halo, a lead
+whose colour differs from the rim's but not its grey. Independent of the scene renderer
+in ``scenes.py`` and of the product's own renderer."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from service.imaging import segment
+from tests.imaging.masks import random_tree
+
+
+def _ellipse(shape, cx, cy, a, b, theta_deg):
+    yy, xx = np.mgrid[: shape[0], : shape[1]].astype(np.float64)
+    t = math.radians(theta_deg)
+    u = (xx - cx) * math.cos(t) + (yy - cy) * math.sin(t)
+    v = -(xx - cx) * math.sin(t) + (yy - cy) * math.cos(t)
+    return (u / a) ** 2 + (v / b) ** 2
+
+
+def _place(canvas_shape, tree: np.ndarray, cy: int, cx: int, scale: int) -> np.ndarray:
+    big = np.kron(tree, np.ones((scale, scale), dtype=bool))
+    out = np.zeros(canvas_shape, dtype=bool)
+    h, w = big.shape
+    out[cy - h // 2: cy - h // 2 + h, cx - w // 2: cx - w // 2 + w] = big
+    return out
+
+
+def _to_uint8(rgb: np.ndarray) -> np.ndarray:
+    return (np.clip(rgb, 0.0, 1.0) * 255.0 + 0.5).astype(np.uint8)
+
+
+def test_a_dish_on_a_grained_bench_is_found():
+    """Brushed metal: streaks one or two pixels wide, stronger than the dish wall's edge is
+    anywhere (the wall is a faint grey line on a lilac solution). The dish is still the
+    ellipse that bounds the region of colours the bench does not have."""
+    rng = np.random.default_rng(5)
+    h, w = 600, 800
+    streak = rng.normal(0.0, 0.22, (h, 1)) * np.ones((1, w)) + rng.normal(0.0, 0.05, (h, w))
+    bench = np.stack([0.62 + streak, 0.52 + streak, 0.30 + streak], axis=-1)
+    rho = _ellipse((h, w), 420, 290, 250, 190, 20)
+    photo = bench.copy()
+    inside = rho <= 1.0
+    photo[inside] = (0.80, 0.76, 0.86)
+    wall = (rho > 0.97) & (rho <= 1.0)
+    photo[wall] = (0.70, 0.68, 0.74)
+    deposit = _place((h, w), random_tree(128, seed=4), 290, 420, 2) & (rho < 0.8)
+    photo[deposit] = (0.18, 0.16, 0.15)
+    photo += rng.normal(0.0, 0.01, photo.shape)
+    seg = segment(_to_uint8(photo))
+
+    assert seg.settings["field_of_view"]["source"] == "dish rim", seg.settings["field_of_view"]
+    # The field found against the ellipse drawn: their areas overlap by IoU >= 0.85.
+    roi = seg.settings["reading"]["roi"]
+    cx, cy, rx, ry, angle = roi if len(roi) == 5 else (roi[0], roi[1], roi[2], roi[2], 0.0)
+    found = _ellipse((h, w), cx, cy, rx, ry, angle) <= 1.0
+    assert np.count_nonzero(found & inside) / np.count_nonzero(found | inside) >= 0.85
+    # ... and the deposit, not the solution, is the specimen.
+    assert np.count_nonzero(seg.mask & deposit) / np.count_nonzero(seg.mask | deposit) >= 0.85
+
+
+def test_a_glare_spots_halo_is_not_taken_for_deposit():
+    """A glare spot clipped white at its centre and fading over its own radius, on a dark
+    solution beside a bright deposit: neither the spot nor the ring of its halo that a
+    threshold would keep belongs to the specimen."""
+    rng = np.random.default_rng(8)
+    h, w = 600, 600
+    rho = _ellipse((h, w), 300, 300, 280, 280, 0)
+    photo = np.empty((h, w, 3))
+    photo[:] = (0.35, 0.33, 0.30)
+    photo[rho <= 1.0] = (0.12, 0.15, 0.20)
+    photo[(rho > 0.95) & (rho <= 1.0)] = (0.55, 0.55, 0.55)
+    deposit = _place((h, w), random_tree(128, seed=6), 300, 300, 2) & (rho < 0.6)
+    photo[deposit] = (0.85, 0.55, 0.25)
+    # The spot: white out to 14 px, then a Gaussian fall to the solution over about 20 px more.
+    gy, gx = 130, 430
+    r = np.hypot(*np.mgrid[:h, :w] - np.array([gy, gx])[:, None, None])
+    glow = np.where(r <= 14.0, 1.0, np.exp(-0.5 * ((r - 14.0) / 9.0) ** 2))
+    photo += glow[..., None] * (1.0 - photo)
+    photo += rng.normal(0.0, 0.008, photo.shape)
+    assert not np.any(deposit & (r <= 40.0))  # the spot stands apart from the deposit
+    seg = segment(_to_uint8(photo))
+
+    assert np.count_nonzero(seg.mask & (r <= 40.0)) == 0
+    assert np.count_nonzero(seg.mask & deposit) / np.count_nonzero(seg.mask | deposit) >= 0.85
+
+
+def test_a_red_lead_over_a_green_rim_is_left_out():
+    """A lead from the frame to the centre electrode, red on a teal rim of nearly the same
+    grey: it runs on past the dish, which a deposit never does, so it is not specimen."""
+    rng = np.random.default_rng(3)
+    h, w = 700, 700
+    rho = _ellipse((h, w), 350, 350, 300, 300, 0)
+    photo = np.empty((h, w, 3))
+    photo[:] = (0.45, 0.45, 0.47)
+    photo[rho <= 1.08] = (0.10, 0.50, 0.42)  # the rim, teal
+    photo[rho <= 1.0] = (0.62, 0.78, 0.95)  # the solution
+    deposit = _place((h, w), random_tree(128, seed=9), 350, 350, 2) & (rho < 0.65)
+    photo[deposit] = (0.20, 0.18, 0.18)
+    yy, xx = np.mgrid[:h, :w]
+    electrode = np.hypot(yy - 350, xx - 350) <= 8
+    photo[electrode] = (0.05, 0.05, 0.05)
+    # A straight lead, 4 px wide, from the electrode to the bottom-right corner.
+    d = np.array([1.0, 1.0]) / math.sqrt(2.0)
+    along = (yy - 350) * d[0] + (xx - 350) * d[1]
+    across = np.abs(-(yy - 350) * d[1] + (xx - 350) * d[0])
+    lead = (along >= 0) & (across <= 2.0)
+    photo[lead] = (0.72, 0.12, 0.10)  # red: grey 0.37 against the rim's 0.36
+    photo += rng.normal(0.0, 0.01, photo.shape)
+    seg = segment(_to_uint8(photo))
+
+    # Away from the deposit's reach, what of the lead lies inside the dish is left out.
+    free_lead = lead & (rho < 0.97) & (along > 0.7 * 300)
+    assert np.count_nonzero(free_lead) > 100
+    assert np.count_nonzero(seg.mask & free_lead) <= 0.1 * np.count_nonzero(free_lead)
