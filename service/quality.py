@@ -106,6 +106,18 @@ def grid_cell(grid: Sequence[float], value: float, axis: str = "linear") -> tupl
     return (math.exp(lo), math.exp(hi)) if log else (lo, hi)
 
 
+def grid_limited_cell(value, std, grid: Sequence[float] | None, axis: str = "linear") -> tuple[float, float] | None:
+    """The library grid cell holding ``value`` when the posterior spread ``std`` is narrower
+    than half that cell (or missing): the spread then reflects the grid, not the specimen,
+    and the estimate is known only to lie in the cell. None otherwise."""
+    if not _finite(value):
+        return None
+    cell = grid_cell(grid or [], float(value), axis)
+    if cell is None or (_finite(std) and std >= 0.5 * (cell[1] - cell[0])):
+        return None
+    return cell
+
+
 def judge_parameter(name: str, value, ci95: Sequence | None, std, grid: Sequence[float] | None, *,
                     axis: str = "linear", spans_library_range: bool = False,
                     regime_probability: float | None = None, regime: str | None = None) -> Judgement:
@@ -123,15 +135,13 @@ def judge_parameter(name: str, value, ci95: Sequence | None, std, grid: Sequence
     if spans_library_range:
         out = out.worst(Judgement(WITHHELD, f"the 95% interval spans the whole library range: the references do "
                                             f"not tell {name} for this specimen"))
-    cell = grid_cell(grid or [], float(value), axis)
+    cell = grid_limited_cell(value, std, grid, axis)
     if cell is not None:
-        half = 0.5 * (cell[1] - cell[0])
-        if not _finite(std) or std < half:
-            shown = f"{std:.2g}" if _finite(std) else "none"
-            out = out.worst(Judgement(UNCERTAIN, f"the library holds {name} only at a few values, so the estimate "
-                                                 f"is no finer than {cell[0]:.3g} to {cell[1]:.3g}; the posterior "
-                                                 f"spread ({shown}) reflects that grid, not the specimen: quote the "
-                                                 "95% interval"))
+        shown = f"{std:.2g}" if _finite(std) else "none"
+        out = out.worst(Judgement(UNCERTAIN, f"the library holds {name} only at a few values, so the estimate "
+                                             f"is no finer than {cell[0]:.3g} to {cell[1]:.3g}; the posterior "
+                                             f"spread ({shown}) reflects that grid, not the specimen: quote the "
+                                             "95% interval"))
     if regime_probability is not None and _finite(regime_probability) and regime_probability < LIKELY_REGIME:
         out = out.worst(Judgement(UNCERTAIN, f"holds only if the specimen grew as {regime or 'this regime'}, whose "
                                              f"probability is {regime_probability:.2f}"))

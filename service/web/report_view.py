@@ -16,7 +16,7 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
-from service.quality import UNCERTAIN, grid_cell, judge_dimension
+from service.quality import UNCERTAIN, grid_limited_cell, judge_dimension, judge_parameter
 from service.web import labels
 
 #: Fits over less than this many decades of scale are flagged (common practice: at least one decade).
@@ -461,31 +461,23 @@ def parameter_estimates(analysis: dict[str, Any], v: Verdict) -> list[Estimate]:
                 continue
             value = _number(est.get("value"))
             grid = [x for x in est.get("values_in_library") or [] if _number(x) is not None]
-            log_axis = est.get("axis") == "log"
+            axis = "log" if est.get("axis") == "log" else "linear"
             interval = _interval(est.get("ci95"))
             std = _number(est.get("std"))
-            cell = grid_cell(grid, value, "log" if log_axis else "linear") if value is not None else None
-            status, reason, shown_interval = "ok", "", ""
-            if value is None:
-                status, reason = "withheld", "no estimate"
-            else:
-                finer = False
-                if cell is not None:
-                    cell_half = (cell[1] - cell[0]) / 2
-                    if interval is not None:
-                        finer = (interval[1] - interval[0]) / 2 < cell_half * 0.999
-                    else:  # an older record without an interval: its spread as a normal 95% half-width
-                        finer = std is None or 1.96 * std < cell_half * 0.999
-                if finer and cell is not None:
-                    status = "flagged"
-                    reason = (f"the uncertainty computed over the library ({num(std, 2)}) is finer than the library's "
-                              f"grid ({', '.join(num(x) for x in grid)}) can resolve; the estimate is only known "
-                              "to lie in the cell around its nearest library value")
-                    lo = min(cell[0], interval[0]) if interval else cell[0]
-                    hi = max(cell[1], interval[1]) if interval else cell[1]
-                    shown_interval = f"{num(lo)} – {num(hi)}"
-                elif interval is not None:
-                    shown_interval = f"{num(interval[0])} – {num(interval[1])}"
+            # The contract's rule (service.quality), so the page and the JSON judge alike.
+            judged = judge_parameter(labels.PARAMETERS.get(name, name.replace("_", " ")), value, interval, std, grid,
+                                     axis=axis, spans_library_range=bool(est.get("spans_library_range")),
+                                     regime_probability=_number(est.get("regime_probability")), regime=regime)
+            status = "flagged" if judged.status == UNCERTAIN else judged.status
+            reason, shown_interval = judged.reason, ""
+            cell = grid_limited_cell(value, std, grid, axis)
+            if cell is not None:
+                # Known only to lie in the grid cell: show the cell (and the interval, if wider).
+                lo = min(cell[0], interval[0]) if interval else cell[0]
+                hi = max(cell[1], interval[1]) if interval else cell[1]
+                shown_interval = f"{num(lo)} – {num(hi)}"
+            elif interval is not None and status != "withheld":
+                shown_interval = f"{num(interval[0])} – {num(interval[1])}"
             out.append(Estimate(labels.regime_label(regime), labels.PARAMETERS.get(name, name.replace("_", " ")),
                                 num(value) if status != "withheld" else "", shown_interval,
                                 ", ".join(num(x) for x in grid), _percent(_number(est.get("regime_probability"))),
