@@ -186,14 +186,18 @@ def segment(
     -----
     Field of view: a bright field on a dark surround; else a dish, the region a watershed
     [1]_ of the colour gradient gives the image centre against the bench in the frame's
-    outer band, fitted by an ellipse with RANSAC [2]_; else a circular Hough transform [3]_
-    of the rim. Light: a quadratic surface fitted to the background class, corrected locally
+    outer band, fitted by an ellipse with RANSAC [2]_ (on a median-filtered copy when the
+    bench's grain hides the wall, then as the region of colours the bench lacks); else a
+    circular Hough transform [3]_ of the rim. Light: a quadratic surface fitted to the background class, corrected locally
     by a normalised Gaussian average of the background, divided out. Threshold: Otsu's [4]_,
     moved half way between the background and the specimen's full-contrast grey, where a
     blurred edge crosses half its contrast. Readings: every combination of the field found
     or the whole image with either polarity is segmented at reduced resolution and scored;
-    the best is measured at full resolution. Rim structures (a ring, a wall highlight, tape)
-    are cut where they run along the field's edge. Specks, pinholes and components kept
+    the best is measured at full resolution, where it stays near what the scored copy showed.
+    A reading of one polarity lying within another's envelope with nearly the background's
+    grey (the solution between branches, or a halo) loses. Rim structures (a ring, a wall
+    highlight, tape) are cut where they run along the field's edge; a lead to the electrode,
+    glare with its halo, and an electrode the deposit leaves bare are cleared. Specks, pinholes and components kept
     scale with the measured branch width. Ridge mode: a multiscale Hessian line measure
     in the spirit of [5]_.
 
@@ -663,9 +667,10 @@ def _remove_scene(mask: np.ndarray, rgb: np.ndarray, fov: Field | None, excluded
     if polarity == "bright":
         glare = glare_mask(rgb, width)
         if glare is not None:
+            removed = int(np.count_nonzero(mask & glare))
             mask &= ~glare
             halo = glare_halo_pieces(mask, glare)
-            info["glare_px"] = int(np.count_nonzero(glare)) + int(np.count_nonzero(halo))
+            info["glare_px"] = removed + int(np.count_nonzero(halo))
             mask &= ~halo
     if fov is not None:
         rim, rim_info = rim_structures(mask, fov, width)
