@@ -196,8 +196,8 @@ def segment(
     the best is measured at full resolution, where it stays near what the scored copy showed.
     A reading of one polarity lying within another's envelope with nearly the background's
     grey (the solution between branches, or a halo) loses. Rim structures (a ring, a wall
-    highlight, tape) are cut where they run along the field's edge; a lead to the electrode,
-    glare with its halo, and an electrode the deposit leaves bare are cleared. Specks, pinholes and components kept
+    highlight, tape) are cut where they run along the field's edge; a lead to the electrode
+    and glare with its halo are cleared. Specks, pinholes and components kept
     scale with the measured branch width. Ridge mode: a multiscale Hessian line measure
     in the spirit of [5]_.
 
@@ -329,11 +329,12 @@ def segment(
     if not mask.any():
         raise SpecimenError("no specimen found: nothing is left after thresholding and removing specks")
     settings["branch_width_px"] = round(width_px, 2)
-    electrode = find_electrode(mask, seed_rc, width_px) if chosen_mode == "threshold" else None
-    if electrode is not None:
-        _clear_bare_electrode(mask, electrode)
-    settings["electrode"] = electrode
     outline = mask & ~ndimage.binary_erosion(mask, structure=EIGHT, border_value=0)
+    # The electrode stays in the mask: the matcher's reference drawings carry one too, and a
+    # deposit cut from it measures as pieces (clearing bare ones put 4 of 20 fresh photographs
+    # of library regimes outside the library).
+    electrode = find_electrode(mask, seed_rc, width_px) if chosen_mode == "threshold" else None
+    settings["electrode"] = electrode
     if levels is not None:
         contrast = min(contrast, _deposit_contrast(levels, mask, electrode, settings, seed_rc,
                                                    fov.r if fov is not None else 0.5 * min(h, w)))
@@ -487,27 +488,6 @@ def _penalise_partial(plans: list[_Plan], scored: list) -> list:
                 terms = {**out[i][2], "partial": penalty}
                 out[i] = (float(sum(terms.values())), mi, terms)
     return out
-
-
-def _clear_bare_electrode(mask: np.ndarray, electrode: dict[str, Any]) -> None:
-    """Clear, in place, an electrode the deposit leaves bare: it is not grown (a simulated
-    cluster grows from its seed site alone). Bare means that less than half of the ring
-    round it (out to twice its radius) is deposit; a deposit that covers its electrode
-    (a compact or dense one) keeps it, as part of what was grown over it."""
-    cy, cx = (float(v) for v in electrode["center_rc"])
-    r = float(electrode["radius_px"]) + 1.5
-    reach = 2.0 * r + 2.0
-    r0, c0 = max(0, int(cy - reach)), max(0, int(cx - reach))
-    window = mask[r0: int(cy + reach) + 2, c0: int(cx + reach) + 2]
-    yy, xx = np.ogrid[r0: r0 + window.shape[0], c0: c0 + window.shape[1]]
-    d2 = (yy - cy) ** 2 + (xx - cx) ** 2
-    disc = d2 <= r * r
-    ring = (d2 > (r + 2.0) ** 2) & (d2 <= reach * reach)
-    if not ring.any() or np.count_nonzero(window & ring) >= 0.5 * np.count_nonzero(ring):
-        return
-    if np.count_nonzero(window & disc) < np.count_nonzero(mask):
-        electrode["cleared_px"] = int(np.count_nonzero(window & disc))
-        window &= ~disc
 
 
 def _keep_near(mask: np.ndarray, scored_mask: np.ndarray, step: int) -> bool:
