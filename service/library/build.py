@@ -59,43 +59,45 @@ PARAMETER_GRID: dict[str, tuple[dict[str, Any], ...]] = {
 }
 
 
-def _preset(
-    sizes: dict[str, tuple[int, ...]],
-    n_realisations: int,
-    overrides: tuple[tuple[str, dict[str, Any], tuple[int, ...]], ...] = (),
-) -> tuple[EnsembleSpec, ...]:
-    """Every regime and parameter of ``PARAMETER_GRID`` at the regime's ``sizes``, except
-    the ``(regime, parameters, sizes)`` rows of ``overrides``."""
-    special = {(regime, json.dumps(parameters, sort_keys=True)): n for regime, parameters, n in overrides}
+def _preset(sizes: dict[str, tuple[int, ...]], n_realisations: int) -> tuple[EnsembleSpec, ...]:
+    """Every regime and parameter of ``PARAMETER_GRID`` at the regime's ``sizes``."""
     return tuple(
         EnsembleSpec(regime, parameters, n, n_realisations)
         for regime, grid in PARAMETER_GRID.items()
         for parameters in grid
-        for n in special.get((regime, json.dumps(parameters, sort_keys=True)), sizes[regime])
+        for n in sizes[regime]
     )
 
 
-_FULL_SIZES = (1000, 3000, 10000, 30000)
+_LATTICE_SIZES = (1000, 3000, 10000, 30000, 100000)
 #: Cluster sizes of each regime in the ``default`` preset.
 DEFAULT_SIZES: dict[str, tuple[int, ...]] = {
-    "dla": _FULL_SIZES, "eden": _FULL_SIZES, "ballistic": _FULL_SIZES, "dbm": (1000, 3000),
+    "dla": _LATTICE_SIZES, "eden": _LATTICE_SIZES, "ballistic": _LATTICE_SIZES, "dbm": (1000, 3000, 10000),
 }
-#: (regime, parameters, sizes) rows of ``default`` that differ from ``DEFAULT_SIZES``.
-DEFAULT_OVERRIDES: tuple[tuple[str, dict[str, Any], tuple[int, ...]], ...] = (
-    *(("dbm", {"eta": eta, **near}, (1000,)) for eta in (3.0, 4.0) for near in ({}, {"electrode": "near"})),
-)
 
 #: Named presets. ``default`` is the bundled set; ``tiny`` grows every regime and parameter
 #: at a very small size, for tests of the build itself.
 #:
-#: In ``default``, DBM stops at 3,000 sites (each growth step updates the Laplace field over
-#: the whole electrode disc), and at 1,000 for eta 3 and 4, whose nearly linear clusters need
-#: a disc growing with their length (eta 4: about 9 s at 1,000 sites, 420 s at 3,000) and
-#: already span as many sites at 1,000 as a DLA cluster of ten times that mass.
+#: In ``default``, DLA, Eden and ballistic reach 100,000 sites, so that a specimen hundreds of
+#: branch widths across meets references of its own size. DBM reaches 10,000 sites for every
+#: eta and both electrodes: each growth step solves the Laplace field over the whole electrode
+#: disc, which at 10,000 sites costs about 10 s a cluster at eta 0.5 and 1 and one to two
+#: minutes at eta 3 and 4 (``estimated_seconds``), and grows faster than the size, so 30,000
+#: would cost several times the rest of the build for 16 realisations of 12 families. Clusters above
+#: ``STORED_SITES_MAX`` sites are kept as seeds, digests and thumbnails and regrown on demand;
+#: their matcher features are computed at build time (``ramiform library build``).
 PRESETS: dict[str, tuple[EnsembleSpec, ...]] = {
-    "default": _preset(DEFAULT_SIZES, n_realisations=16, overrides=DEFAULT_OVERRIDES),
+    "default": _preset(DEFAULT_SIZES, n_realisations=16),
     "tiny": _preset({regime: (200,) for regime in PARAMETER_GRID}, n_realisations=2),
 }
+
+#: Largest cluster whose sites a build stores; larger ones are regrown from their seeds when
+#: their sites are needed (checked against the SHA-256 of the sites as grown). Stored sites
+#: compress to 2.7-2.9 bytes a site (measured on Eden, ballistic and DLA clusters of 100,000
+#: sites), so in ``default`` the 16 realisations of the nine DLA, Eden and ballistic families
+#: would take about 12 MB at 30,000 sites and 41 MB at 100,000, against about 12 MB for
+#: every ensemble up to 10,000 sites: only the latter fits the bundled set's 25 MB.
+STORED_SITES_MAX = 10_000
 
 #: How seeds follow from an ensemble and a realisation index (recorded in the manifest).
 #: Four bytes, since the simulators take seeds in [0, 2**32).
@@ -126,16 +128,19 @@ def estimated_seconds(regime: str, parameters: dict[str, Any], n_particles: int)
     """
     n = float(n_particles)
     if regime == "dbm":
+        # Measured at 3,000 and 10,000 sites on the two shared cores of the development
+        # machine (2026-12-02): eta 0.5 1.9 s / 8.9 s, eta 1 2.3 / 10.5, eta 2 3.9 / 21,
+        # eta 3 8.7 / 91, eta 4 12.9 s at 3,000; the cost grows like n^exponent in between.
         eta = parameters.get("eta", 1.0)
-        at_1000 = np.interp(eta, [0.5, 1.0, 1.5, 2.0, 3.0, 4.0], [0.7, 1.5, 3.0, 4.0, 7.2, 8.6])
-        exponent = np.interp(eta, [2.0, 3.0, 4.0], [1.2, 2.5, 3.5])
-        return float(at_1000 * (n / 1000.0) ** exponent)
+        at_10000 = np.interp(eta, [0.5, 1.0, 2.0, 3.0, 4.0], [8.9, 10.5, 21.0, 91.0, 150.0])
+        exponent = np.interp(eta, [0.5, 1.0, 2.0, 3.0, 4.0], [1.28, 1.26, 1.39, 1.95, 2.1])
+        return float(at_10000 * (n / 10000.0) ** exponent)
     return SECONDS_PER_SITE.get(regime, 1e-5) * n
 
 
 #: Single-core seconds per grown site of the regimes whose cost grows linearly (DBM is modelled
 #: in ``estimated_seconds``).
-SECONDS_PER_SITE: dict[str, float] = {"dla": 6e-6, "eden": 1e-7, "ballistic": 4e-7}
+SECONDS_PER_SITE: dict[str, float] = {"dla": 7e-6, "eden": 4e-7, "ballistic": 1.3e-6}
 
 
 # --------------------------------------------------------------------------- Dask
@@ -229,6 +234,7 @@ def build_library(
     scheduler: str | None = None,
     workers: int | None = None,
     progress: bool = True,
+    stored_sites_max: int = STORED_SITES_MAX,
 ) -> Path:
     """Grow every ensemble of ``preset`` on Dask and write a reference set to ``out_dir``.
 
@@ -245,6 +251,10 @@ def build_library(
         Worker processes of the LocalCluster (default: one per usable CPU, ``service.cpus``).
     progress : bool
         Show a progress bar on stderr.
+    stored_sites_max : int
+        Ensembles of at most this many sites store their sites; larger ones are written as
+        seeds, per-realisation digests and a thumbnail, and regrown when read
+        (:mod:`service.library.storage`).
 
     Returns
     -------
@@ -266,8 +276,9 @@ def build_library(
         Ensemble(
             **vars(spec),
             seeds=tuple(realisation_seed(preset, spec, i) for i in range(spec.n_realisations)),
-            clusters=f"{CLUSTER_DIR}/{spec.id}.npz",
+            clusters=f"{CLUSTER_DIR}/{spec.id}.npz" if spec.n_particles <= stored_sites_max else "",
             thumbnail=f"{THUMBNAIL_DIR}/{spec.id}.png",
+            sites_stored=spec.n_particles <= stored_sites_max,
         )
         for spec in specs
     ]
