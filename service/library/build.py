@@ -11,6 +11,7 @@ first.
 from __future__ import annotations
 
 import hashlib
+import io
 import json
 import os
 import shutil
@@ -33,6 +34,7 @@ from service.library.storage import (
     Ensemble,
     EnsembleSpec,
     sites_from_lattice,
+    write_bytes,
     write_reference_set,
 )
 
@@ -177,12 +179,14 @@ def run_tasks(
     workers: int | None = None,
     progress: bool = True,
     label: str = "tasks",
+    on_result: Callable[[int, Any], None] | None = None,
 ) -> list[Any]:
     """``[fn(*task) for task in tasks]``, computed on Dask, returned in the order of ``tasks``.
 
     Tasks start in decreasing order of ``costs`` (longest first keeps every worker busy to
     the end); the progress bar counts done/total and estimates the time left from the
-    costs already done.
+    costs already done. ``on_result(i, result)``, if given, is called in this process as
+    each task ``i`` finishes (to keep results of a long run as they come).
     """
     from distributed import as_completed
     from tqdm import tqdm
@@ -212,6 +216,8 @@ def run_tasks(
                         other.cancel()
                     raise LibraryError(f"{label}: task {tasks[i]!r:.200} failed: {exc}") from exc
                 future.release()
+                if on_result is not None:
+                    on_result(i, results[i])
                 bar.set_description_str(f"{label}: {done}/{len(tasks)}", refresh=False)
                 bar.update(weights[i])
     return results
@@ -265,6 +271,11 @@ def build_library(
     -----
     Same preset, same software: byte-identical cluster and thumbnail files, and a manifest
     that differs only in its ``build`` entry (wall time and machinery used).
+
+    A long build can be interrupted and resumed: each cluster is kept as it arrives in
+    ``<out_dir>.grown/`` (see :class:`GrownClusters`), and a build of the same preset into
+    the same folder grows only those not kept yet. The folder is removed once the set is
+    written, and ignored if the simulators' source changed since it was filled.
     """
     if preset not in PRESETS:
         raise ValueError(f"unknown preset {preset!r}; known presets: {sorted(PRESETS)}")
@@ -283,23 +294,30 @@ def build_library(
         for spec in specs
     ]
     tasks = [(e.regime, dict(e.parameters), e.n_particles, seed) for e in ensembles for seed in e.seeds]
-    costs = [estimated_seconds(regime, parameters, n) for regime, parameters, n, _ in tasks]
+    grown = GrownClusters(out_dir.with_name(out_dir.name + ".grown"))
+    sites: list[np.ndarray | None] = [grown.get(task) for task in tasks]
+    missing = [i for i, s in enumerate(sites) if s is None]
+    costs = [estimated_seconds(*tasks[i][:3]) for i in missing]
     if progress:
+        kept = f" ({len(tasks) - len(missing)} kept from an interrupted build)" if len(missing) < len(tasks) else ""
         print(
-            f"growing {preset!r}: {len(tasks)} clusters in {len(ensembles)} ensembles, "
+            f"growing {preset!r}: {len(tasks)} clusters in {len(ensembles)} ensembles{kept}, "
             f"roughly {sum(costs) / 60:.0f} core-minutes",
             file=sys.stderr,
         )
     started = time.perf_counter()
-    sites = run_tasks(
+    fresh = run_tasks(
         grow_sites,
-        tasks,
+        [tasks[i] for i in missing],
         costs=costs,
         scheduler=scheduler,
         workers=workers,
         progress=progress,
         label=f"growing {preset}",
+        on_result=lambda j, result: grown.put(tasks[missing[j]], result),
     )
+    for i, result in zip(missing, fresh):
+        sites[i] = result
     wall_s = time.perf_counter() - started
 
     staging = out_dir.with_name(out_dir.name + ".partial")
@@ -313,7 +331,55 @@ def build_library(
         staging, preset=preset, ensembles=ensembles, sites=sites, seed_rule=SEED_RULE, build=build
     )
     _replace_folder(staging, out_dir)
+    grown.remove()
     return out_dir
+
+
+class GrownClusters:
+    """Clusters of an unfinished build, one ``.npy`` file each, keyed by what grew them.
+
+    A file's name is the SHA-256 of the task (regime, parameters, size, seed); the folder's
+    ``simulators.txt`` holds a digest of the simulators' source, and a folder written by other
+    simulators is emptied on opening rather than trusted. Files are written whole (through a
+    temporary file and a rename), so an interrupted build leaves no half cluster.
+    """
+
+    def __init__(self, folder: Path):
+        self.folder = Path(folder)
+        stamp = self.folder / "simulators.txt"
+        digest = _simulator_digest()
+        if self.folder.is_dir() and (not stamp.is_file() or stamp.read_text() != digest):
+            shutil.rmtree(self.folder)
+        if not self.folder.is_dir():
+            self.folder.mkdir(parents=True)
+            write_bytes(stamp, digest.encode())
+
+    def _path(self, task: tuple[Any, ...]) -> Path:
+        key = json.dumps(list(task), sort_keys=True, separators=(",", ":")).encode()
+        return self.folder / f"{hashlib.sha256(key).hexdigest()}.npy"
+
+    def get(self, task: tuple[Any, ...]) -> np.ndarray | None:
+        try:
+            return np.load(self._path(task), allow_pickle=False)
+        except (OSError, ValueError):
+            return None
+
+    def put(self, task: tuple[Any, ...], sites: np.ndarray) -> None:
+        payload = io.BytesIO()
+        np.save(payload, sites, allow_pickle=False)
+        write_bytes(self._path(task), payload.getvalue())
+
+    def remove(self) -> None:
+        shutil.rmtree(self.folder, ignore_errors=True)
+
+
+def _simulator_digest() -> str:
+    """SHA-256 over the source of ``service.simulate`` (what a kept cluster was grown by)."""
+    folder = Path(__file__).resolve().parents[1] / "simulate"
+    digest = hashlib.sha256()
+    for path in sorted(folder.rglob("*.py")):
+        digest.update(path.relative_to(folder).as_posix().encode() + b"\0" + path.read_bytes() + b"\0")
+    return digest.hexdigest()
 
 
 def _replace_folder(new: Path, target: Path) -> None:

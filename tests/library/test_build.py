@@ -149,3 +149,25 @@ def test_default_preset_covers_the_grid_the_library_promises():
         largest[key] = max(largest.get(key, 0), s.n_particles)
     assert len(largest) == len(grid)
     assert all(n >= (10_000 if key[0] == "dbm" else 100_000) for key, n in largest.items())
+
+
+def test_an_interrupted_build_resumes_from_the_clusters_it_kept(tiny_sets, dask_cluster, tmp_path):
+    # A build keeps each cluster as it arrives in <out>.grown/; building again takes the kept
+    # ones instead of growing them anew. One kept cluster is marked (its arrival order
+    # reversed): the resumed set must hold the marked one, which no simulator grows.
+    from service.library.build import GrownClusters
+
+    stored = load_reference_set(tiny_sets[0])
+    ensemble = stored.ensembles[0]
+    marked = stored.sites(ensemble)[1][::-1].copy()
+    kept = GrownClusters(tmp_path / "set.grown")
+    kept.put((ensemble.regime, dict(ensemble.parameters), ensemble.n_particles, ensemble.seeds[1]), marked)
+    resumed = build_library("tiny", tmp_path / "set", scheduler=dask_cluster.scheduler_address, progress=False)
+    assert np.array_equal(load_reference_set(resumed).sites(ensemble)[1], marked)
+    assert not (tmp_path / "set.grown").exists()
+    # Kept clusters of other simulators are not trusted: the folder is emptied.
+    kept = GrownClusters(tmp_path / "again.grown")
+    kept.put((ensemble.regime, dict(ensemble.parameters), ensemble.n_particles, ensemble.seeds[1]), marked)
+    (tmp_path / "again.grown" / "simulators.txt").write_text("grown by other simulators")
+    again = build_library("tiny", tmp_path / "again", scheduler=dask_cluster.scheduler_address, progress=False)
+    assert np.array_equal(load_reference_set(again).sites(ensemble)[1], stored.sites(ensemble)[1])
