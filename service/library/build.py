@@ -83,7 +83,7 @@ DEFAULT_SIZES: dict[str, tuple[int, ...]] = {
 #: In ``default``, DLA, Eden and ballistic reach 100,000 sites, so that a specimen hundreds of
 #: branch widths across meets references of its own size. DBM reaches 10,000 sites for every
 #: eta and both electrodes: each growth step solves the Laplace field over the whole electrode
-#: disc, which at 10,000 sites costs about 10 s a cluster at eta 0.5 and 1 and one to two
+#: disc, which at 10,000 sites costs about 10 s a cluster at eta 0.5 and 1 and one to three
 #: minutes at eta 3 and 4 (``estimated_seconds``), and grows faster than the size, so 30,000
 #: would cost several times the rest of the build for 16 realisations of 12 families. Clusters above
 #: ``STORED_SITES_MAX`` sites are kept as seeds, digests and thumbnails and regrown on demand;
@@ -132,10 +132,12 @@ def estimated_seconds(regime: str, parameters: dict[str, Any], n_particles: int)
     if regime == "dbm":
         # Measured at 3,000 and 10,000 sites on the two shared cores of the development
         # machine (2026-12-02): eta 0.5 1.9 s / 8.9 s, eta 1 2.3 / 10.5, eta 2 3.9 / 21,
-        # eta 3 8.7 / 91, eta 4 12.9 s at 3,000; the cost grows like n^exponent in between.
+        # eta 3 8.7 / 91, eta 4 12.9 s / about 3 minutes (from the default build); the cost
+        # grows like n^exponent in between. A near electrode stops the deposit early (about
+        # half the sites at 10,000), which this overestimates.
         eta = parameters.get("eta", 1.0)
-        at_10000 = np.interp(eta, [0.5, 1.0, 2.0, 3.0, 4.0], [8.9, 10.5, 21.0, 91.0, 150.0])
-        exponent = np.interp(eta, [0.5, 1.0, 2.0, 3.0, 4.0], [1.28, 1.26, 1.39, 1.95, 2.1])
+        at_10000 = np.interp(eta, [0.5, 1.0, 2.0, 3.0, 4.0], [8.9, 10.5, 21.0, 91.0, 180.0])
+        exponent = np.interp(eta, [0.5, 1.0, 2.0, 3.0, 4.0], [1.28, 1.26, 1.39, 1.95, 2.2])
         return float(at_10000 * (n / 10000.0) ** exponent)
     return SECONDS_PER_SITE.get(regime, 1e-5) * n
 
