@@ -11,6 +11,7 @@ first.
 from __future__ import annotations
 
 import hashlib
+import io
 import json
 import os
 import shutil
@@ -33,6 +34,7 @@ from service.library.storage import (
     Ensemble,
     EnsembleSpec,
     sites_from_lattice,
+    write_bytes,
     write_reference_set,
 )
 
@@ -76,7 +78,7 @@ def _preset(
 
 
 _FULL_SIZES = (1000, 3000, 10000, 30000)
-#: Cluster sizes of each regime in the ``default`` preset.
+#: Cluster sizes of each regime in the ``default`` preset (the bundled set).
 DEFAULT_SIZES: dict[str, tuple[int, ...]] = {
     "dla": _FULL_SIZES, "eden": _FULL_SIZES, "ballistic": _FULL_SIZES, "dbm": (1000, 3000),
 }
@@ -84,18 +86,37 @@ DEFAULT_SIZES: dict[str, tuple[int, ...]] = {
 DEFAULT_OVERRIDES: tuple[tuple[str, dict[str, Any], tuple[int, ...]], ...] = (
     *(("dbm", {"eta": eta, **near}, (1000,)) for eta in (3.0, 4.0) for near in ({}, {"electrode": "near"})),
 )
+#: Cluster sizes of the ``reach`` preset: DLA, Eden and ballistic to 100,000 sites, DBM to
+#: 10,000 for every eta and both electrodes.
+REACH_SIZES: dict[str, tuple[int, ...]] = {
+    "dla": _FULL_SIZES + (100000,), "eden": _FULL_SIZES + (100000,), "ballistic": _FULL_SIZES + (100000,),
+    "dbm": (1000, 3000, 10000),
+}
 
-#: Named presets. ``default`` is the bundled set; ``tiny`` grows every regime and parameter
-#: at a very small size, for tests of the build itself.
+#: Named presets. ``default`` is the bundled set; ``reach`` grows references as large as the
+#: specimens hundreds of branch widths across that users photograph; ``tiny`` grows every
+#: regime and parameter at a very small size, for tests of the build itself.
 #:
-#: In ``default``, DBM stops at 3,000 sites (each growth step updates the Laplace field over
-#: the whole electrode disc), and at 1,000 for eta 3 and 4, whose nearly linear clusters need
-#: a disc growing with their length (eta 4: about 9 s at 1,000 sites, 420 s at 3,000) and
-#: already span as many sites at 1,000 as a DLA cluster of ten times that mass.
+#: In ``default``, DBM stops at 3,000 sites, and at 1,000 for eta 3 and 4. ``reach`` takes about
+#: three core-hours on the development machine: each DBM growth step solves the Laplace field
+#: near the cluster, which at 10,000 sites costs about 10 s a cluster at eta 0.5 and 1 and one
+#: to four minutes at eta 3 and 4 (``estimated_seconds``). Clusters above ``STORED_SITES_MAX``
+#: sites are kept as seeds, digests and thumbnails and regrown on demand; their matcher
+#: features are computed at build time (``ramiform library build``), and an interrupted build
+#: resumes from the clusters it kept.
 PRESETS: dict[str, tuple[EnsembleSpec, ...]] = {
     "default": _preset(DEFAULT_SIZES, n_realisations=16, overrides=DEFAULT_OVERRIDES),
+    "reach": _preset(REACH_SIZES, n_realisations=16),
     "tiny": _preset({regime: (200,) for regime in PARAMETER_GRID}, n_realisations=2),
 }
+
+#: Largest cluster whose sites a build stores; larger ones are regrown from their seeds when
+#: their sites are needed (checked against the SHA-256 of the sites as grown). Stored sites
+#: compress to 2.7-2.9 bytes a site (measured on Eden, ballistic and DLA clusters of 100,000
+#: sites), so in ``reach`` the 16 realisations of the nine DLA, Eden and ballistic families
+#: would take about 12 MB at 30,000 sites and 41 MB at 100,000, against about 12 MB for
+#: every ensemble up to 10,000 sites: only the latter fits the bundled set's 25 MB.
+STORED_SITES_MAX = 10_000
 
 #: How seeds follow from an ensemble and a realisation index (recorded in the manifest).
 #: Four bytes, since the simulators take seeds in [0, 2**32).
@@ -126,16 +147,21 @@ def estimated_seconds(regime: str, parameters: dict[str, Any], n_particles: int)
     """
     n = float(n_particles)
     if regime == "dbm":
+        # Measured at 3,000 and 10,000 sites on the two shared cores of the development
+        # machine (2026-12-02): eta 0.5 1.9 s / 8.9 s, eta 1 2.3 / 10.5, eta 2 3.9 / 21,
+        # eta 3 8.7 / 91, eta 4 12.9 s / about 3 minutes (from the default build); the cost
+        # grows like n^exponent in between. A near electrode stops the deposit early (about
+        # half the sites at 10,000), which this overestimates.
         eta = parameters.get("eta", 1.0)
-        at_1000 = np.interp(eta, [0.5, 1.0, 1.5, 2.0, 3.0, 4.0], [0.7, 1.5, 3.0, 4.0, 7.2, 8.6])
-        exponent = np.interp(eta, [2.0, 3.0, 4.0], [1.2, 2.5, 3.5])
-        return float(at_1000 * (n / 1000.0) ** exponent)
+        at_10000 = np.interp(eta, [0.5, 1.0, 2.0, 3.0, 4.0], [8.9, 10.5, 21.0, 91.0, 180.0])
+        exponent = np.interp(eta, [0.5, 1.0, 2.0, 3.0, 4.0], [1.28, 1.26, 1.39, 1.95, 2.2])
+        return float(at_10000 * (n / 10000.0) ** exponent)
     return SECONDS_PER_SITE.get(regime, 1e-5) * n
 
 
 #: Single-core seconds per grown site of the regimes whose cost grows linearly (DBM is modelled
 #: in ``estimated_seconds``).
-SECONDS_PER_SITE: dict[str, float] = {"dla": 6e-6, "eden": 1e-7, "ballistic": 4e-7}
+SECONDS_PER_SITE: dict[str, float] = {"dla": 7e-6, "eden": 4e-7, "ballistic": 1.3e-6}
 
 
 # --------------------------------------------------------------------------- Dask
@@ -172,12 +198,14 @@ def run_tasks(
     workers: int | None = None,
     progress: bool = True,
     label: str = "tasks",
+    on_result: Callable[[int, Any], None] | None = None,
 ) -> list[Any]:
     """``[fn(*task) for task in tasks]``, computed on Dask, returned in the order of ``tasks``.
 
     Tasks start in decreasing order of ``costs`` (longest first keeps every worker busy to
     the end); the progress bar counts done/total and estimates the time left from the
-    costs already done.
+    costs already done. ``on_result(i, result)``, if given, is called in this process as
+    each task ``i`` finishes (to keep results of a long run as they come).
     """
     from distributed import as_completed
     from tqdm import tqdm
@@ -207,6 +235,8 @@ def run_tasks(
                         other.cancel()
                     raise LibraryError(f"{label}: task {tasks[i]!r:.200} failed: {exc}") from exc
                 future.release()
+                if on_result is not None:
+                    on_result(i, results[i])
                 bar.set_description_str(f"{label}: {done}/{len(tasks)}", refresh=False)
                 bar.update(weights[i])
     return results
@@ -229,6 +259,7 @@ def build_library(
     scheduler: str | None = None,
     workers: int | None = None,
     progress: bool = True,
+    stored_sites_max: int = STORED_SITES_MAX,
 ) -> Path:
     """Grow every ensemble of ``preset`` on Dask and write a reference set to ``out_dir``.
 
@@ -245,6 +276,10 @@ def build_library(
         Worker processes of the LocalCluster (default: one per usable CPU, ``service.cpus``).
     progress : bool
         Show a progress bar on stderr.
+    stored_sites_max : int
+        Ensembles of at most this many sites store their sites; larger ones are written as
+        seeds, per-realisation digests and a thumbnail, and regrown when read
+        (:mod:`service.library.storage`).
 
     Returns
     -------
@@ -255,6 +290,11 @@ def build_library(
     -----
     Same preset, same software: byte-identical cluster and thumbnail files, and a manifest
     that differs only in its ``build`` entry (wall time and machinery used).
+
+    A long build can be interrupted and resumed: each cluster is kept as it arrives in
+    ``<out_dir>.grown/`` (see :class:`GrownClusters`), and a build of the same preset into
+    the same folder grows only those not kept yet. The folder is removed once the set is
+    written, and ignored if the simulators' source changed since it was filled.
     """
     if preset not in PRESETS:
         raise ValueError(f"unknown preset {preset!r}; known presets: {sorted(PRESETS)}")
@@ -266,29 +306,37 @@ def build_library(
         Ensemble(
             **vars(spec),
             seeds=tuple(realisation_seed(preset, spec, i) for i in range(spec.n_realisations)),
-            clusters=f"{CLUSTER_DIR}/{spec.id}.npz",
+            clusters=f"{CLUSTER_DIR}/{spec.id}.npz" if spec.n_particles <= stored_sites_max else "",
             thumbnail=f"{THUMBNAIL_DIR}/{spec.id}.png",
+            sites_stored=spec.n_particles <= stored_sites_max,
         )
         for spec in specs
     ]
     tasks = [(e.regime, dict(e.parameters), e.n_particles, seed) for e in ensembles for seed in e.seeds]
-    costs = [estimated_seconds(regime, parameters, n) for regime, parameters, n, _ in tasks]
+    grown = GrownClusters(out_dir.with_name(out_dir.name + ".grown"))
+    sites: list[np.ndarray | None] = [grown.get(task) for task in tasks]
+    missing = [i for i, s in enumerate(sites) if s is None]
+    costs = [estimated_seconds(*tasks[i][:3]) for i in missing]
     if progress:
+        kept = f" ({len(tasks) - len(missing)} kept from an interrupted build)" if len(missing) < len(tasks) else ""
         print(
-            f"growing {preset!r}: {len(tasks)} clusters in {len(ensembles)} ensembles, "
+            f"growing {preset!r}: {len(tasks)} clusters in {len(ensembles)} ensembles{kept}, "
             f"roughly {sum(costs) / 60:.0f} core-minutes",
             file=sys.stderr,
         )
     started = time.perf_counter()
-    sites = run_tasks(
+    fresh = run_tasks(
         grow_sites,
-        tasks,
+        [tasks[i] for i in missing],
         costs=costs,
         scheduler=scheduler,
         workers=workers,
         progress=progress,
         label=f"growing {preset}",
+        on_result=lambda j, result: grown.put(tasks[missing[j]], result),
     )
+    for i, result in zip(missing, fresh):
+        sites[i] = result
     wall_s = time.perf_counter() - started
 
     staging = out_dir.with_name(out_dir.name + ".partial")
@@ -302,7 +350,55 @@ def build_library(
         staging, preset=preset, ensembles=ensembles, sites=sites, seed_rule=SEED_RULE, build=build
     )
     _replace_folder(staging, out_dir)
+    grown.remove()
     return out_dir
+
+
+class GrownClusters:
+    """Clusters of an unfinished build, one ``.npy`` file each, keyed by what grew them.
+
+    A file's name is the SHA-256 of the task (regime, parameters, size, seed); the folder's
+    ``simulators.txt`` holds a digest of the simulators' source, and a folder written by other
+    simulators is emptied on opening rather than trusted. Files are written whole (through a
+    temporary file and a rename), so an interrupted build leaves no half cluster.
+    """
+
+    def __init__(self, folder: Path):
+        self.folder = Path(folder)
+        stamp = self.folder / "simulators.txt"
+        digest = _simulator_digest()
+        if self.folder.is_dir() and (not stamp.is_file() or stamp.read_text() != digest):
+            shutil.rmtree(self.folder)
+        if not self.folder.is_dir():
+            self.folder.mkdir(parents=True)
+            write_bytes(stamp, digest.encode())
+
+    def _path(self, task: tuple[Any, ...]) -> Path:
+        key = json.dumps(list(task), sort_keys=True, separators=(",", ":")).encode()
+        return self.folder / f"{hashlib.sha256(key).hexdigest()}.npy"
+
+    def get(self, task: tuple[Any, ...]) -> np.ndarray | None:
+        try:
+            return np.load(self._path(task), allow_pickle=False)
+        except (OSError, ValueError):
+            return None
+
+    def put(self, task: tuple[Any, ...], sites: np.ndarray) -> None:
+        payload = io.BytesIO()
+        np.save(payload, sites, allow_pickle=False)
+        write_bytes(self._path(task), payload.getvalue())
+
+    def remove(self) -> None:
+        shutil.rmtree(self.folder, ignore_errors=True)
+
+
+def _simulator_digest() -> str:
+    """SHA-256 over the source of ``service.simulate`` (what a kept cluster was grown by)."""
+    folder = Path(__file__).resolve().parents[1] / "simulate"
+    digest = hashlib.sha256()
+    for path in sorted(folder.rglob("*.py")):
+        digest.update(path.relative_to(folder).as_posix().encode() + b"\0" + path.read_bytes() + b"\0")
+    return digest.hexdigest()
 
 
 def _replace_folder(new: Path, target: Path) -> None:

@@ -2,8 +2,10 @@
 
 :func:`load_reference_set` reads ``manifest.json`` and nothing else, so it takes
 milliseconds; each ensemble's cluster file is read (and its checksum checked) on first use.
-A feature cache lives beside the clusters (``cache/``), tied to the exact clusters it was
-computed from.
+An ensemble whose sites are not stored (``Ensemble.sites_stored`` false) is regrown from its
+seeds when its sites are asked for, and checked against the digests of the sites as grown at
+build time. A feature cache lives beside the clusters (``cache/``), tied to the exact
+clusters it was computed from; reading it, the fingerprint or a thumbnail regrows nothing.
 """
 
 from __future__ import annotations
@@ -27,6 +29,7 @@ from service.library.storage import (
     decode_ensemble,
     lattice_from_sites,
     read_manifest,
+    sites_digest,
     write_json,
     write_npz,
 )
@@ -61,6 +64,7 @@ class ReferenceSet:
         if len(self._by_id) != len(self.ensembles):
             raise LibraryError(f"{self.path}: the manifest lists an ensemble twice")
         self._sites: dict[str, list[np.ndarray]] = {}
+        self._regrown: dict[tuple[str, int], np.ndarray] = {}
 
     def __repr__(self) -> str:
         return f"ReferenceSet({str(self.path)!r}, preset={self.preset!r}, {len(self.ensembles)} ensembles)"
@@ -71,8 +75,14 @@ class ReferenceSet:
 
     @property
     def fingerprint(self) -> str:
-        """SHA-256 over the checksums of the cluster files: changes iff any cluster does."""
-        clusters = sorted((e.clusters, self._checksum(e.clusters)) for e in self.ensembles)
+        """SHA-256 over the checksums of the cluster files, and of the regrown ensembles' site
+        digests: changes iff any cluster does (and is the same as before for a set that stores
+        every ensemble)."""
+        clusters = sorted(
+            (e.clusters, self._checksum(e.clusters)) if e.sites_stored
+            else (f"{e.id} (regrown)", hashlib.sha256(json.dumps(list(e.sites_sha256)).encode()).hexdigest())
+            for e in self.ensembles
+        )
         return hashlib.sha256(json.dumps(clusters).encode()).hexdigest()
 
     def ensemble(self, ensemble: Ensemble | str) -> Ensemble:
@@ -86,8 +96,14 @@ class ReferenceSet:
     # ----------------------------------------------------------------------- clusters
 
     def sites(self, ensemble: Ensemble | str) -> list[np.ndarray]:
-        """Each realisation's sites as int16 ``(n, 2)`` offsets from the seed, in arrival order."""
+        """Each realisation's sites as int16 ``(n, 2)`` offsets from the seed, in arrival order.
+
+        An ensemble whose sites are not stored is regrown (every realisation; see
+        :func:`regrow_sites`), which costs what growing it costs.
+        """
         ensemble = self.ensemble(ensemble)
+        if not ensemble.sites_stored:
+            return [self._site(ensemble, index) for index in range(ensemble.n_realisations)]
         if ensemble.id not in self._sites:
             data = self._read_checked(ensemble.clusters)
             try:
@@ -106,8 +122,9 @@ class ReferenceSet:
         """Realisation ``index`` as an int32 lattice: 0 empty, k the k-th site to join.
 
         The seed (1) sits at ``(h // 2, w // 2)``; ``margin`` empty sites border the cluster.
+        Of an ensemble that is regrown, only this realisation is.
         """
-        return lattice_from_sites(self.sites(ensemble)[index], margin=margin)
+        return lattice_from_sites(self._site(self.ensemble(ensemble), index), margin=margin)
 
     def arrival_orders(self, ensemble: Ensemble | str, *, margin: int = 2) -> list[np.ndarray]:
         return [lattice_from_sites(s, margin=margin) for s in self.sites(ensemble)]
@@ -124,7 +141,10 @@ class ReferenceSet:
         return self._read_checked(self.ensemble(ensemble).thumbnail)
 
     def verify(self) -> None:
-        """Check every file against the manifest's checksums; raise ``LibraryError`` if one differs."""
+        """Check every file against the manifest's checksums; raise ``LibraryError`` if one differs.
+
+        Regrown ensembles have no cluster file: their sites are checked each time they are regrown.
+        """
         for relative in self.manifest["files"]:
             self._read_checked(relative)
 
@@ -145,7 +165,8 @@ class ReferenceSet:
         fn : callable
             Picklable (a module-level function or a ``functools.partial`` of one); receives
             the arrival-order lattice of one realisation (as from :meth:`arrival_order`) and
-            its :class:`Ensemble`.
+            its :class:`Ensemble`. A regrown ensemble's realisations are regrown (and
+            checked) on the workers.
         ensembles : iterable, optional
             Only these ensembles (default: all, in manifest order).
         scheduler, workers, progress :
@@ -160,7 +181,11 @@ class ReferenceSet:
         from service.library.build import run_tasks
 
         chosen = self.ensembles if ensembles is None else tuple(self.ensemble(e) for e in ensembles)
-        tasks = [(fn, sites, e, margin) for e in chosen for sites in self.sites(e)]
+        tasks = [
+            (fn, sites, e, margin, index)
+            for e in chosen
+            for index, sites in enumerate(self.sites(e) if e.sites_stored else [None] * e.n_realisations)
+        ]
         results = run_tasks(
             _apply_to_cluster,
             tasks,
@@ -171,7 +196,7 @@ class ReferenceSet:
             label=f"mapping {getattr(fn, '__name__', 'fn')} over {self.preset}",
         )
         grouped: dict[str, list[Any]] = {}
-        for (_, _, e, _), result in zip(tasks, results):
+        for (_, _, e, _, _), result in zip(tasks, results):
             grouped.setdefault(e.id, []).append(result)
         return grouped
 
@@ -220,6 +245,16 @@ class ReferenceSet:
 
     # ----------------------------------------------------------------------- internals
 
+    def _site(self, ensemble: Ensemble, index: int) -> np.ndarray:
+        if not 0 <= index < ensemble.n_realisations:
+            raise IndexError(f"{ensemble.id} has {ensemble.n_realisations} realisations, not an index {index}")
+        if ensemble.sites_stored:
+            return self.sites(ensemble)[index]
+        key = (ensemble.id, index)
+        if key not in self._regrown:
+            self._regrown[key] = regrow_sites(ensemble, index)
+        return self._regrown[key]
+
     def _cache_paths(self, name: str) -> tuple[Path, Path]:
         if not isinstance(name, str) or not _CACHE_NAME.fullmatch(name):
             raise ValueError(f"cache name must be letters, digits, '_', '.', '-', got {name!r}")
@@ -245,7 +280,32 @@ class ReferenceSet:
         return data
 
 
-def _apply_to_cluster(fn: Callable, sites: np.ndarray, ensemble: Ensemble, margin: int) -> Any:
+def regrow_sites(ensemble: Ensemble, index: int) -> np.ndarray:
+    """Realisation ``index`` of an ensemble whose sites are not stored, grown again from its seed.
+
+    Raises
+    ------
+    LibraryError
+        If the sites differ from those grown when the set was built (their digest is not the
+        manifest's): the simulator no longer grows that seed the same way, so the set must be
+        rebuilt with this Ramiform (``ramiform library build``).
+    """
+    from service.library.build import grow_sites
+
+    seed = ensemble.seeds[index]
+    sites = grow_sites(ensemble.regime, dict(ensemble.parameters), ensemble.n_particles, seed)
+    if sites_digest(sites) != ensemble.sites_sha256[index]:
+        raise LibraryError(
+            f"{ensemble.id}, realisation {index}: regrown from seed {seed}, its sites differ from those grown "
+            "when the reference set was built (SHA-256 differs from the manifest's); this Ramiform's simulator "
+            "grows that seed differently, so rebuild the set with `ramiform library build`"
+        )
+    return sites
+
+
+def _apply_to_cluster(fn: Callable, sites: np.ndarray | None, ensemble: Ensemble, margin: int, index: int) -> Any:
+    if sites is None:
+        sites = regrow_sites(ensemble, index)
     return fn(lattice_from_sites(sites, margin=margin), ensemble)
 
 

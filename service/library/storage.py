@@ -1,22 +1,23 @@
-"""On-disk format of a reference set (schema version 1).
+"""On-disk format of a reference set (schema version 2; version 1 is read too).
 
 A reference set is one folder::
 
     manifest.json              what was grown, with which seeds, by which software; checksums
     clusters/<ensemble>.npz    every realisation of one ensemble, sites in order of arrival
+                               (only for ensembles whose sites are stored, see below)
     thumbnails/<ensemble>.png  the first realisation, 96 px, coloured by arrival order
     cache/<name>.npz|.json     derived data (features...) written by the matcher, not checksummed
 
 ``manifest.json`` holds::
 
     format            "ramiform-reference-set"
-    schema_version    1 (this module reads only the versions in SCHEMA_VERSIONS)
+    schema_version    2 (this module reads only the versions in SCHEMA_VERSIONS)
     preset            name of the preset that was grown
     software          {"ramiform", "python", "numpy", "numba"} versions of the build
     seed_rule         how each seed follows from (preset, regime, parameters, size, index)
     ensembles         list of {id, regime, parameters, n_particles, n_realisations, seeds,
-                      clusters, thumbnail}; ``clusters`` and ``thumbnail`` are paths relative
-                      to the folder
+                      sites_stored, clusters or sites_sha256, thumbnail}; ``clusters`` and
+                      ``thumbnail`` are paths relative to the folder
     files             {relative path: sha256 hex digest} of every cluster and thumbnail file
     build             wall time, workers, scheduler: the only field that differs between two
                       builds of the same preset (compare everything else)
@@ -33,6 +34,15 @@ The arrival-order lattice is rebuilt by :func:`lattice_from_sites`: site ``k`` (
 gets value ``k + 1``, the seed lands at ``(h // 2, w // 2)``. Nothing is lost: any feature of
 a cluster, or its growth replayed, follows from these arrays.
 
+Ensembles with ``sites_stored`` false (the largest clusters, which would not fit the bundled
+set's size budget) have no cluster file: their sites are regrown on demand from the recorded
+seed and parameters (``service.simulate.grow``), and ``sites_sha256`` holds, per realisation,
+the SHA-256 of its ``sites_rc`` rows as grown at build time (the C-ordered little-endian int16
+bytes of the ``(n, 2)`` array), against which every regrowth is checked. Their thumbnail is
+stored as for any ensemble, and so is their feature cache (``cache/``), so nothing that only
+ranks specimens regrows them. Schema 1 manifests have no ``sites_stored``: every ensemble's
+sites are stored.
+
 Every file is written byte-for-byte reproducibly: zip entries carry a fixed date, PNGs
 carry no time chunk, JSON keys keep their order. Rebuilding a preset with the same seeds
 gives files with the same checksums.
@@ -44,10 +54,11 @@ import hashlib
 import io
 import json
 import os
+import re
 import secrets
 import zipfile
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
@@ -56,15 +67,18 @@ import numpy as np
 from service.errors import LibraryError
 
 FORMAT = "ramiform-reference-set"
-SCHEMA_VERSION = 1
+#: Version 2 added ensembles whose sites are regrown rather than stored; a reader of version 1
+#: would take such an ensemble for a damaged one, so it is told the set is newer instead.
+SCHEMA_VERSION = 2
 #: Schema versions this code reads.
-SCHEMA_VERSIONS: tuple[int, ...] = (1,)
+SCHEMA_VERSIONS: tuple[int, ...] = (1, 2)
 MANIFEST = "manifest.json"
 CLUSTER_DIR = "clusters"
 THUMBNAIL_DIR = "thumbnails"
 CACHE_DIR = "cache"
 THUMBNAIL_PX = 96
 
+_HEX64 = re.compile(r"[0-9a-f]{64}")
 # The earliest date a zip entry can carry; a fixed date keeps the archive reproducible.
 _ZIP_DATE = (1980, 1, 1, 0, 0, 0)
 
@@ -109,39 +123,61 @@ class EnsembleSpec:
 
 @dataclass(frozen=True)
 class Ensemble(EnsembleSpec):
-    """A stored ensemble: its spec, the seed of every realisation, and where its files are."""
+    """A built ensemble: its spec, the seed of every realisation, and where its files are.
+
+    ``sites_stored`` says whether the sites are in the cluster file ``clusters``; if not, they
+    are regrown from the seeds and checked against ``sites_sha256`` (one digest per
+    realisation, :func:`sites_digest`).
+    """
 
     seeds: tuple[int, ...] = ()
     clusters: str = ""
     thumbnail: str = ""
+    sites_stored: bool = True
+    sites_sha256: tuple[str, ...] = ()
 
     __hash__ = EnsembleSpec.__hash__
 
     def to_dict(self) -> dict[str, Any]:
+        where = {"clusters": self.clusters} if self.sites_stored else {"sites_sha256": list(self.sites_sha256)}
         return {
             **super().to_dict(),
             "seeds": list(self.seeds),
-            "clusters": self.clusters,
+            "sites_stored": self.sites_stored,
+            **where,
             "thumbnail": self.thumbnail,
         }
 
     @classmethod
     def from_dict(cls, entry: Mapping[str, Any]) -> Ensemble:
         try:
+            stored = entry.get("sites_stored", True)  # schema 1: always stored
+            if not isinstance(stored, bool):
+                raise TypeError(f"sites_stored must be true or false, got {stored!r}")
             ensemble = cls(
                 regime=str(entry["regime"]),
                 parameters=dict(entry["parameters"]),
                 n_particles=int(entry["n_particles"]),
                 n_realisations=int(entry["n_realisations"]),
                 seeds=tuple(int(s) for s in entry["seeds"]),
-                clusters=str(entry["clusters"]),
+                clusters=str(entry["clusters"]) if stored else "",
                 thumbnail=str(entry["thumbnail"]),
+                sites_stored=stored,
+                sites_sha256=() if stored else tuple(str(d) for d in entry["sites_sha256"]),
             )
         except (KeyError, TypeError, ValueError) as exc:
             raise LibraryError(f"manifest ensemble entry is incomplete or malformed ({exc!r}): {entry!r:.200}") from exc
         if len(ensemble.seeds) != ensemble.n_realisations:
             raise LibraryError(
                 f"manifest ensemble {ensemble.id}: {len(ensemble.seeds)} seeds for {ensemble.n_realisations} realisations"
+            )
+        if not stored and (
+            len(ensemble.sites_sha256) != ensemble.n_realisations
+            or not all(_HEX64.fullmatch(d) for d in ensemble.sites_sha256)
+        ):
+            raise LibraryError(
+                f"manifest ensemble {ensemble.id}: its sites are regrown, so it needs one SHA-256 digest "
+                f"per realisation in sites_sha256"
             )
         return ensemble
 
@@ -184,6 +220,11 @@ def lattice_from_sites(sites_rc: np.ndarray, *, margin: int = 2) -> np.ndarray:
     lattice = np.zeros((2 * half[0] + 1, 2 * half[1] + 1), dtype=np.int32)
     lattice[sites_rc[:, 0] + half[0], sites_rc[:, 1] + half[1]] = np.arange(1, len(sites_rc) + 1, dtype=np.int32)
     return lattice
+
+
+def sites_digest(sites_rc: np.ndarray) -> str:
+    """SHA-256 (hex) of one realisation's seed offsets: its C-ordered little-endian int16 bytes."""
+    return hashlib.sha256(np.ascontiguousarray(sites_rc, dtype="<i2").tobytes()).hexdigest()
 
 
 def encode_ensemble(sites: list[np.ndarray]) -> dict[str, np.ndarray]:
@@ -328,7 +369,9 @@ def write_reference_set(
 
     ``sites`` holds every realisation's :func:`sites_from_lattice` output, ensemble after
     ensemble in the order of ``ensembles``; ``seed_rule`` says in words how the seeds were
-    derived; ``build`` becomes the manifest's ``build`` entry.
+    derived; ``build`` becomes the manifest's ``build`` entry. An ensemble with
+    ``sites_stored`` false gets no cluster file but each realisation's :func:`sites_digest`
+    in the manifest (any ``sites_sha256`` it brings is replaced).
     The manifest is written last, so a folder with a manifest is a complete set.
     """
     import platform
@@ -343,14 +386,19 @@ def write_reference_set(
     if len(sites) != sum(e.n_realisations for e in ensembles):
         raise LibraryError(f"{len(sites)} clusters for {sum(e.n_realisations for e in ensembles)} realisations")
     files: dict[str, str] = {}
+    written: list[Ensemble] = []
     position = 0
     for ensemble in ensembles:
         members = sites[position : position + ensemble.n_realisations]
         position += ensemble.n_realisations
-        write_npz(folder / ensemble.clusters, encode_ensemble(members))
+        if ensemble.sites_stored:
+            write_npz(folder / ensemble.clusters, encode_ensemble(members))
+            files[ensemble.clusters] = sha256_file(folder / ensemble.clusters)
+        else:
+            ensemble = replace(ensemble, clusters="", sites_sha256=tuple(sites_digest(s) for s in members))
         write_bytes(folder / ensemble.thumbnail, thumbnail_png(lattice_from_sites(members[0])))
-        for relative in (ensemble.clusters, ensemble.thumbnail):
-            files[relative] = sha256_file(folder / relative)
+        files[ensemble.thumbnail] = sha256_file(folder / ensemble.thumbnail)
+        written.append(ensemble)
     manifest = {
         "format": FORMAT,
         "schema_version": SCHEMA_VERSION,
@@ -363,7 +411,7 @@ def write_reference_set(
         },
         "seed_rule": seed_rule,
         "thumbnail_px": THUMBNAIL_PX,
-        "ensembles": [e.to_dict() for e in ensembles],
+        "ensembles": [e.to_dict() for e in written],
         "files": files,
         "build": build,
     }

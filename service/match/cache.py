@@ -204,9 +204,12 @@ def cache_discrepancy(reference_set, table: ReferenceTable, n_checks: int = 3) -
     The first realisation of ``n_checks`` ensembles spread through the set is drawn again in
     its thickest cached style (the cheapest drawing) and measured;
     a difference means the measurement code changed since the cache was built (rebuild it
-    with :func:`build_feature_cache`). Costs a fraction of a second.
+    with :func:`build_feature_cache`). Only ensembles whose sites are stored are picked
+    (when there are any), so nothing is regrown. Costs a fraction of a second.
     """
-    picks = np.unique(np.linspace(0, len(reference_set.ensembles) - 1, n_checks).round().astype(int))
+    stored = [i for i, e in enumerate(reference_set.ensembles) if e.sites_stored]
+    candidates = np.array(stored or range(len(reference_set.ensembles)))
+    picks = np.unique(candidates[np.linspace(0, len(candidates) - 1, n_checks).round().astype(int)])
     worst = 0.0
     for index in picks:
         rows = np.flatnonzero((table.ensemble == index) & (table.realisation == 0))

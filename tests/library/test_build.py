@@ -75,6 +75,24 @@ def test_rebuild_on_another_cluster_is_byte_identical(tiny_sets):
     assert own == shared
 
 
+def test_a_build_that_regrows_every_cluster_regrows_the_clusters_it_grew(tiny_sets, dask_cluster, tmp_path):
+    # The same preset built with no sites stored: same thumbnails byte for byte, no cluster
+    # file, and every cluster regrown (in process, and on the Dask workers by map_clusters)
+    # equal to the one the stored build holds.
+    regrown_path = build_library("tiny", tmp_path / "regrown", scheduler=dask_cluster.scheduler_address,
+                                 progress=False, stored_sites_max=0)
+    stored, regrown = load_reference_set(tiny_sets[0]), load_reference_set(regrown_path)
+    assert not (regrown_path / "clusters").exists()
+    assert regrown.manifest["files"] == {e.thumbnail: stored.manifest["files"][e.thumbnail] for e in stored.ensembles}
+    assert regrown.fingerprint != stored.fingerprint
+    for a, b in zip(stored.ensembles, regrown.ensembles):
+        assert a.sites_stored and not b.sites_stored
+        assert all(np.array_equal(x, y) for x, y in zip(stored.sites(a), regrown.sites(b))), a.id
+    on_workers = regrown.map_clusters(_size_and_first_order, scheduler=dask_cluster.scheduler_address, progress=False)
+    assert on_workers == stored.map_clusters(_size_and_first_order, scheduler=dask_cluster.scheduler_address,
+                                             progress=False)
+
+
 def test_thumbnails_are_pngs_of_the_first_realisation(tiny_sets):
     from PIL import Image
 
@@ -123,8 +141,33 @@ def test_default_preset_covers_the_grid_the_library_promises():
     assert grid == dla | dbm | {("eden", ()), ("ballistic", ())}
     assert min(s.n_realisations for s in specs) >= 12
     assert len({s.id for s in specs}) == len(specs)
-    # Finite-size effects are large below 10^4 sites: every regime but DBM reaches it.
+    # Finite-size effects are large below 10^4 sites: every family reaches it, and DLA, Eden
+    # and ballistic reach 10^5, the size of specimens hundreds of branch widths across (issue 11).
     largest = {}
     for s in specs:
-        largest[s.regime] = max(largest.get(s.regime, 0), s.n_particles)
-    assert all(n >= 10_000 for regime, n in largest.items() if regime != "dbm")
+        key = (s.regime, tuple(sorted(s.parameters.items())))
+        largest[key] = max(largest.get(key, 0), s.n_particles)
+    assert len(largest) == len(grid)
+    assert all(n >= (10_000 if key[0] == "dbm" else 100_000) for key, n in largest.items())
+
+
+def test_an_interrupted_build_resumes_from_the_clusters_it_kept(tiny_sets, dask_cluster, tmp_path):
+    # A build keeps each cluster as it arrives in <out>.grown/; building again takes the kept
+    # ones instead of growing them anew. One kept cluster is marked (its arrival order
+    # reversed): the resumed set must hold the marked one, which no simulator grows.
+    from service.library.build import GrownClusters
+
+    stored = load_reference_set(tiny_sets[0])
+    ensemble = stored.ensembles[0]
+    marked = stored.sites(ensemble)[1][::-1].copy()
+    kept = GrownClusters(tmp_path / "set.grown")
+    kept.put((ensemble.regime, dict(ensemble.parameters), ensemble.n_particles, ensemble.seeds[1]), marked)
+    resumed = build_library("tiny", tmp_path / "set", scheduler=dask_cluster.scheduler_address, progress=False)
+    assert np.array_equal(load_reference_set(resumed).sites(ensemble)[1], marked)
+    assert not (tmp_path / "set.grown").exists()
+    # Kept clusters of other simulators are not trusted: the folder is emptied.
+    kept = GrownClusters(tmp_path / "again.grown")
+    kept.put((ensemble.regime, dict(ensemble.parameters), ensemble.n_particles, ensemble.seeds[1]), marked)
+    (tmp_path / "again.grown" / "simulators.txt").write_text("grown by other simulators")
+    again = build_library("tiny", tmp_path / "again", scheduler=dask_cluster.scheduler_address, progress=False)
+    assert np.array_equal(load_reference_set(again).sites(ensemble)[1], stored.sites(ensemble)[1])

@@ -29,6 +29,8 @@ def write_subset(reference_set, ensembles, folder: Path, twin_of=None) -> Path:
     files = {}
     for entry in entries:
         for key in ("clusters", "thumbnail"):
+            if key not in entry:  # an ensemble regrown from its seeds has no cluster file
+                continue
             relative = entry[key]
             (folder / relative).parent.mkdir(parents=True, exist_ok=True)
             if not (folder / relative).exists():

@@ -56,3 +56,38 @@ def test_the_bundled_cache_was_computed_by_this_measurement_code(reference_set, 
     # without a rebuild of the cache (build_feature_cache), which would compare specimens
     # measured one way with references measured another.
     assert cache_discrepancy(reference_set, table, n_checks=5) <= 1e-9
+
+
+def test_reading_features_never_regrows_a_reference(tmp_path, monkeypatch):
+    # The largest references are kept as seeds and regrown on demand (issue 11): ranking a
+    # specimen reads only their features, fingerprint and thumbnail, so it must never pay for
+    # their growth. A spy on the simulator entry point counts regrowths.
+    import service.library.build as build
+    from service.library import Ensemble
+    from service.library.storage import sites_from_lattice, write_reference_set
+    from service.simulate import grow
+
+    ensembles = [
+        Ensemble("eden", {}, 300, 2, seeds=(1, 2), clusters="clusters/eden_n300.npz", thumbnail="thumbnails/a.png"),
+        Ensemble("eden", {}, 600, 2, seeds=(3, 4), thumbnail="thumbnails/b.png", sites_stored=False),
+        Ensemble("ballistic", {}, 600, 2, seeds=(5, 6), thumbnail="thumbnails/c.png", sites_stored=False),
+    ]
+    sites = [sites_from_lattice(grow(e.regime, e.n_particles, seed=s)) for e in ensembles for s in e.seeds]
+    write_reference_set(tmp_path / "set", preset="test", ensembles=ensembles, sites=sites, seed_rule="by hand", build={})
+    built = load_reference_table(load_reference_set(tmp_path / "set"), build_if_missing=True)
+
+    grown = []
+    real_grow_sites = build.grow_sites
+    monkeypatch.setattr(build, "grow_sites", lambda *args: grown.append(args) or real_grow_sites(*args))
+    refs = load_reference_set(tmp_path / "set")
+    table = load_reference_table(refs, build_if_missing=False)
+    assert cache_discrepancy(refs, table, n_checks=3) <= 1e-9
+    assert refs.read_cache(CACHE_NAME) is not None and len(refs.fingerprint) == 64
+    for ensemble in refs.ensembles:
+        refs.thumbnail_bytes(ensemble)
+    refs.verify()
+    np.testing.assert_array_equal(table.values, built.values)
+    assert grown == []
+    # ... while asking for a regrown cluster's sites does regrow it (the spy sees it).
+    refs.arrival_order("ballistic_n600", 1)
+    assert grown == [("ballistic", {}, 600, 6)]
