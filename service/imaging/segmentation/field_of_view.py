@@ -191,17 +191,14 @@ def _dish_field(small: np.ndarray, small_rgb: np.ndarray, factor: int, despeckle
         ell, inliers_pts, region = _closed_ellipse(grad, bench, inner, th, tw)
         if region is None:
             return None
-        if ell is None or min(ell.a, ell.b) <= 0.1 * min(th, tw) or min(ell.a, ell.b) < 0.5 * max(ell.a, ell.b):
+        if ell is None:
             # Not a dish's outline (a rough compact deposit, say): look beyond it.
             inner = ndimage.binary_dilation(region, iterations=max(2, int(0.05 * math.sqrt(region.sum()))))
             continue
         edge = float(np.median(grad[np.clip(np.rint(inliers_pts[:, 1]).astype(int), 0, th - 1),
                                     np.clip(np.rint(inliers_pts[:, 0]).astype(int), 0, tw - 1)]))
         rho = ell.rho(rows_f, cols_f)
-        beyond = (rho >= 1.12) & (rho <= 1.3)
-        if edge >= 3.0 * texture and (
-                np.count_nonzero(beyond) < 0.1 * math.pi * (1.3 ** 2 - 1.12 ** 2) * ell.a * ell.b
-                or float(bench_like[beyond].mean()) >= 0.5):
+        if edge >= 3.0 * texture and _bench_beyond(ell, rho, bench_like):
             break
         inner = rho <= 1.1
     else:
@@ -210,11 +207,52 @@ def _dish_field(small: np.ndarray, small_rgb: np.ndarray, factor: int, despeckle
     # alone has none; a dense deposit has so much that the inside's own spread is no yardstick).
     if float(np.mean(np.abs(detail[rho <= 0.9]) > max(6.0 * noise, 0.02))) < 0.002:
         return None
-    scale = f2 * factor
+    return _dish_at_full(ell, f2 * factor)
+
+
+def _dish_at_full(ell: Field, scale: int) -> Field:
+    """A dish ellipse found on a copy reduced ``scale`` times, in full-resolution px, stepped in
+    by about a reduced pixel (the outline found sits on the wall's edge)."""
     cy, cx = _to_full(ell.cy, ell.cx, scale)
-    # The watershed line sits on the wall's edge; step in by about a reduced pixel.
     margin = 1.5 * scale
     return Field(cy, cx, ell.a * scale - margin, ell.b * scale - margin, ell.theta, "dish rim")
+
+
+def _bench_beyond(ell: Field, rho: np.ndarray, bench: np.ndarray) -> bool:
+    """Whether the bench fills most of the ring just beyond the ellipse (rho 1.12 to 1.3), or too
+    little of that ring lies in the picture to tell."""
+    beyond = (rho >= 1.12) & (rho <= 1.3)
+    return (np.count_nonzero(beyond) < 0.1 * math.pi * (1.3 ** 2 - 1.12 ** 2) * ell.a * ell.b
+            or float(bench[beyond].mean()) >= 0.5)
+
+
+def _outline_ellipse(region: np.ndarray) -> tuple[Field | None, np.ndarray | None]:
+    """The ellipse of a region's outline (its stretches on the frame left out) and the outline
+    points (x, y) on it, when 70% of the outline lies within 1.5 px (or 3% of the region's
+    size) of it and it has a dish's shape: a tenth of the picture across at least, its short
+    axis half its long one or more. (None, None) otherwise."""
+    from skimage.measure import find_contours
+
+    th, tw = region.shape
+    contours = find_contours(np.pad(region, 1).astype(np.float32), 0.5)
+    if not contours:
+        return None, None
+    outline = max(contours, key=len) - 1.0  # (row, col), back to unpadded coordinates
+    on_frame = (outline[:, 0] <= 1.0) | (outline[:, 1] <= 1.0) | (outline[:, 0] >= th - 2.0) | (outline[:, 1] >= tw - 2.0)
+    pts = outline[~on_frame][:, ::-1]  # (x, y)
+    if len(pts) < 40:
+        return None, None
+    pts = pts[:: max(1, len(pts) // 400)]
+    size = math.sqrt(np.count_nonzero(region) / math.pi)
+    # An outline wanders a pixel either side of the wall's edge, and a lead or a wall
+    # highlight pulls parts of it away.
+    fitted = fit_ellipse_robust(pts, tolerance_px=max(1.5, 0.03 * size))
+    if fitted is None or float(fitted[1].mean()) < 0.7:
+        return None, None
+    (xc, yc, a, b, theta), inliers = fitted
+    if min(a, b) <= 0.1 * min(th, tw) or min(a, b) < 0.5 * max(a, b):
+        return None, None
+    return Field(yc, xc, a, b, theta, "dish rim"), pts[inliers]
 
 
 def _off_bench_field(small: np.ndarray, small_rgb: np.ndarray, factor: int) -> Field | None:
@@ -227,8 +265,6 @@ def _off_bench_field(small: np.ndarray, small_rgb: np.ndarray, factor: int) -> F
     is the dish when most of its outline off the frame lies on one ellipse, the bench lies
     just beyond it, and a specimen lies inside.
     """
-    from skimage.measure import find_contours
-
     f2 = max(1, math.ceil(max(small.shape) / _DISH_SIDE_PX))
     img = _despeckled(block_mean(small_rgb, f2))
     grey = block_mean(small, f2)
@@ -246,38 +282,21 @@ def _off_bench_field(small: np.ndarray, small_rgb: np.ndarray, factor: int) -> F
     region = ndimage.binary_fill_holes(labels == int(np.argmax(np.bincount(labels.ravel())[1:])) + 1)
     if not 0.06 <= np.count_nonzero(region) / region.size <= 0.97:
         return None
-    outline = max(find_contours(np.pad(region, 1).astype(np.float32), 0.5), key=len) - 1.0
-    on_frame = (outline[:, 0] <= 1.0) | (outline[:, 1] <= 1.0) | (outline[:, 0] >= th - 2.0) | (outline[:, 1] >= tw - 2.0)
-    pts = outline[~on_frame][:, ::-1]  # (x, y)
-    if len(pts) < 40:
+    ell, _ = _outline_ellipse(region)
+    if ell is None:
         return None
-    pts = pts[:: max(1, len(pts) // 400)]
-    fitted = fit_ellipse_robust(pts, tolerance_px=max(1.5, 0.03 * math.sqrt(np.count_nonzero(region) / math.pi)))
-    if fitted is None or float(fitted[1].mean()) < 0.7:
-        return None
-    (xc, yc, a, b, theta), _ = fitted
-    if min(a, b) <= 0.1 * min(th, tw) or min(a, b) < 0.5 * max(a, b):
-        return None
-    ell = Field(yc, xc, a, b, theta, "dish rim")
     yy, xx = np.ogrid[:th, :tw]
     rho = ell.rho(*np.broadcast_arrays(yy.astype(np.float64), xx.astype(np.float64)))
-    beyond = (rho >= 1.12) & (rho <= 1.3)
-    if np.count_nonzero(beyond) >= 0.1 * math.pi * (1.3 ** 2 - 1.12 ** 2) * a * b and float(bench[beyond].mean()) < 0.5:
+    if not _bench_beyond(ell, rho, bench) or not holds_structure(grey, rho <= 0.9):
         return None
-    if not holds_structure(grey, rho <= 0.9):
-        return None
-    scale = f2 * factor
-    cy, cx = _to_full(yc, xc, scale)
-    margin = 1.5 * scale
-    return Field(cy, cx, a * scale - margin, b * scale - margin, theta, "dish rim")
+    return _dish_at_full(ell, f2 * factor)
 
 
 def _closed_ellipse(grad: np.ndarray, bench: np.ndarray, inner: np.ndarray, th: int,
                     tw: int) -> tuple[Field | None, np.ndarray | None, np.ndarray | None]:
     """The region the strongest closed edge between ``inner`` and the bench bounds, with the
     ellipse of that edge and its outline points (x, y) on it when most of the outline lies on
-    one (else None for both); all None when no usable region is found."""
-    from skimage.measure import find_contours
+    one with a dish's shape (else None for both); all None when no usable region is found."""
     from skimage.segmentation import watershed
 
     markers = np.zeros((th, tw), dtype=np.int32)
@@ -285,25 +304,12 @@ def _closed_ellipse(grad: np.ndarray, bench: np.ndarray, inner: np.ndarray, th: 
     markers[inner & ~bench] = 2
     region = ndimage.binary_fill_holes(watershed(grad, markers) == 2)
     share = np.count_nonzero(region) / region.size
-    if not share <= 0.97:
+    if not 0.0 < share <= 0.97:
         return None, None, None
-    contours = find_contours(np.pad(region, 1).astype(np.float32), 0.5)
-    if not contours:
-        return None, None, None
-    outline = max(contours, key=len) - 1.0  # (row, col), back to unpadded coordinates
-    on_frame = (outline[:, 0] <= 1.0) | (outline[:, 1] <= 1.0) | (outline[:, 0] >= th - 2.0) | (outline[:, 1] >= tw - 2.0)
-    pts = outline[~on_frame][:, ::-1]  # (x, y)
-    if len(pts) < 40:
+    if share < 0.06:
         return None, None, region
-    pts = pts[:: max(1, len(pts) // 400)]
-    size = math.sqrt(np.count_nonzero(region) / math.pi)
-    # A watershed line wanders a pixel either side of the wall's edge, and a lead or a wall
-    # highlight pulls parts of it away: 70% of the outline within 1.5 px (or 3%) must fit.
-    fitted = fit_ellipse_robust(pts, tolerance_px=max(1.5, 0.03 * size))
-    if fitted is None or share < 0.06 or float(fitted[1].mean()) < 0.7:
-        return None, None, region
-    (xc, yc, a, b, theta), inliers = fitted
-    return Field(yc, xc, a, b, theta, "dish rim"), pts[inliers], region
+    ell, pts = _outline_ellipse(region)
+    return ell, pts, region
 
 
 def fit_ellipse_robust(pts: np.ndarray, *, tolerance_px: float, trials: int = 80,
