@@ -464,8 +464,9 @@ def parameter_estimates(analysis: dict[str, Any], v: Verdict) -> list[Estimate]:
             axis = "log" if est.get("axis") == "log" else "linear"
             interval = _interval(est.get("ci95"))
             std = _number(est.get("std"))
+            label = labels.PARAMETERS.get(name, name.replace("_", " "))
             # The contract's rule (service.quality), so the page and the JSON judge alike.
-            judged = judge_parameter(labels.PARAMETERS.get(name, name.replace("_", " ")), value, interval, std, grid,
+            judged = judge_parameter(label, value, interval, std, grid,
                                      axis=axis, spans_library_range=bool(est.get("spans_library_range")),
                                      regime_probability=_number(est.get("regime_probability")), regime=regime)
             status = "flagged" if judged.status == UNCERTAIN else judged.status
@@ -478,7 +479,7 @@ def parameter_estimates(analysis: dict[str, Any], v: Verdict) -> list[Estimate]:
                 shown_interval = f"{num(lo)} – {num(hi)}"
             elif interval is not None and status != "withheld":
                 shown_interval = f"{num(interval[0])} – {num(interval[1])}"
-            out.append(Estimate(labels.regime_label(regime), labels.PARAMETERS.get(name, name.replace("_", " ")),
+            out.append(Estimate(labels.regime_label(regime), label,
                                 num(value) if status != "withheld" else "", shown_interval,
                                 ", ".join(num(x) for x in grid), _percent(_number(est.get("regime_probability"))),
                                 status, reason))
