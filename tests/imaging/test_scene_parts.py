@@ -88,6 +88,25 @@ def test_a_glare_spots_halo_is_not_taken_for_deposit():
     assert np.count_nonzero(seg.mask & deposit) / np.count_nonzero(seg.mask | deposit) >= 0.85
 
 
+def test_a_round_glare_spot_is_glare_whatever_branch_width_the_reading_measured():
+    """A reading that took a glare spot measures the spot's own width as the branch width, so
+    "much wider than a branch" cannot tell it; roundness can (the disc's area is pi r^2 of
+    its inscribed radius r, a stroke's is 4 L / (pi w) times that). A white stroke as wide
+    as the spot, and far longer, is not glare."""
+    from service.imaging.segmentation.scene import glare_mask
+
+    h, w = 200, 300
+    yy, xx = np.mgrid[:h, :w]
+    rgb = np.full((h, w, 3), 40, dtype=np.uint8)
+    spot = np.hypot(yy - 60, xx - 60) <= 9.0
+    stroke = (np.abs(yy - 150) <= 4) & (xx >= 40) & (xx <= 260)
+    rgb[spot | stroke] = 255
+    for width in (None, 1.0, 9.0, 18.0):  # no width yet, thin branches, the spot's own width, wider
+        assert glare_mask(rgb, width)[spot].all()
+    for width in (None, 9.0, 18.0):  # a stroke as wide as the branches measured
+        assert not glare_mask(rgb, width)[stroke].any()
+
+
 def test_a_red_lead_over_a_green_rim_is_left_out():
     """A lead from the frame to the centre electrode, red on a teal rim of nearly the same
     grey: it runs on past the dish, which a deposit never does, so it is not specimen."""

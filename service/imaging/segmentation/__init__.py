@@ -30,7 +30,7 @@ from service.imaging.segmentation._common import (EIGHT, SMALL_SIDE_PX, Field, a
 from service.imaging.segmentation.cleanup import branch_width_px, keep_specimen
 from service.imaging.segmentation.field_of_view import find_field, parse_roi
 from service.imaging.segmentation.ridge import choose_mode, ridge_mask
-from service.imaging.segmentation.scene import (exclusion_mask, find_electrode, glare_halo_pieces, glare_mask,
+from service.imaging.segmentation.scene import (exclusion_mask, find_electrode, glare_halo, glare_halo_pieces, glare_mask,
                                                 rim_structures, stroke_mask, wire_paths)
 from service.imaging.segmentation.threshold import (EVENINGS, even_light, fit_background, levels_picture,
                                                     pick_threshold, threshold_mask)
@@ -260,10 +260,16 @@ def segment(
     score_factor = 2 if max(small.shape) > 300 else 1
     score_small = block_mean(small, score_factor)
     score_excluded = block_mean(excluded, factor * score_factor) > 0.5 if excluded is not None else None
+    # Glare is set aside before any threshold of a bright specimen is chosen: its clipped
+    # spots and their halo are a third class, brighter than the deposit.
+    glare = glare_mask(rgb) if chosen_mode != "ridge" else None
+    halo = glare_halo(glare) if glare is not None else None
+    score_halo = block_mean(halo, factor * score_factor) > 0.5 if halo is not None else None
     plans = _plans(fov, fov_kind, polarity, lighting)
     found = (field_mask(score_small.shape, fov, factor * score_factor)
              if fov is not None and fov_kind != "roi" else None)
-    scored = [_score_plan(plan, score_small, factor * score_factor, score_excluded, found) for plan in plans]
+    scored = [_score_plan(plan, score_small, factor * score_factor, score_excluded, found,
+                          score_halo if plan.polarity == "bright" else None) for plan in plans]
     scored = _penalise_partial(plans, scored)
     scored = _penalise_interstitial(plans, scored, score_small, factor * score_factor)
     if chosen_mode == "ridge":
@@ -290,7 +296,7 @@ def segment(
         fov_small = field_mask(small.shape, fov, factor) if fov is not None else np.ones(small.shape, dtype=bool)
         evened = even_light(gray, small, fov_small, fov, factor, plan.polarity if polarity == "auto" else polarity,
                             plan.evening)
-        t, method, contrast = pick_threshold(evened, fov, threshold)
+        t, method, contrast = pick_threshold(evened, fov, threshold, halo if evened.polarity == "bright" else None)
         mask = threshold_mask(evened, fov, t)
         if best_index is not None and threshold is None:
             settings["kept_near_scored_reading"] = _keep_near(mask, scored[best_index][1], factor * score_factor)
@@ -313,7 +319,8 @@ def segment(
     # deposit's "width" is its diameter): they are capped at 1% of the image's long side.
     width_cap = max(1.0, 0.01 * max(h, w))
     width_guess = min(_width_guess(mask), width_cap)
-    mask, scene = _remove_scene(mask, rgb, fov, excluded, settings["polarity"], chosen_mode, width_guess, factor)
+    mask, scene = _remove_scene(mask, rgb, fov, excluded, settings["polarity"], chosen_mode, width_guess, factor,
+                                glare, halo)
     settings["scene"] = scene
     seed_rc = (fov.cy, fov.cx) if fov is not None else ((h - 1) / 2.0, (w - 1) / 2.0)
     clear = _clear_background(levels, settings) if levels is not None else None
@@ -387,7 +394,7 @@ def _plans(fov: Field | None, fov_kind: str, polarity: str, lighting: str) -> li
 
 
 def _score_plan(plan: _Plan, small: np.ndarray, factor: int, small_excluded: np.ndarray | None,
-                found: np.ndarray | None) -> tuple[float, np.ndarray, dict[str, float]]:
+                found: np.ndarray | None, glare: np.ndarray | None = None) -> tuple[float, np.ndarray, dict[str, float]]:
     """Segment at reduced resolution under ``plan`` and score how plausible a specimen it gives.
 
     The score adds penalties a person would apply: the mask fills the field (the solution
@@ -395,15 +402,18 @@ def _score_plan(plan: _Plan, small: np.ndarray, factor: int, small_excluded: np.
     the whole image), runs all round the field's edge, lies away from the centre the
     specimen grows from, is many
     pieces, stands barely above the noise, or has an outline on smooth grey (a lighting
-    boundary). A field that was found is favoured a little over the whole image.
+    boundary). A field that was found is favoured a little over the whole image. ``glare``
+    (spots and their halo) is left out of the threshold and of the mask.
     """
     fov = plan.fov.reduced(factor) if plan.fov is not None else None
     fov_mask = field_mask(small.shape, fov) if fov is not None else np.ones(small.shape, dtype=bool)
     evened = even_light(small, small, fov_mask, fov, 1, plan.polarity, plan.evening)
-    t, _, contrast = pick_threshold(evened, fov, None)
+    t, _, contrast = pick_threshold(evened, fov, None, glare)
     raw = threshold_mask(evened, fov, t)
     if small_excluded is not None:
         raw &= ~small_excluded
+    if glare is not None:
+        raw &= ~glare
     sh, sw = small.shape
     seed = (fov.cy, fov.cx) if fov is not None else ((sh - 1) / 2.0, (sw - 1) / 2.0)
     width = max(1.0, _width_guess(raw))
@@ -494,14 +504,22 @@ def _keep_near(mask: np.ndarray, scored_mask: np.ndarray, step: int) -> bool:
     """Clear, in place, what the full-resolution threshold took far from the reading that was
     scored, when that is most of it (a sharp shadow's edge, which the evened light follows
     at one resolution and not at the other); returns whether it did. Branches too thin for
-    the scored copy stay: they lie within two of its pixels of what it saw."""
+    the scored copy stay: they lie within two of its pixels of what it saw, or run on from
+    what is kept as small pieces (tips the scored copy lost), each under 2% of the mask."""
     near = ndimage.binary_dilation(scored_mask, iterations=2)
     rows = np.minimum(np.arange(mask.shape[0]) // step, near.shape[0] - 1)
     cols = np.minimum(np.arange(mask.shape[1]) // step, near.shape[1] - 1)
     far = mask & ~near[np.ix_(rows, cols)]
-    if np.count_nonzero(far) <= 0.5 * np.count_nonzero(mask):
+    total = np.count_nonzero(mask)
+    if np.count_nonzero(far) <= 0.5 * total:
         return False
-    mask &= ~far
+    pieces, n = ndimage.label(far, structure=EIGHT)
+    touching = np.zeros(n + 1, dtype=bool)
+    touching[pieces[ndimage.binary_dilation(mask & ~far, structure=EIGHT) & far]] = True
+    small = np.bincount(pieces.ravel(), minlength=n + 1) <= 0.02 * total
+    tips = touching & small
+    tips[0] = False
+    mask &= ~(far & ~tips[pieces])
     return True
 
 
@@ -635,9 +653,11 @@ def _width_guess(mask: np.ndarray) -> float:
 
 
 def _remove_scene(mask: np.ndarray, rgb: np.ndarray, fov: Field | None, excluded: np.ndarray | None,
-                  polarity: str, mode: str, width: float, factor: int) -> tuple[np.ndarray, dict[str, Any]]:
-    """Clear what is not specimen: the user's exclusions, glare, structures along the rim, a lead
-    running in to the electrode."""
+                  polarity: str, mode: str, width: float, factor: int, glare: np.ndarray | None,
+                  halo: np.ndarray | None) -> tuple[np.ndarray, dict[str, Any]]:
+    """Clear what is not specimen: the user's exclusions, glare (``glare``, its ``halo``, and
+    clipped blobs much wider than a branch), structures along the rim, a lead running in to
+    the electrode."""
     info: dict[str, Any] = {}
     if excluded is not None:
         mask &= ~excluded
@@ -645,13 +665,15 @@ def _remove_scene(mask: np.ndarray, rgb: np.ndarray, fov: Field | None, excluded
     if mode != "threshold":
         return mask, info
     if polarity == "bright":
-        glare = glare_mask(rgb, width)
+        wide = glare_mask(rgb, width)
+        if wide is not None and (glare is None or np.any(wide & ~glare)):
+            glare, halo = wide, glare_halo(wide)
         if glare is not None:
             removed = int(np.count_nonzero(mask & glare))
             mask &= ~glare
-            halo = glare_halo_pieces(mask, glare)
-            info["glare_px"] = removed + int(np.count_nonzero(halo))
-            mask &= ~halo
+            pieces = glare_halo_pieces(mask, halo)
+            info["glare_px"] = removed + int(np.count_nonzero(pieces))
+            mask &= ~pieces
     if fov is not None:
         rim, rim_info = rim_structures(mask, fov, width)
         mask &= ~rim

@@ -199,30 +199,49 @@ def rim_structures(mask: np.ndarray, fov: Field, width_px: float) -> tuple[np.nd
     return out, {"removed_px": int(hit.sum()), "arcs": arcs}
 
 
-def glare_mask(rgb: np.ndarray, width_px: float) -> np.ndarray | None:
-    """Specular glare: clipped white, colourless blobs much wider than a branch."""
-    bright = (rgb.min(axis=2) >= 247) & ((rgb.max(axis=2).astype(np.int16) - rgb.min(axis=2)) <= 16)
+def glare_mask(rgb: np.ndarray, width_px: float | None = None) -> np.ndarray | None:
+    """Specular glare: clipped white, colourless blobs, each round (at most three times the
+    area of the largest disc inside it, while a branch is many times longer than wide) or,
+    given the branch width, much wider than a branch. Roundness needs no branch width, so
+    glare can be set aside before a threshold is chosen (the width is measured on a reading,
+    which may itself be the glare)."""
+    # Every channel clipped (so colourless too). Channel by channel: numpy's reductions along
+    # a last axis of three are slow on a photograph.
+    bright = np.minimum(np.minimum(rgb[..., 0], rgb[..., 1]), rgb[..., 2]) >= 247
     if not bright.any():
         return None
-    core = ndimage.binary_erosion(bright, iterations=max(1, int(round(1.5 * width_px))))
-    if not core.any():
+    labels, n = ndimage.label(bright)
+    area = np.bincount(labels.ravel(), minlength=n + 1)
+    spot = np.zeros(n + 1, dtype=bool)
+    for i, box in enumerate(ndimage.find_objects(labels), start=1):
+        if area[i] < 8:
+            continue
+        inscribed = float(ndimage.distance_transform_edt(np.pad(labels[box] == i, 1)).max())
+        spot[i] = ((inscribed >= 2.5 and area[i] <= 3.0 * math.pi * inscribed**2)
+                   or (width_px is not None and inscribed >= 1.5 * width_px))
+    if not spot.any():
         return None
-    # The blobs back to their size, and the soft halo around them.
-    grown = ndimage.binary_dilation(core, iterations=max(1, int(round(1.5 * width_px))) + 2)
-    return grown & ndimage.binary_dilation(bright, iterations=2)
+    # The blobs and the rim of their soft edge.
+    return ndimage.binary_dilation(spot[labels], iterations=2)
 
 
-def glare_halo_pieces(mask: np.ndarray, glare: np.ndarray) -> np.ndarray:
-    """Pieces of ``mask`` lying (nine tenths of them or more) within a glare spot's soft halo:
-    within one spot radius of its clipped part. A glare spot fades over about its own radius,
-    so a threshold leaves a ring of it behind; a branch that passes by lies mostly outside."""
+def glare_halo(glare: np.ndarray) -> np.ndarray:
+    """Within one spot radius of each glare spot (the radius of a disc of the spot's area):
+    a glare spot fades over about its own radius, so a threshold leaves a ring of it behind."""
     labels, n = ndimage.label(glare)
-    if n == 0:
-        return np.zeros(mask.shape, dtype=bool)
-    radius = np.sqrt(np.bincount(labels.ravel())[1:] / math.pi)
-    dist, (ir, ic) = ndimage.distance_transform_edt(labels == 0, return_indices=True)
-    halo = dist <= radius[np.maximum(labels[ir, ic] - 1, 0)]
-    del dist, ir, ic
+    halo = np.zeros(glare.shape, dtype=bool)
+    area = np.bincount(labels.ravel(), minlength=n + 1)
+    for i, box in enumerate(ndimage.find_objects(labels), start=1):
+        reach = int(math.ceil(math.sqrt(area[i] / math.pi)))
+        rows = slice(max(0, box[0].start - reach), min(glare.shape[0], box[0].stop + reach))
+        cols = slice(max(0, box[1].start - reach), min(glare.shape[1], box[1].stop + reach))
+        halo[rows, cols] |= ndimage.distance_transform_edt(labels[rows, cols] != i) <= reach
+    return halo
+
+
+def glare_halo_pieces(mask: np.ndarray, halo: np.ndarray) -> np.ndarray:
+    """Pieces of ``mask`` lying (nine tenths of them or more) within ``halo``
+    (:func:`glare_halo`); a branch that passes by lies mostly outside."""
     pieces, m = ndimage.label(mask, structure=np.ones((3, 3), dtype=bool))
     if m == 0:
         return np.zeros(mask.shape, dtype=bool)

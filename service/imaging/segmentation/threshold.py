@@ -174,9 +174,12 @@ def even_light(gray: np.ndarray, small: np.ndarray, small_fov: np.ndarray, fov: 
     return Evened(even, chosen, source, level, details)
 
 
-def pick_threshold(evened: Evened, fov: Field | None, threshold: float | None) -> tuple[float, str, float]:
+def pick_threshold(evened: Evened, fov: Field | None, threshold: float | None,
+                   ignore: np.ndarray | None = None) -> tuple[float, str, float]:
     """Threshold on the evened picture: given, or Otsu's moved to half contrast.
 
+    Pixels of ``ignore`` (glare and its halo, say: a third class, brighter than any deposit,
+    that would pull Otsu's split above the specimen) are left out of the statistics.
     Returns the threshold, how it was found, and the specimen's contrast in noise levels.
     """
     from skimage.filters import threshold_otsu
@@ -185,6 +188,8 @@ def pick_threshold(evened: Evened, fov: Field | None, threshold: float | None) -
     step = max(1, int(math.sqrt(even.size / 1_000_000)))
     grid = even[::step, ::step]
     inside = field_mask(grid.shape, fov.scaled(_BAND[1]), step) if fov is not None else np.ones(grid.shape, bool)
+    if ignore is not None:
+        inside &= ~ignore[::step, ::step]
     sample = grid[inside]
     # Pixel noise from differences of horizontal neighbours (both inside): blind to the
     # specimen and to the lighting, which vary slowly next to the noise.
