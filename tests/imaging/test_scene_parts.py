@@ -107,6 +107,32 @@ def test_a_round_glare_spot_is_glare_whatever_branch_width_the_reading_measured(
         assert not glare_mask(rgb, width)[stroke].any()
 
 
+def test_a_dish_cut_by_the_frame_under_a_deep_shadow_is_found_by_its_hue():
+    """A light blue solution in a dish cut by the frame, on a wooden bench with a strong
+    grain, a deep shadow over the left part of the picture. In the shade the solution is
+    as near the bench's colour as the grain comes, but its hue stays blue."""
+    rng = np.random.default_rng(21)
+    h, w = 600, 450
+    yy, xx = np.mgrid[:h, :w].astype(np.float64)
+    grain = 0.12 * np.sin(xx / 3.1 + 2.0 * np.sin(yy / 40.0)) + 0.05 * rng.normal(size=(1, w))
+    photo = np.empty((h, w, 3))
+    for ch, base in enumerate((0.64, 0.50, 0.36)):
+        photo[..., ch] = base * (1.0 + grain)
+    rho = _ellipse((h, w), 190, 250, 215, 165, 5)
+    photo[rho <= 1.0] = (0.50, 0.69, 0.85)
+    photo[(rho > 0.96) & (rho <= 1.0)] = (0.50, 0.53, 0.63)
+    deposit = _place((h, w), random_tree(96, seed=4), 250, 190, 3) & (rho < 0.6)
+    photo[deposit] = (0.33, 0.19, 0.11)
+    shade = 1.0 - 0.7 / (1.0 + np.exp((xx - 170.0) / 30.0))
+    photo *= shade[..., None]
+    photo += rng.normal(0.0, 0.012, photo.shape)
+    assert (rho[:, 0] <= 1.0).any()  # the frame cuts the dish
+
+    seg = segment(_to_uint8(photo))
+    assert seg.settings["field_of_view"]["source"] == "dish rim"
+    assert np.count_nonzero(seg.mask & deposit) / np.count_nonzero(seg.mask | deposit) >= 0.85
+
+
 def test_a_red_lead_over_a_green_rim_is_left_out():
     """A lead from the frame to the centre electrode, red on a teal rim of nearly the same
     grey: it runs on past the dish, which a deposit never does, so it is not specimen."""

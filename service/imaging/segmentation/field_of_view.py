@@ -260,8 +260,9 @@ def _off_bench_field(small: np.ndarray, small_rgb: np.ndarray, factor: int) -> F
 
     For a dish whose wall leaves no closed edge stronger than the bench's grain, but whose
     solution or wall differs in colour from the bench: the bench's colour is read in the
-    frame's outer band (median-filtered, see ``_despeckled``), everything farther from it than
-    four times the band's own spread is off the bench; the largest such region, holes filled,
+    frame's outer band (median-filtered, see ``_despeckled``), everything farther from it, in
+    colour or in hue (colour over brightness), than four times the band's own spread is off
+    the bench; the largest such region, holes filled,
     is the dish when most of its outline off the frame lies on one ellipse, the bench lies
     just beyond it, and a specimen lies inside.
     """
@@ -274,6 +275,11 @@ def _off_bench_field(small: np.ndarray, small_rgb: np.ndarray, factor: int) -> F
     band = _frame_band(th, tw)
     dist = np.sqrt(((img - np.median(img[band], axis=0)) ** 2).sum(axis=2))
     bench = dist < max(4.0 * robust_sigma(dist[band]), 0.06)
+    # ... and in hue: a shadow over the dish can bring its solution as near the bench's colour
+    # as the grain of a wooden bench comes, but not its hue.
+    chroma = img / (img.sum(axis=2, keepdims=True) + 0.1)
+    hue_dist = np.sqrt(((chroma - np.median(chroma[band], axis=0)) ** 2).sum(axis=2))
+    bench &= hue_dist < max(4.0 * robust_sigma(hue_dist[band]), 0.03)
     if np.count_nonzero(bench & band) < 0.4 * np.count_nonzero(band):
         return None
     labels, n = ndimage.label(ndimage.binary_opening(~bench, iterations=2))
