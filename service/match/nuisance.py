@@ -191,6 +191,20 @@ def _dilate_disc(mask: np.ndarray, radius_px: float) -> np.ndarray:
     return out.astype(bool)
 
 
+def _decode_own_jpeg(data: bytes, shape: tuple[int, int]) -> np.ndarray:
+    """A JPEG this module has just written, decoded as float32. A drawing of a 100,000-site
+    cluster can exceed Pillow's guard against decompression bombs (about 179 million
+    pixels), which exists for files from outside; the guard is lifted for this decoding
+    only when the picture is larger, which happens only in library builds."""
+    limit = Image.MAX_IMAGE_PIXELS
+    if limit is not None and shape[0] * shape[1] > limit:
+        Image.MAX_IMAGE_PIXELS = None
+    try:
+        return np.asarray(Image.open(io.BytesIO(data)), dtype=np.float32)
+    finally:
+        Image.MAX_IMAGE_PIXELS = limit
+
+
 def draw_cluster(lattice: np.ndarray, style: DrawingStyle) -> np.ndarray:
     """A lattice cluster as a segmented photograph drawn in ``style`` would show it.
 
@@ -230,7 +244,7 @@ def draw_cluster(lattice: np.ndarray, style: DrawingStyle) -> np.ndarray:
         Image.fromarray(np.clip(np.rint(grey), 0, 255).astype(np.uint8)).save(
             buffer, format="JPEG", quality=int(style.jpeg_quality)
         )
-        decoded = np.asarray(Image.open(io.BytesIO(buffer.getvalue())), dtype=np.float32)
+        decoded = _decode_own_jpeg(buffer.getvalue(), grey.shape)
         soft = (decoded - BACKGROUND_GREY) / (DEPOSIT_GREY - BACKGROUND_GREY)
     cut = soft >= style.threshold_level
     # A segmentation keeps the deposit, not compression specks: keep the largest piece and

@@ -56,3 +56,19 @@ def test_every_cluster_is_drawn_at_every_thickness_and_repeatably():
     cluster[4, 4] = 1
     for style in styles:
         np.testing.assert_array_equal(draw_cluster(cluster, style), draw_cluster(cluster, style))
+
+
+def test_a_drawing_larger_than_pillows_bomb_guard_is_still_compressed_and_decoded(monkeypatch):
+    # A 100,000-site cluster drawn at 5 px a site exceeds Pillow's guard against
+    # decompression bombs (about 179 million pixels); the library build decodes its own JPEG
+    # all the same. The guard is lowered here so that a small drawing exceeds it: the
+    # drawing must be the one made under the usual guard, and the guard must be restored.
+    from PIL import Image
+
+    cluster = np.zeros((9, 9), dtype=np.int32)
+    cluster[4, 1:8] = np.arange(1, 8)
+    style = DrawingStyle(1.0, 4.0, 0.6, 0.5, 75, 0.0)
+    expected = draw_cluster(cluster, style)
+    monkeypatch.setattr(Image, "MAX_IMAGE_PIXELS", 100)
+    np.testing.assert_array_equal(draw_cluster(cluster, style), expected)
+    assert Image.MAX_IMAGE_PIXELS == 100
