@@ -64,56 +64,46 @@ PARAMETER_GRID: dict[str, tuple[dict[str, Any], ...]] = {
 def _preset(
     sizes: dict[str, tuple[int, ...]],
     n_realisations: int,
-    overrides: tuple[tuple[str, dict[str, Any], tuple[int, ...]], ...] = (),
+    realisations_at: dict[tuple[str, int], int] | None = None,
 ) -> tuple[EnsembleSpec, ...]:
-    """Every regime and parameter of ``PARAMETER_GRID`` at the regime's ``sizes``, except
-    the ``(regime, parameters, sizes)`` rows of ``overrides``."""
-    special = {(regime, json.dumps(parameters, sort_keys=True)): n for regime, parameters, n in overrides}
+    """Every regime and parameter of ``PARAMETER_GRID`` at the regime's ``sizes``, with
+    ``n_realisations`` each except the ``(regime, size)`` keys of ``realisations_at``."""
+    realisations_at = realisations_at or {}
     return tuple(
-        EnsembleSpec(regime, parameters, n, n_realisations)
+        EnsembleSpec(regime, parameters, n, realisations_at.get((regime, n), n_realisations))
         for regime, grid in PARAMETER_GRID.items()
         for parameters in grid
-        for n in special.get((regime, json.dumps(parameters, sort_keys=True)), sizes[regime])
+        for n in sizes[regime]
     )
 
 
-_FULL_SIZES = (1000, 3000, 10000, 30000)
-#: Cluster sizes of each regime in the ``default`` preset (the bundled set).
+_FULL_SIZES = (1000, 3000, 10000, 30000, 100000)
+#: Cluster sizes of each regime in the ``default`` preset (the bundled set): DLA, Eden and
+#: ballistic to 100,000 sites, DBM to 10,000 for every eta and both electrodes, so specimens
+#: hundreds of branch widths across meet references of their own size.
 DEFAULT_SIZES: dict[str, tuple[int, ...]] = {
-    "dla": _FULL_SIZES, "eden": _FULL_SIZES, "ballistic": _FULL_SIZES, "dbm": (1000, 3000),
-}
-#: (regime, parameters, sizes) rows of ``default`` that differ from ``DEFAULT_SIZES``.
-DEFAULT_OVERRIDES: tuple[tuple[str, dict[str, Any], tuple[int, ...]], ...] = (
-    *(("dbm", {"eta": eta, **near}, (1000,)) for eta in (3.0, 4.0) for near in ({}, {"electrode": "near"})),
-)
-#: Cluster sizes of the ``reach`` preset: DLA, Eden and ballistic to 100,000 sites, DBM to
-#: 10,000 for every eta and both electrodes.
-REACH_SIZES: dict[str, tuple[int, ...]] = {
-    "dla": _FULL_SIZES + (100000,), "eden": _FULL_SIZES + (100000,), "ballistic": _FULL_SIZES + (100000,),
-    "dbm": (1000, 3000, 10000),
+    "dla": _FULL_SIZES, "eden": _FULL_SIZES, "ballistic": _FULL_SIZES, "dbm": (1000, 3000, 10000),
 }
 
-#: Named presets. ``default`` is the bundled set; ``reach`` grows references as large as the
-#: specimens hundreds of branch widths across that users photograph; ``tiny`` grows every
-#: regime and parameter at a very small size, for tests of the build itself.
+#: Named presets. ``default`` is the bundled set; ``tiny`` grows every regime and parameter
+#: at a very small size, for tests of the build itself.
 #:
-#: In ``default``, DBM stops at 3,000 sites, and at 1,000 for eta 3 and 4. ``reach`` takes about
-#: three core-hours on the development machine: each DBM growth step solves the Laplace field
-#: near the cluster, which at 10,000 sites costs about 10 s a cluster at eta 0.5 and 1 and one
-#: to four minutes at eta 3 and 4 (``estimated_seconds``). Clusters above ``STORED_SITES_MAX``
-#: sites are kept as seeds, digests and thumbnails and regrown on demand; their matcher
-#: features are computed at build time (``ramiform library build``), and an interrupted build
-#: resumes from the clusters it kept.
+#: ``default`` takes about three core-hours on the development machine: each DBM growth step
+#: solves the Laplace field near the cluster, which at 10,000 sites costs about 10 s a cluster
+#: at eta 0.5 and 1 and one to four minutes at eta 3 and 4 (``estimated_seconds``). Clusters
+#: above ``STORED_SITES_MAX`` sites are kept as seeds, digests and thumbnails and regrown on
+#: demand; their matcher features are computed at build time (``ramiform library build``),
+#: and an interrupted build resumes from the clusters it kept.
 PRESETS: dict[str, tuple[EnsembleSpec, ...]] = {
-    "default": _preset(DEFAULT_SIZES, n_realisations=16, overrides=DEFAULT_OVERRIDES),
-    "reach": _preset(REACH_SIZES, n_realisations=16),
+    # DBM at 10,000 sites has 8 realisations, not 16: one cluster costs up to minutes at eta 3 and 4.
+    "default": _preset(DEFAULT_SIZES, n_realisations=16, realisations_at={("dbm", 10000): 8}),
     "tiny": _preset({regime: (200,) for regime in PARAMETER_GRID}, n_realisations=2),
 }
 
 #: Largest cluster whose sites a build stores; larger ones are regrown from their seeds when
 #: their sites are needed (checked against the SHA-256 of the sites as grown). Stored sites
 #: compress to 2.7-2.9 bytes a site (measured on Eden, ballistic and DLA clusters of 100,000
-#: sites), so in ``reach`` the 16 realisations of the nine DLA, Eden and ballistic families
+#: sites), so in ``default`` the 16 realisations of the nine DLA, Eden and ballistic families
 #: would take about 12 MB at 30,000 sites and 41 MB at 100,000, against about 12 MB for
 #: every ensemble up to 10,000 sites: only the latter fits the bundled set's 25 MB.
 STORED_SITES_MAX = 10_000
