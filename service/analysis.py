@@ -16,7 +16,7 @@ from service.errors import LibraryError
 from service.features import Features, measure
 from service.imaging import LoadedImage, Segmentation, load_image, segment
 from service.imaging.load import DEFAULT_MAX_PIXELS
-from service.imaging.segmentation import LOW_CONFIDENCE
+from service.imaging.segmentation import LOW_CONFIDENCE, SEVERAL_OBJECTS
 
 
 @dataclass(frozen=True)
@@ -142,7 +142,8 @@ def analyze(
         from service.match import match_features
 
         try:
-            matching = match_features(features, reference_set=reference_set, mask=seg.mask)
+            several = seg.settings.get("cleanup", {}).get("left_out_comparable", 0) >= SEVERAL_OBJECTS
+            matching = match_features(features, reference_set=reference_set, mask=seg.mask, one_of_several=several)
         except LibraryError as exc:
             # A missing or damaged reference set must not cost the user the measurements.
             warnings.append(Caveat("not_ranked", f"not ranked against the reference library: {exc}"))

@@ -45,7 +45,8 @@ class MatchResult:
         (Mahalanobis, at the specimen's size) and the ``ensembles`` interpolated.
     in_library : bool
         False when even the nearest family is beyond the novelty threshold, or the specimen
-        is in pieces while every reference is one aggregate.
+        is in pieces or one of several separate objects while every reference is one
+        aggregate grown alone.
     parameter_estimates : dict
         ``{regime: {parameter: {value, ci95, std, spans_library_range, note, ...}}}``.
     explanation : dict
@@ -143,7 +144,8 @@ def verdict(model: ReferenceModel, probability: np.ndarray, in_library: bool) ->
     }
 
 
-def match(features, *, reference_set=None, mask: np.ndarray | None = None) -> MatchResult:
+def match(features, *, reference_set=None, mask: np.ndarray | None = None,
+          one_of_several: bool = False) -> MatchResult:
     """Rank a specimen against every regime and parameter set of a reference set.
 
     Parameters
@@ -156,6 +158,10 @@ def match(features, *, reference_set=None, mask: np.ndarray | None = None) -> Ma
         model loaded. Default: the bundled set's library (``default_library()``).
     mask : (H, W) bool ndarray, optional
         The specimen mask, when ``features`` does not carry it.
+    one_of_several : bool
+        The photograph shows other separate objects of the specimen's size (segmentation's
+        ``several_objects``): the specimen is then outside the library, whose clusters each
+        grew alone from one seed, whatever its features.
 
     Returns
     -------
@@ -203,7 +209,7 @@ def match(features, *, reference_set=None, mask: np.ndarray | None = None) -> Ma
     order = np.argsort(-probability, kind="stable")
     nearest = int(np.argmin(d2))
     connected = vector.connected_fraction >= model.min_connected_fraction - CONNECTED_MARGIN
-    in_library = bool(d2[nearest] <= model.novelty_d2 and connected)
+    in_library = bool(d2[nearest] <= model.novelty_d2 and connected and not one_of_several)
     matches = [_family_entry(model, reference_set, int(f), probability[f], d2[f], evaluation.where[f]) for f in order]
 
     warnings: list[str] = []
@@ -226,6 +232,12 @@ def match(features, *, reference_set=None, mask: np.ndarray | None = None) -> Ma
             "specimen_in_pieces",
             f"matching: the specimen is in pieces (the largest holds {vector.connected_fraction:.0%} of it), "
             f"while every reference is one aggregate (at least {model.min_connected_fraction:.0%})",
+        ))
+    elif one_of_several:
+        warnings.append(Caveat(
+            "one_of_several",
+            "matching: the specimen is one of several separate objects of its size in the photograph, while "
+            "every reference grew alone from one seed; the ranking is only relative",
         ))
     elif not in_library:
         warnings.append(Caveat(
@@ -274,8 +286,9 @@ def match(features, *, reference_set=None, mask: np.ndarray | None = None) -> Ma
     )
 
 
-def match_features(features, *, reference_set=None, mask: np.ndarray | None = None) -> dict[str, Any]:
+def match_features(features, *, reference_set=None, mask: np.ndarray | None = None,
+                   one_of_several: bool = False) -> dict[str, Any]:
     """:func:`match` as the analysis JSON's matching keys (``MatchResult.to_dict()``):
     ``matches``, ``in_library``, ``parameter_estimates``, ``explanation``, ``warnings``."""
-    return match(features, reference_set=reference_set, mask=mask).to_dict()
+    return match(features, reference_set=reference_set, mask=mask, one_of_several=one_of_several).to_dict()
 

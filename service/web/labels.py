@@ -130,6 +130,7 @@ SETTINGS: dict[str, str] = {
     "cleanup.holes_filled_up_to_px": "holes filled up to",
     "cleanup.components_found": "pieces found",
     "cleanup.components_kept": "pieces kept",
+    "cleanup.left_out_comparable": "pieces left out at least a quarter of the specimen's size",
     "branch_width_px": "typical branch width",
     "electrode.radius_px": "centre electrode radius",
     "reading.mode": "reading: method",

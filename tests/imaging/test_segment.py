@@ -99,6 +99,50 @@ def test_compact_specimen_is_kept_whole_and_flagged():
     assert any("compact blob" in w for w in seg.warnings)
 
 
+def test_coins_on_a_table_are_several_objects_and_the_ranking_says_none_of_them_is_in_the_library():
+    # scikit-image's coins photograph (an open image the package ships): two dozen separate
+    # coins of one size, not one aggregate. The reading keeps the coin nearest the centre and
+    # says how many others of its size it left out; the ranking then puts it outside the
+    # library of clusters that each grew alone from one seed, however round the coin is.
+    from skimage import data
+
+    from service.analysis import analyze
+
+    buffer = io.BytesIO()
+    Image.fromarray(data.coins()).save(buffer, format="PNG")
+    result = analyze(buffer.getvalue()).to_dict()
+    assert result["segmentation"]["cleanup"]["left_out_comparable"] >= 10
+    codes = {w["code"] for w in result["warnings"]}
+    assert {"several_objects", "one_of_several"} <= codes
+    assert result["in_library"] is False
+    assert not result["explanation"]["verdict"]["confident"]
+
+
+def test_pieces_left_out_are_counted_against_the_specimens_size():
+    # keep_specimen on drawn masks: a tree at the centre with one block of half its area far
+    # off (a label) leaves out one comparable piece; a grid of equal discs leaves out all
+    # but the one at the seed; specks under a quarter of the specimen are not counted.
+    from service.imaging.segmentation.cleanup import SEVERAL_OBJECTS, keep_specimen
+
+    mask = np.zeros((600, 600), dtype=bool)
+    tree = random_tree(200, seed=3)
+    mask[200:400, 200:400] = tree
+    side = int(np.sqrt(0.5 * mask.sum()))
+    mask[5:5 + side // 4, 5:5 + 4 * side] = True
+    mask[590:594, 590:594] = True  # a speck
+    _, info = keep_specimen(mask, (300.0, 300.0), 3.0, keep_all=False)
+    assert info["left_out_comparable"] == 1 < SEVERAL_OBJECTS
+
+    discs = np.zeros((600, 600), dtype=bool)
+    yy, xx = np.mgrid[:600, :600]
+    for cy in range(60, 600, 120):
+        for cx in range(60, 600, 120):
+            discs |= (yy - cy) ** 2 + (xx - cx) ** 2 <= 30 ** 2
+    kept, info = keep_specimen(discs, (300.0, 300.0), 3.0, keep_all=False)
+    assert info["components_kept"] == 1 and kept[300, 300]
+    assert info["left_out_comparable"] == 24
+
+
 def test_warnings_for_frame_rim_and_low_contrast():
     frame = np.full((300, 300), 0.8, dtype=np.float32)
     frame[145:155, :] = 0.3

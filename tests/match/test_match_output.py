@@ -99,6 +99,19 @@ def test_a_specimen_far_outside_the_library_gets_no_probability_near_one(model):
     assert posterior.outside_weight > 0.5
 
 
+def test_a_specimen_one_of_several_objects_is_outside_the_library_with_its_ranking_kept(reference_set, dla_result):
+    # The same DLA cluster, said to be one of several separate objects in its photograph:
+    # every reference grew alone, so it is outside the library and gets no verdict, while
+    # the ranking itself (computed from its features alone) is the same.
+    mask = reference_photo_mask(grow("dla", 2500, seed=424_242), seed=8)
+    alone_in_library = dla_result["in_library"]
+    several = match_features(SimpleNamespace(mask=mask), reference_set=reference_set, one_of_several=True)
+    assert alone_in_library is True and several["in_library"] is False
+    assert several["matches"] == dla_result["matches"]
+    assert not several["explanation"]["verdict"]["confident"]
+    assert any(w.code == "one_of_several" for w in several["warnings"])
+
+
 def test_a_specimen_too_small_to_compare_is_reported_not_ranked(reference_set):
     mask = np.zeros((40, 40), dtype=bool)
     mask[10:13, 10:18] = True  # 24 px: fewer than MIN_SITES

@@ -27,7 +27,7 @@ from service.errors import SpecimenError
 from service.imaging.load import LoadedImage
 from service.imaging.segmentation._common import (EIGHT, SMALL_SIDE_PX, Field, as_gray_rgb, block_mean,
                                                   field_mask, robust_sigma)
-from service.imaging.segmentation.cleanup import branch_width_px, keep_specimen
+from service.imaging.segmentation.cleanup import SEVERAL_OBJECTS, branch_width_px, keep_specimen
 from service.imaging.segmentation.field_of_view import find_field, parse_roi
 from service.imaging.segmentation.ridge import choose_mode, ridge_mask
 from service.imaging.segmentation.scene import (exclusion_mask, find_electrode, glare_halo, glare_halo_pieces, glare_mask,
@@ -35,7 +35,7 @@ from service.imaging.segmentation.scene import (exclusion_mask, find_electrode, 
 from service.imaging.segmentation.threshold import (EVENINGS, even_light, fit_background, levels_picture,
                                                     pick_threshold, threshold_mask)
 
-__all__ = ["LIGHTINGS", "LOW_CONFIDENCE", "MODES", "POLARITIES", "Reading", "Segmentation", "segment"]
+__all__ = ["LIGHTINGS", "LOW_CONFIDENCE", "MODES", "POLARITIES", "Reading", "SEVERAL_OBJECTS", "Segmentation", "segment"]
 
 MODES = ("auto", "threshold", "ridge")
 POLARITIES = ("auto", "dark", "bright")
@@ -366,6 +366,11 @@ def segment(
     settings["confidence"] = round(confidence, 3)
     settings["alternatives"] = [a.to_dict() for a in alternatives]
     warnings.extend(_warnings(mask, rows, cols, center_rc, fov, width_px, small_fov, factor, chosen_mode))
+    others = settings["cleanup"]["left_out_comparable"]
+    if others >= SEVERAL_OBJECTS:
+        warnings.append(Caveat("several_objects", f"the photograph shows {others} other objects at least a quarter "
+                               "of the specimen's size, left out of the mask: the specimen is one of several "
+                               "separate objects, not one aggregate grown from a seed"))
     if confidence < LOW_CONFIDENCE:
         warnings.append(Caveat("uncertain_segmentation", f"uncertain segmentation (confidence {confidence:.2f}): another reading of the photograph "
                         "is nearly as plausible; check the outline and take an alternative if it fits better"))
