@@ -10,10 +10,10 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-import networkx as nx
 import numba
 import numpy as np
-from scipy import ndimage
+from scipy import ndimage, sparse
+from scipy.sparse import csgraph
 from skimage.morphology import skeletonize
 
 from service.features._common import (
@@ -517,22 +517,30 @@ def _horton_strahler(
         pair = (min(br.a, br.b), max(br.a, br.b))
         if pair not in shortest or br.length_px < graph.branches[shortest[pair]].length_px:
             shortest[pair] = k
-    simple_graph = nx.Graph()  # parallel branches and loops only close cycles: drop them
-    simple_graph.add_nodes_from(graph.incident)
-    simple_graph.add_edges_from(shortest)
+    # Parallel branches and loops only close cycles: one edge per pair of nodes (the shortest).
+    ids = list(graph.incident)
+    index = {node: i for i, node in enumerate(ids)}
+    pairs = np.array([(index[a], index[b]) for a, b in shortest], dtype=np.int64).reshape(-1, 2)
+    adjacency = sparse.coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])),
+                                  shape=(len(ids), len(ids))).tocsr()
+    n_components, component_of = csgraph.connected_components(adjacency, directed=False)
+    coords = np.array([node_rc[n] for n in ids]).reshape(-1, 2)
     stream_lengths: dict[int, list[float]] = {}
     angles: list[float] = []
-    for component in nx.connected_components(simple_graph):
-        if len(component) < 2:
+    for component in range(n_components):
+        members = np.flatnonzero(component_of == component)
+        if members.size < 2:
             continue
-        nodes = list(component)
-        coords = np.array([node_rc[n] for n in nodes])
-        root = nodes[int(np.argmin(((coords - root_rc) ** 2).sum(axis=1)))]
-        tree = nx.bfs_tree(simple_graph, root)
-        top_down = list(nx.topological_sort(tree))
+        root = int(members[np.argmin(((coords[members] - root_rc) ** 2).sum(axis=1))])
+        # Breadth-first order is top-down; each node's predecessor is its parent in the tree.
+        visited, parent = csgraph.breadth_first_order(adjacency, root, directed=False, return_predecessors=True)
+        top_down = [ids[i] for i in visited]
+        children: dict[int, list[int]] = {node: [] for node in top_down}
+        for i in visited[1:]:
+            children[ids[parent[i]]].append(ids[i])
         order: dict[int, int] = {}
         for node in reversed(top_down):
-            child_orders = [order[c] for c in tree.successors(node)]
+            child_orders = [order[c] for c in children[node]]
             if not child_orders:
                 order[node] = 1
             else:
@@ -541,8 +549,7 @@ def _horton_strahler(
         stream_of: dict[int, int] = {}  # node -> index of the stream ending at it (its parent edge)
         streams: list[list[float]] = []
         for node in top_down:
-            children = list(tree.successors(node))
-            for child in children:
+            for child in children[node]:
                 br = graph.branches[shortest[(min(node, child), max(node, child))]]
                 parent_stream = stream_of.get(node)
                 if parent_stream is not None and streams[parent_stream][0] == order[child]:
@@ -551,10 +558,10 @@ def _horton_strahler(
                 else:
                     streams.append([order[child], br.length_px])
                     stream_of[child] = len(streams) - 1
-            if len(children) == 2:
+            if len(children[node]) == 2:
                 width = graph.node_width_px(node)
                 vectors = []
-                for child in children:
+                for child in children[node]:
                     br = graph.branches[shortest[(min(node, child), max(node, child))]]
                     path = br.path if br.a == node else br.path[::-1]
                     vectors.append(_direction(path, width, 3 * width))
