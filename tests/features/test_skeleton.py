@@ -112,3 +112,60 @@ def test_shared_skeleton_is_scikit_images_and_never_shared_by_reference():
     changed = masks[1].copy()
     changed[30, 40] = ~changed[30, 40]
     np.testing.assert_array_equal(skeleton_of(changed), skeletonize(changed))
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_traced_branches_cover_every_chain_pixel_once_and_step_between_neighbours(seed):
+    """The branch walk, checked against the definition of a skeleton graph rather than its
+    own method: on a thinned random pattern (a ring across it, junction clusters), every
+    pixel with two skeleton neighbours lies inside exactly one branch, every other skeleton pixel only at branch ends, each branch steps between
+    8-neighbours from a node to a node, and the node ids are those of its end pixels (a
+    ring without a node gets one new node at one of its pixels, a lone pixel no branch). The
+    step count is the number of skeleton adjacencies: each adjacency is walked once, except
+    those between two pixels of one junction, which no branch walks."""
+    from scipy import ndimage
+    from skimage.morphology import skeletonize
+
+    from service.features.skeleton import _NEIGHBOURS, _trace_branches
+
+    rng = np.random.default_rng(seed)
+    skel = skeletonize(ndimage.binary_dilation(rng.random((90, 110)) < 0.03 + 0.02 * seed, iterations=seed % 2))
+    yy, xx = np.mgrid[:90, :110]
+    skel |= np.abs(np.hypot(yy - 45, xx - 55) - 30) < 0.6  # a ring through the pattern
+    skel[:22, :22] = False
+    corner = np.hypot(yy[:22, :22] - 11, xx[:22, :22] - 11)
+    skel[:22, :22] = skeletonize((corner > 4) & (corner < 8))  # a ring alone
+    skel[80:, 100:] = False
+    skel[84, 104] = True  # a lone pixel
+    skel[0], skel[-1], skel[:, 0], skel[:, -1] = False, False, False, False
+    count = ndimage.convolve(skel.astype(np.uint8), np.array([[1, 1, 1], [1, 0, 1], [1, 1, 1]]), mode="constant")
+    degree = np.where(skel, count, 0)
+    junction, n_junction = ndimage.label(degree >= 3, structure=np.ones((3, 3)))
+    labels = junction.astype(np.int32)
+    tips = skel & (degree == 1)
+    labels[tips] = n_junction + 1 + np.arange(np.count_nonzero(tips))
+    given = labels.copy()
+    indptr, rows, cols, start, end = _trace_branches(skel.view(np.uint8), labels, _NEIGHBOURS)
+
+    inside = np.zeros(skel.shape, dtype=int)
+    placed = np.zeros(skel.shape, dtype=bool)
+    steps = 0
+    for k in range(start.size):
+        r, c = rows[indptr[k]: indptr[k + 1]], cols[indptr[k]: indptr[k + 1]]
+        assert r.size >= 2
+        assert np.all(np.maximum(np.abs(np.diff(r)), np.abs(np.diff(c))) == 1)
+        np.add.at(inside, (r[1:-1], c[1:-1]), 1)
+        for end_rc, node in ((0, start[k]), (-1, end[k])):
+            here = given[r[end_rc], c[end_rc]]
+            assert here == node or (here == 0 and node > given.max())  # a node placed on a cycle
+            placed[r[end_rc], c[end_rc]] |= here == 0
+        steps += r.size - 1
+    chain = skel & (degree == 2) & ~placed
+    assert np.count_nonzero(placed) >= 1 and not placed[84, 104]
+    assert np.all(inside[chain] == 1) and not inside[skel & ~chain].any() and not inside[~skel].any()
+    pairs = sum(np.count_nonzero(skel[max(0, -dr): skel.shape[0] - max(0, dr), max(0, -dc): skel.shape[1] - max(0, dc)]
+                                 & skel[max(0, dr):, max(0, dc):][: skel.shape[0] - abs(dr), : skel.shape[1] - abs(dc)]
+                                 & ~((junction[max(0, -dr): skel.shape[0] - max(0, dr), max(0, -dc): skel.shape[1] - max(0, dc)] > 0)
+                                     & (junction[max(0, dr):, max(0, dc):][: skel.shape[0] - abs(dr), : skel.shape[1] - abs(dc)] > 0)))
+                for dr, dc in ((0, 1), (1, -1), (1, 0), (1, 1)))
+    assert steps == pairs
