@@ -161,3 +161,24 @@ def test_a_red_lead_over_a_green_rim_is_left_out():
     free_lead = lead & (rho < 0.97) & (along > 0.7 * 300)
     assert np.count_nonzero(free_lead) > 100
     assert np.count_nonzero(seg.mask & free_lead) <= 0.1 * np.count_nonzero(free_lead)
+
+
+def test_reduced_copies_are_scikit_images_block_means():
+    """Every reading is scored on a reduced copy: its block means must be those of
+    scikit-image's ``downscale_local_mean`` (the reference library) on the whole blocks, for
+    an RGB photograph, a grey float picture and a mask."""
+    from skimage.transform import downscale_local_mean
+
+    from service.imaging.segmentation._common import block_mean
+
+    rng = np.random.default_rng(5)
+    rgb = rng.integers(0, 256, size=(103, 77, 3), dtype=np.uint8)
+    gray = rng.random((103, 77), dtype=np.float32)
+    mask = rng.random((103, 77)) < 0.3
+    for a, factor in ((rgb, 4), (rgb, 3), (gray, 4), (gray, 1), (mask, 8)):
+        got = block_mean(a, factor)
+        h, w = a.shape[0] // factor, a.shape[1] // factor
+        blocks = (factor, factor, 1) if a.ndim == 3 else (factor, factor)
+        want = downscale_local_mean(a.astype(np.float64), blocks)[:h, :w]
+        assert got.dtype == np.float32 and got.shape == want.shape
+        np.testing.assert_allclose(got, want, rtol=1e-5, atol=1e-4)

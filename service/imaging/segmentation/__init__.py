@@ -32,8 +32,8 @@ from service.imaging.segmentation.field_of_view import find_field, parse_roi
 from service.imaging.segmentation.ridge import choose_mode, ridge_mask
 from service.imaging.segmentation.scene import (exclusion_mask, find_electrode, glare_halo, glare_halo_pieces, glare_mask,
                                                 rim_structures, stroke_mask, wire_paths)
-from service.imaging.segmentation.threshold import (EVENINGS, even_light, fit_background, levels_picture,
-                                                    pick_threshold, threshold_mask)
+from service.imaging.segmentation.threshold import (EVENINGS, even_light, first_background, fit_background,
+                                                    levels_picture, pick_threshold, threshold_mask)
 
 __all__ = ["LIGHTINGS", "LOW_CONFIDENCE", "MODES", "POLARITIES", "Reading", "SEVERAL_OBJECTS", "Segmentation", "segment"]
 
@@ -268,8 +268,9 @@ def segment(
     plans = _plans(fov, fov_kind, polarity, lighting)
     found = (field_mask(score_small.shape, fov, factor * score_factor)
              if fov is not None and fov_kind != "roi" else None)
+    planes: dict = {}  # each field's first lighting estimate, shared by both polarities
     scored = [_score_plan(plan, score_small, factor * score_factor, score_excluded, found,
-                          score_halo if plan.polarity == "bright" else None) for plan in plans]
+                          score_halo if plan.polarity == "bright" else None, planes) for plan in plans]
     scored = _penalise_partial(plans, scored)
     scored = _penalise_interstitial(plans, scored, score_small, factor * score_factor)
     if chosen_mode == "ridge":
@@ -399,7 +400,7 @@ def _plans(fov: Field | None, fov_kind: str, polarity: str, lighting: str) -> li
 
 
 def _score_plan(plan: _Plan, small: np.ndarray, factor: int, small_excluded: np.ndarray | None,
-                found: np.ndarray | None, glare: np.ndarray | None = None) -> tuple[float, np.ndarray, dict[str, float]]:
+                found: np.ndarray | None, glare: np.ndarray | None, planes: dict) -> tuple[float, np.ndarray, dict[str, float]]:
     """Segment at reduced resolution under ``plan`` and score how plausible a specimen it gives.
 
     The score adds penalties a person would apply: the mask fills the field (the solution
@@ -408,11 +409,15 @@ def _score_plan(plan: _Plan, small: np.ndarray, factor: int, small_excluded: np.
     specimen grows from, is many
     pieces, stands barely above the noise, or has an outline on smooth grey (a lighting
     boundary). A field that was found is favoured a little over the whole image. ``glare``
-    (spots and their halo) is left out of the threshold and of the mask.
+    (spots and their halo) is left out of the threshold and of the mask. ``planes`` keeps the
+    first lighting estimate of each field and evening for the next plan that needs it.
     """
     fov = plan.fov.reduced(factor) if plan.fov is not None else None
     fov_mask = field_mask(small.shape, fov) if fov is not None else np.ones(small.shape, dtype=bool)
-    evened = even_light(small, small, fov_mask, fov, 1, plan.polarity, plan.evening)
+    key = (id(plan.fov), plan.evening)
+    if key not in planes:
+        planes[key] = first_background(small, fov_mask, fov, 1, plan.evening)
+    evened = even_light(small, small, fov_mask, fov, 1, plan.polarity, plan.evening, planes[key])
     t, _, contrast = pick_threshold(evened, fov, None, glare)
     raw = threshold_mask(evened, fov, t)
     if small_excluded is not None:

@@ -98,6 +98,20 @@ def _upsample(small: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
     return out.astype(np.float32, copy=False)
 
 
+def _normalised_average(clean: np.ndarray, values: np.ndarray, scale_px: float) -> tuple[np.ndarray, np.ndarray]:
+    """Gaussian averages of the ``clean`` pixels' weight and of their ``values`` (zero elsewhere),
+    at ``scale_px``. Smoothed four pixels or more, both are taken on a copy halved in each
+    direction and brought back bilinearly: the averages are smooth at that scale, and the
+    filter costs an eighth."""
+    weight = clean.astype(np.float32)
+    masked = np.where(clean, values, np.float32(0.0)).astype(np.float32)
+    if scale_px < 4.0 or min(clean.shape) < 16:
+        return ndimage.gaussian_filter(weight, scale_px), ndimage.gaussian_filter(masked, scale_px)
+    half_w = ndimage.gaussian_filter(block_mean(weight, 2), 0.5 * scale_px)
+    half_v = ndimage.gaussian_filter(block_mean(masked, 2), 0.5 * scale_px)
+    return _upsample(half_w, clean.shape), _upsample(half_v, clean.shape)
+
+
 EVENINGS = ("surface", "local")
 
 
@@ -113,8 +127,17 @@ def local_background(small: np.ndarray, inside: np.ndarray, fov: Field | None, f
     return _upsample(med, small.shape)
 
 
+def first_background(small: np.ndarray, small_fov: np.ndarray, fov: Field | None, factor: int,
+                     evening: str) -> np.ndarray:
+    """The lighting's first estimate, before the background class is known: the windowed
+    median (``evening="local"``) or a plane fitted to the field."""
+    if evening == "local":
+        return local_background(small, small_fov, fov, factor)
+    return fit_background(small, small_fov, degree=1)[1]
+
+
 def even_light(gray: np.ndarray, small: np.ndarray, small_fov: np.ndarray, fov: Field | None, factor: int,
-               polarity: str, evening: str = "surface") -> Evened:
+               polarity: str, evening: str = "surface", plane: np.ndarray | None = None) -> Evened:
     """Divide out the lighting, for the given polarity or the one the field's outer band shows.
 
     Strategy: a planar, symmetrically clipped fit follows whichever class fills most of the
@@ -126,14 +149,13 @@ def even_light(gray: np.ndarray, small: np.ndarray, small_fov: np.ndarray, fov: 
     noise levels: a shadow over part of the dish, or a vignette, is followed; glare, the
     specimen and the blur at its edges are not. ``evening="local"`` starts from a windowed
     median instead of the plane and the quadratic, for light that changes faster than a
-    quadratic can follow (a sharp shadow, a strong vignette).
+    quadratic can follow (a sharp shadow, a strong vignette). ``plane`` is that first estimate
+    (:func:`first_background`) when the caller already has it for this field and evening.
     """
     from skimage.filters import threshold_otsu
 
-    if evening == "local":
-        plane = local_background(small, small_fov, fov, factor)
-    else:
-        _, plane = fit_background(small, small_fov, degree=1)
+    if plane is None:
+        plane = first_background(small, small_fov, fov, factor, evening)
     evened_small = small / np.maximum(plane, np.float32(0.02))
     inner = small_fov & (field_mask(small.shape, fov.scaled(_BAND[1]), factor) if fov is not None else True)
     if np.count_nonzero(inner) < 64:
@@ -157,8 +179,7 @@ def even_light(gray: np.ndarray, small: np.ndarray, small_fov: np.ndarray, fov: 
     resid = ratio[background_class] - 1.0
     clean = background_class & (np.abs(ratio - 1.0 - float(np.median(resid))) < 2.5 * robust_sigma(resid))
     scale_px = max(2.0, 0.05 * (fov.r / factor if fov is not None else min(small.shape) / 2.0))
-    weight = ndimage.gaussian_filter(clean.astype(np.float32), scale_px)
-    local = ndimage.gaussian_filter(np.where(clean, ratio, 0.0).astype(np.float32), scale_px)
+    weight, local = _normalised_average(clean, ratio, scale_px)
     # Where few background pixels are near (inside a dense deposit), fall back to the quadratic.
     trust = np.clip(weight / 0.15, 0.0, 1.0)
     correction = trust * (local / np.maximum(weight, 1e-6)) + (1.0 - trust)
