@@ -325,13 +325,21 @@ def segment(
     settings["scene"] = scene
     seed_rc = (fov.cy, fov.cx) if fov is not None else ((h - 1) / 2.0, (w - 1) / 2.0)
     clear = _clear_background(levels, settings) if levels is not None else None
-    kept, cleanup = keep_specimen(mask, seed_rc, width_guess, keep_all=(chosen_mode == "ridge"),
+    # The branch width of what the threshold took, specks and all, sizes the cleanup. When the
+    # cleanup left out a fifth or more, the width is measured again on what it kept; a width a
+    # quarter smaller means wide pieces left out (a label, a blob of glare) had inflated it,
+    # and the cleanup is redone with it. A larger one only means the specks left out had
+    # thinned it: redoing the cleanup would join pieces further apart than the first cleanup
+    # could see (separate coins on a table) and is not done.
+    width_px = branch_width_px(mask)
+    kept, cleanup = keep_specimen(mask, seed_rc, min(width_px, width_cap), keep_all=(chosen_mode == "ridge"),
                                   clear_background=clear)
-    width_px = branch_width_px(kept)
-    if abs(min(width_px, width_cap) - width_guess) > 0.25 * width_guess:
-        kept, cleanup = keep_specimen(mask, seed_rc, min(width_px, width_cap), keep_all=(chosen_mode == "ridge"),
-                                      clear_background=clear)
-        width_px = branch_width_px(kept)
+    if np.count_nonzero(kept) < 0.8 * np.count_nonzero(mask):
+        used, width_px = min(width_px, width_cap), branch_width_px(kept)
+        if min(width_px, width_cap) < 0.75 * used:
+            kept, cleanup = keep_specimen(mask, seed_rc, min(width_px, width_cap),
+                                          keep_all=(chosen_mode == "ridge"), clear_background=clear)
+            width_px = branch_width_px(kept)
     mask = kept
     settings["cleanup"] = cleanup
     if not mask.any():
