@@ -138,7 +138,6 @@ def _trace_branches(skeleton: np.ndarray, node_label: np.ndarray, neighbours: np
     reached = csgraph.breadth_first_order(walk, root, directed=True, return_predecessors=False)[1:]
     reached = reached[np.argsort(comp[reached], kind="stable")]
     seg_begin = np.searchsorted(comp[reached], np.arange(n_comp))
-    seg_len = np.where(start_of >= 0, size, 0)
 
     # A path ends at the node pixel next to its last pixel, the first in neighbour order
     # (and not the one it started from when the path is one pixel long).
@@ -177,7 +176,6 @@ def _trace_branches(skeleton: np.ndarray, node_label: np.ndarray, neighbours: np
     rows = (flat // w).astype(np.int32)
     cols = (flat % w).astype(np.int32)
     return indptr, rows, cols, start_node, end_node
-
 
 
 #: Pixel paths are smoothed over this many pixels before their length is taken.
