@@ -131,7 +131,7 @@ def analyze(
     calibration = _calibration(image, pixel_size_mm)
     seg = segment(image, mode=mode, polarity=polarity, threshold=threshold, roi=roi, exclude=exclude,
                   lighting=lighting, exclude_strokes=exclude_strokes)
-    features = measure(seg.mask, pixel_size_mm=calibration["pixel_size_mm"], center_rc=seg.center_rc)
+    features = measure(seg.measured_mask, pixel_size_mm=calibration["pixel_size_mm"], center_rc=seg.center_rc)
     warnings = list(image.warnings) + list(seg.warnings)
     warnings += [w for w in features.warnings if w not in warnings]
     if not calibration["calibrated"]:
@@ -143,7 +143,7 @@ def analyze(
 
         try:
             several = seg.settings.get("cleanup", {}).get("left_out_comparable", 0) >= SEVERAL_OBJECTS
-            matching = match_features(features, reference_set=reference_set, mask=seg.mask, one_of_several=several)
+            matching = match_features(features, reference_set=reference_set, mask=seg.measured_mask, one_of_several=several)
         except LibraryError as exc:
             # A missing or damaged reference set must not cost the user the measurements.
             warnings.append(Caveat("not_ranked", f"not ranked against the reference library: {exc}"))

@@ -705,8 +705,8 @@ def judge(scene: Scene, *, dimension: bool = True) -> dict[str, Any]:
         mask = None
     else:
         record["iou"] = iou(mask, scene.truth)
-        # The reading keeps the electrode the deposit grows from (the matcher's references carry
-        # one); its pixels left out of both masks show how much of a shortfall that choice costs.
+        # The reading leaves the electrode out only where its grey outlines it; the drawn
+        # electrode's pixels left out of both masks show what the rest still costs.
         beside = ~scene.parts["electrode"] if "electrode" in scene.parts else True
         record["iou_without_electrode"] = iou(mask & beside, scene.truth & beside)
         record["mask"] = mask

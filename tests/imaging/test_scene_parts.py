@@ -8,6 +8,8 @@ from __future__ import annotations
 import math
 
 import numpy as np
+import pytest
+from scipy import ndimage
 
 from service.imaging import segment
 from tests.imaging.masks import random_tree
@@ -182,3 +184,51 @@ def test_reduced_copies_are_scikit_images_block_means():
         want = downscale_local_mean(a.astype(np.float64), blocks)[:h, :w]
         assert got.dtype == np.float32 and got.shape == want.shape
         np.testing.assert_allclose(got, want, rtol=1e-5, atol=1e-4)
+
+
+def _electrode_in_a_dense_core(electrode_grey: float, seed: int):
+    """A dark deposit on a pale solution: a tree with a dense core 22 px across round a centre
+    electrode of 9 px radius, so the thick disc by the mask's shape alone is the core's.
+    Returns the photograph, the electrode drawn and the deposit drawn (without it)."""
+    rng = np.random.default_rng(seed)
+    h, w = 600, 600
+    rho = _ellipse((h, w), 300, 300, 270, 270, 0)
+    photo = np.empty((h, w, 3))
+    photo[:] = (0.40, 0.38, 0.35)
+    photo[rho <= 1.0] = (0.78, 0.86, 0.92)
+    yy, xx = np.mgrid[:h, :w]
+    r = np.hypot(yy - 300, xx - 300)
+    deposit = (_place((h, w), random_tree(128, seed=seed), 300, 300, 3) & (rho < 0.85)) | (r <= 22)
+    electrode = r <= 9
+    photo[deposit] = (0.30, 0.24, 0.22)
+    photo[electrode] = electrode_grey
+    photo = np.stack([ndimage.gaussian_filter(photo[..., k], 0.8) for k in range(3)], axis=-1)
+    photo += rng.normal(0.0, 0.012, photo.shape)
+    return _to_uint8(photo), electrode, deposit & ~electrode
+
+
+@pytest.mark.parametrize("electrode_grey", [0.06, 0.52], ids=["darker", "lighter"])
+def test_an_electrode_of_its_own_grey_is_left_out_of_the_mask(electrode_grey):
+    """A graphite rod darker than the copper, or a polished one lighter (still darker than the
+    solution): its outline is where its grey meets the deposit's, not the thick disc of the
+    dense core round it. The mask keeps the core; what is measured keeps the electrode too."""
+    photo, electrode, deposit = _electrode_in_a_dense_core(electrode_grey, seed=6)
+    seg = segment(photo)
+
+    assert seg.electrode is not None
+    assert np.count_nonzero(seg.electrode & electrode) / np.count_nonzero(seg.electrode | electrode) >= 0.8
+    core = deposit & ~ndimage.binary_dilation(electrode, iterations=2)
+    assert np.count_nonzero(seg.mask & core) >= 0.95 * np.count_nonzero(core)
+    assert not (seg.mask & ndimage.binary_erosion(electrode, iterations=2)).any()
+    np.testing.assert_array_equal(seg.measured_mask, seg.mask | seg.electrode)
+
+
+def test_an_electrode_of_the_deposits_grey_stays_in_the_mask():
+    """The same scene with the electrode the deposit's own grey: nothing tells them apart, so
+    nothing is cut out of the deposit."""
+    photo, electrode, deposit = _electrode_in_a_dense_core(0.26, seed=6)
+    seg = segment(photo)
+
+    assert seg.electrode is None
+    assert np.count_nonzero(seg.mask & electrode) >= 0.95 * np.count_nonzero(electrode)
+    np.testing.assert_array_equal(seg.measured_mask, seg.mask)

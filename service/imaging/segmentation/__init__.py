@@ -30,7 +30,7 @@ from service.imaging.segmentation._common import (EIGHT, SMALL_SIDE_PX, Field, a
 from service.imaging.segmentation.cleanup import SEVERAL_OBJECTS, branch_width_px, keep_specimen
 from service.imaging.segmentation.field_of_view import find_field, parse_roi
 from service.imaging.segmentation.ridge import choose_mode, ridge_mask
-from service.imaging.segmentation.scene import (exclusion_mask, find_electrode, glare_halo, glare_halo_pieces, glare_mask,
+from service.imaging.segmentation.scene import (electrode_outline, exclusion_mask, find_electrode, glare_halo, glare_halo_pieces, glare_mask,
                                                 rim_structures, stroke_mask, wire_paths)
 from service.imaging.segmentation.threshold import (EVENINGS, even_light, first_background, fit_background,
                                                     levels_picture, pick_threshold, threshold_mask)
@@ -76,7 +76,7 @@ class Segmentation:
     Attributes
     ----------
     mask : ndarray of bool, shape (H, W)
-        The specimen.
+        The specimen, without the centre electrode where its grey set it apart (``electrode``).
     overlay : ndarray of uint8, shape (H, W, 3)
         The photograph with the mask outline (magenta), the field of view (green) and the
         seed (red cross) drawn on it.
@@ -95,6 +95,8 @@ class Segmentation:
     levels : ndarray of uint8 or None
         The picture the threshold applies to: inside the field the mask is about
         ``levels / 255 < threshold`` (``settings["levels_compare"] == "below"``) or ``>``.
+    electrode : ndarray of bool or None, shape (H, W)
+        The centre electrode's pixels left out of ``mask``, when its grey outlined it.
     """
 
     mask: np.ndarray
@@ -105,6 +107,13 @@ class Segmentation:
     confidence: float = 1.0
     alternatives: tuple[Reading, ...] = ()
     levels: np.ndarray | None = None
+    electrode: np.ndarray | None = None
+
+    @property
+    def measured_mask(self) -> np.ndarray:
+        """The specimen with the electrode it grows from, when one was outlined and left out of
+        ``mask``: what features and ranking measure, as the references are drawn."""
+        return self.mask if self.electrode is None else self.mask | self.electrode
 
     def to_dict(self) -> dict[str, Any]:
         """Settings, warnings, seed, mask area, confidence and alternatives (not the arrays)."""
@@ -345,12 +354,21 @@ def segment(
     if not mask.any():
         raise SpecimenError("no specimen found: nothing is left after thresholding and removing specks")
     settings["branch_width_px"] = round(width_px, 2)
-    outline = mask & ~ndimage.binary_erosion(mask, structure=EIGHT, border_value=0)
-    # The electrode stays in the mask: the matcher's reference drawings carry one too, and a
+    # The electrode is left out of the mask where its grey outlines it. It stays in what is
+    # measured (``measured_mask``): the matcher's reference drawings carry one too, and a
     # deposit cut from it measures as pieces (clearing bare ones put 4 of 20 fresh photographs
     # of library regimes outside the library).
     electrode = find_electrode(mask, seed_rc, width_px) if chosen_mode == "threshold" else None
+    electrode_px = None
+    if electrode is not None and levels is not None:
+        electrode_px = electrode_outline(levels, mask, electrode, float(settings["background"]["median_grey"]) * 255.0)
+    if electrode_px is not None and np.count_nonzero(electrode_px) * 2 > np.count_nonzero(mask):
+        electrode_px = None  # more electrode than deposit: what grew on it is too little to stand alone
+    if electrode_px is not None:
+        mask = mask & ~electrode_px
+        electrode["outlined_px"] = int(np.count_nonzero(electrode_px))
     settings["electrode"] = electrode
+    outline = mask & ~ndimage.binary_erosion(mask, structure=EIGHT, border_value=0)
     if levels is not None:
         contrast = min(contrast, _deposit_contrast(levels, mask, electrode, settings, seed_rc,
                                                    fov.r if fov is not None else 0.5 * min(h, w)))
@@ -385,7 +403,8 @@ def segment(
                         "is nearly as plausible; check the outline and take an alternative if it fits better"))
     overlay = _overlay(rgb, outline, fov, center_rc)
     return Segmentation(mask=mask, overlay=overlay, settings=settings, warnings=warnings, center_rc=center_rc,
-                        confidence=confidence, alternatives=tuple(alternatives), levels=levels)
+                        confidence=confidence, alternatives=tuple(alternatives), levels=levels,
+                        electrode=electrode_px)
 
 
 # ----------------------------------------------------------------------------- readings

@@ -274,6 +274,55 @@ def find_electrode(mask: np.ndarray, seed_rc: tuple[float, float], width_px: flo
             "radius_px": round(peak, 1)}
 
 
+def electrode_outline(levels: np.ndarray, mask: np.ndarray, electrode: dict[str, Any],
+                      background: float) -> np.ndarray | None:
+    """The electrode's own pixels, where its grey sets it apart from the deposit round it.
+
+    :func:`find_electrode` places a disc by thickness alone, and in a dense core that disc
+    holds deposit as well. A rod or wire end is most often lighter or darker than the metal
+    grown on it: then its pixels are those of the mask nearer its grey than the deposit's,
+    joined to its centre (the midpoint between two greys is where a blurred edge between
+    them lies). When the two greys do not differ by more than the deposit's own spread, the
+    electrode cannot be told apart and None is returned. ``background`` is the solution's
+    grey on the scale of ``levels``.
+    """
+    h, w = mask.shape
+    cy, cx = (float(v) for v in electrode["center_rc"])
+    r = float(electrode["radius_px"])
+    reach = int(math.ceil(3.0 * r)) + 3
+    r0, r1 = max(0, int(cy) - reach), min(h, int(cy) + reach + 1)
+    c0, c1 = max(0, int(cx) - reach), min(w, int(cx) + reach + 1)
+    inside = mask[r0:r1, c0:c1]
+    grey = ndimage.uniform_filter(levels[r0:r1, c0:c1].astype(np.float32), 3)
+    yy, xx = np.ogrid[r0:r1, c0:c1]
+    d2 = (yy - cy) ** 2 + (xx - cx) ** 2
+    core = inside & (d2 <= (0.5 * r) ** 2)
+    # The deposit just beyond the disc, away from its blurred edges.
+    interior = ndimage.binary_erosion(inside, iterations=1) & (d2 > (1.6 * r) ** 2)
+    if np.count_nonzero(core) < 5 or np.count_nonzero(interior) < 20:
+        return None
+    e = float(np.median(grey[core]))
+    deposit = grey[interior]
+    d = float(np.median(deposit))
+    spread = 1.4826 * float(np.median(np.abs(deposit - d)))
+    if abs(e - d) < max(2.5 * spread, 12.0):
+        return None
+    # A core further from the background than the branches may be deposit too, thicker than
+    # blurred thin branches: it must lie beyond nearly all the deposit's pixels.
+    if (e - d) * (d - background) > 0 and (e - np.quantile(deposit, 0.98 if e > d else 0.02)) * (e - d) <= 0:
+        return None
+    near = inside & (np.abs(grey - e) < np.abs(grey - d)) & (d2 <= (1.5 * r + 2.0) ** 2)
+    labels, _ = ndimage.label(near)
+    counts = np.bincount(labels[core], minlength=labels.max() + 1)
+    counts[0] = 0
+    own = ndimage.binary_fill_holes(labels == int(np.argmax(counts)))
+    if np.count_nonzero(own) < 20:
+        return None
+    out = np.zeros_like(mask)
+    out[r0:r1, c0:c1] = own & inside
+    return out
+
+
 def wire_paths(mask: np.ndarray, rgb: np.ndarray, fov: Field, seed_rc: tuple[float, float],
                factor: int) -> tuple[np.ndarray, dict[str, Any]]:
     """A lead running from outside the field to the centre electrode, across the deposit.
