@@ -10,8 +10,8 @@ import dataclasses
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import ndimage
 
+from service.distance import distance_to_background
 from service.features._common import (
     as_specimen_mask,
     check_pixel_size,
@@ -142,7 +142,7 @@ def measure(
     crop, origin = crop_to_specimen(mask, pad_px=1)
     center_crop = None if center_rc is None else tuple(np.asarray(center_rc) - np.asarray(origin))
 
-    edt = ndimage.distance_transform_edt(crop)
+    edt = distance_to_background(crop)
     skeleton = skeleton_of(crop)
     width = median_branch_width_px(crop, edt=edt, skeleton_mask=skeleton)
 

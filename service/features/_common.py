@@ -5,9 +5,9 @@ from __future__ import annotations
 import threading
 
 import numpy as np
-from scipy import ndimage
 from skimage.morphology import skeletonize
 
+from service.distance import distance_to_background
 from service.errors import SpecimenError
 
 
@@ -125,7 +125,7 @@ def median_branch_width_px(
         The distance transform and skeleton of ``mask`` when the caller already has them.
     """
     if edt is None:
-        edt = ndimage.distance_transform_edt(mask)
+        edt = distance_to_background(mask)
     if skeleton_mask is None:
         skeleton_mask = skeleton_of(mask)
     on_skeleton = edt[skeleton_mask]

@@ -16,6 +16,7 @@ from scipy import ndimage, sparse
 from scipy.sparse import csgraph
 from skimage.morphology import skeletonize
 
+from service.distance import distance_to_background
 from service.features._common import (
     as_specimen_mask,
     crop_to_specimen,
@@ -666,7 +667,7 @@ def skeleton_graph(
     crop, (r0, c0) = crop_to_specimen(mask, pad_px=1)
     h, w = crop.shape
     if edt is None:
-        edt_crop = ndimage.distance_transform_edt(crop)
+        edt_crop = distance_to_background(crop)
     else:
         edt_crop = window_of(np.asarray(edt, dtype=float), (r0, c0), (h, w))
     if skeleton_mask is None:

@@ -26,6 +26,8 @@ from typing import Any
 import numpy as np
 from scipy import ndimage
 
+from service.distance import distance_to_background
+
 __all__ = ["SceneModel", "scene_from_segmentation", "register", "shift_picture", "FrameCheck", "deposit_mask",
            "ArrivalBuilder", "frame_measures"]
 
@@ -178,7 +180,7 @@ def scene_from_segmentation(gray_last: np.ndarray, segmentation, *, shift_last_r
     field = field_mask(shape, fov) if fov is not None else np.ones(shape, dtype=bool)
     width = float(settings.get("branch_width_px") or 3.0)
     final = segmentation.mask
-    allowed = ndimage.distance_transform_edt(~final) <= FINAL_MARGIN_WIDTHS * width + 1.0
+    allowed = distance_to_background(~final) <= FINAL_MARGIN_WIDTHS * width + 1.0
     rim = None
     fov_info = settings.get("field_of_view") or {}
     if fov is not None and fov_info.get("source") not in (None, "whole image"):

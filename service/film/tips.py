@@ -20,7 +20,8 @@ from functools import lru_cache
 from typing import Any
 
 import numpy as np
-from scipy import ndimage
+
+from service.distance import distance_to_background
 
 __all__ = ["TIP_REACH_WIDTHS", "comparison_steps", "pruned_tips", "reference_shares", "tip_share"]
 
@@ -53,7 +54,7 @@ def pruned_tips(mask: np.ndarray) -> np.ndarray:
     crop = np.zeros((rows.max() - r0 + 2, cols.max() - c0 + 2), dtype=bool)
     crop[rows - r0, cols - c0] = True
     skel = skeletonize(crop)
-    graph, _, _ = _bare_graph(skel, local_width_px(ndimage.distance_transform_edt(crop)))
+    graph, _, _ = _bare_graph(skel, local_width_px(distance_to_background(crop)))
     while True:
         changed = graph.prune_spurs(PRUNE_WIDTHS)
         changed += graph.merge_close_junctions(MERGE_WIDTHS)
@@ -72,7 +73,7 @@ def near_tips(shape: tuple[int, int], tips_rc: np.ndarray, reach_px: float) -> n
         seeds[rc[:, 0], rc[:, 1]] = True
     else:
         return seeds
-    return ndimage.distance_transform_edt(~seeds) <= reach_px
+    return distance_to_background(~seeds) <= reach_px
 
 
 def tip_share(before: np.ndarray, after: np.ndarray, tips_rc: np.ndarray, reach_px: float) -> tuple[int, int]:

@@ -16,6 +16,8 @@ from typing import Any
 import numpy as np
 from scipy import ndimage
 
+from service.distance import distance_to_background
+
 __all__ = ["RenderedPhoto", "render_photo", "render_specimen"]
 
 # Colours (linear RGB in [0, 1]) of the two looks, chosen to resemble photographs of copper
@@ -192,9 +194,9 @@ def render_specimen(
     truth[np.ix_(row_ok, col_ok)] = occupied[np.ix_(row_site[row_ok], col_site[col_ok])]
     grow_px = 0.5 * (thickness - scale)
     if grow_px >= 0.5:
-        truth = ndimage.distance_transform_edt(~truth) <= grow_px
+        truth = distance_to_background(~truth) <= grow_px
     elif grow_px <= -0.5:
-        truth = ndimage.distance_transform_edt(truth) > -grow_px
+        truth = distance_to_background(truth) > -grow_px
 
     yy = np.arange(size_h, dtype=np.float32)[:, None]
     xx = np.arange(size_w, dtype=np.float32)[None, :]

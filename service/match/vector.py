@@ -14,6 +14,7 @@ import numpy as np
 from scipy import ndimage
 from skimage.morphology import skeletonize
 
+from service.distance import distance_to_background
 from service.errors import SpecimenError
 from service.features.dimension import box_counting, sandbox
 from service.features.lacunarity import lacunarity
@@ -223,7 +224,7 @@ def reference_photo_mask(lattice: np.ndarray, *, seed: int) -> np.ndarray:
     drawn[np.ix_(row_ok, col_ok)] = occupied[np.ix_(row_site[row_ok], col_site[col_ok])]
     grow_px = 0.5 * (thickness - scale)
     if grow_px >= 0.5:
-        drawn = ndimage.distance_transform_edt(~drawn) <= grow_px
+        drawn = distance_to_background(~drawn) <= grow_px
     if electrode_sites > 0:
         cy, cx = pad + (h // 2 + 0.5) * scale, pad + (w // 2 + 0.5) * scale
         yy, xx = np.ogrid[:size_h, :size_w]

@@ -8,6 +8,7 @@ from typing import Any
 import numpy as np
 from scipy import ndimage
 
+from service.distance import distance_to_background
 from service.imaging.segmentation._common import EIGHT
 
 
@@ -32,7 +33,7 @@ def branch_width_px(mask: np.ndarray) -> float:
             piece = crop[a0: r0 + tile + margin, b0: c0 + tile + margin]
             if not piece.any():
                 continue
-            dist = ndimage.distance_transform_edt(np.pad(piece, 1))[1:-1, 1:-1].astype(np.float32)
+            dist = distance_to_background(np.pad(piece, 1))[1:-1, 1:-1].astype(np.float32)
             ridge = piece & (dist >= ndimage.maximum_filter(dist, size=3))
             core = np.zeros_like(ridge)
             core[r0 - a0: r0 - a0 + tile, c0 - b0: c0 - b0 + tile] = True

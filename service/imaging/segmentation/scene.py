@@ -9,6 +9,7 @@ from typing import Any
 import numpy as np
 from scipy import ndimage
 
+from service.distance import distance_to_background
 from service.imaging.segmentation._common import Field, block_mean, field_mask
 
 
@@ -216,7 +217,7 @@ def glare_mask(rgb: np.ndarray, width_px: float | None = None) -> np.ndarray | N
     for i, box in enumerate(ndimage.find_objects(labels), start=1):
         if area[i] < 8:
             continue
-        inscribed = float(ndimage.distance_transform_edt(np.pad(labels[box] == i, 1)).max())
+        inscribed = float(distance_to_background(np.pad(labels[box] == i, 1)).max())
         spot[i] = ((inscribed >= 2.5 and area[i] <= 3.0 * math.pi * inscribed**2)
                    or (width_px is not None and inscribed >= 1.5 * width_px))
     if not spot.any():
@@ -235,7 +236,7 @@ def glare_halo(glare: np.ndarray) -> np.ndarray:
         reach = int(math.ceil(math.sqrt(area[i] / math.pi)))
         rows = slice(max(0, box[0].start - reach), min(glare.shape[0], box[0].stop + reach))
         cols = slice(max(0, box[1].start - reach), min(glare.shape[1], box[1].stop + reach))
-        halo[rows, cols] |= ndimage.distance_transform_edt(labels[rows, cols] != i) <= reach
+        halo[rows, cols] |= distance_to_background(labels[rows, cols] != i) <= reach
     return halo
 
 
@@ -262,7 +263,7 @@ def find_electrode(mask: np.ndarray, seed_rc: tuple[float, float], width_px: flo
         return None
     # Padding with background makes the crop's edge count as an edge: a blob cut by the
     # window is not mistaken for a wider one.
-    dist = ndimage.distance_transform_edt(np.pad(crop, 1))[1:-1, 1:-1]
+    dist = distance_to_background(np.pad(crop, 1))[1:-1, 1:-1]
     peak = float(dist.max())
     if peak < max(4.0, 1.6 * width_px) or peak > 0.06 * min(h, w):
         return None  # as thin as the branches, or so wide that the specimen itself is compact
@@ -371,7 +372,7 @@ def wire_paths(mask: np.ndarray, rgb: np.ndarray, fov: Field, seed_rc: tuple[flo
     # Off the mask costs a thousand steps: a route may bridge a pixel or two where the lead
     # breaks at this resolution (it is thin, or crosses the rim's cut), no more.
     cost = np.where(small, 1.0, 1e3)
-    dist_small = ndimage.distance_transform_edt(small)
+    dist_small = distance_to_background(small)
     seed_s = (int(np.clip(round((seed_rc[0] - (factor - 1) / 2.0) / factor), 0, sh - 1)),
               int(np.clip(round((seed_rc[1] - (factor - 1) / 2.0) / factor), 0, sw - 1)))
     if not small[seed_s]:
@@ -411,7 +412,7 @@ def wire_paths(mask: np.ndarray, rgb: np.ndarray, fov: Field, seed_rc: tuple[flo
         # The lead's pixels: the mask within half its width and a pixel of the route.
         tube = np.zeros((sh, sw), dtype=bool)
         tube[path[:, 0].astype(int), path[:, 1].astype(int)] = True
-        near = ndimage.distance_transform_edt(~tube) <= 0.5 * width + 1.0
+        near = distance_to_background(~tube) <= 0.5 * width + 1.0
         big = np.repeat(np.repeat(near, factor, axis=0), factor, axis=1)
         pad_h, pad_w = h - big.shape[0], w - big.shape[1]
         big = np.pad(big, ((0, max(0, pad_h)), (0, max(0, pad_w))), mode="edge")[:h, :w]
