@@ -232,3 +232,32 @@ def test_an_electrode_of_the_deposits_grey_stays_in_the_mask():
     assert seg.electrode is None
     assert np.count_nonzero(seg.mask & electrode) >= 0.95 * np.count_nonzero(electrode)
     np.testing.assert_array_equal(seg.measured_mask, seg.mask)
+
+
+def test_a_wide_piece_beside_the_deposit_is_not_taken_for_a_broken_arm():
+    """A cross of 4 px strokes, one arm broken by a 12 px gap (three widths), and a dark band
+    20 px thick (a shadow cast by the wall, say) 14 px beyond another arm's tip: both lie
+    within the eight widths that join broken arms, but only the arm is as thin as the
+    deposit's strokes, so only it is kept."""
+    rng = np.random.default_rng(8)
+    h = w = 600
+    rho = _ellipse((h, w), 300, 300, 285, 285, 0)
+    photo = np.empty((h, w, 3))
+    photo[:] = (0.35, 0.33, 0.30)
+    photo[rho <= 1.0] = (0.80, 0.84, 0.86)
+    cross = np.zeros((h, w), bool)
+    cross[298:302, 180:421] = True
+    cross[180:421, 298:302] = True
+    arm = np.zeros((h, w), bool)
+    arm[298:302, 433:481] = True
+    band = np.zeros((h, w), bool)
+    band[150:170, 310:461] = True
+    photo[cross | arm] = (0.22, 0.18, 0.16)
+    photo[band] = (0.30, 0.30, 0.32)
+    photo = np.stack([ndimage.gaussian_filter(photo[..., k], 0.7) for k in range(3)], axis=-1)
+    photo += rng.normal(0.0, 0.01, photo.shape)
+    seg = segment(_to_uint8(photo))
+
+    assert np.count_nonzero(seg.mask & cross) >= 0.9 * np.count_nonzero(cross)
+    assert np.count_nonzero(seg.mask & arm) >= 0.9 * np.count_nonzero(arm)
+    assert np.count_nonzero(seg.mask & band) <= 0.05 * np.count_nonzero(band)

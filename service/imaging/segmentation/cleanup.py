@@ -107,6 +107,11 @@ def keep_specimen(mask: np.ndarray, seed_rc: tuple[float, float], width_px: floa
             main.append(largest)  # the seed sat on a small blob (an electrode standing free)
         sizeable = big & (sizes >= max(min_object_px, 0.002 * sizes[largest]))
         keep = sizeable & _linked(labels, idx, lab, n, main, width_px)
+        # An arm the threshold broke off is as thin as the deposit's branches; a piece nearby
+        # several times wider than them and than the main piece's strokes is something else
+        # (a shadow along the wall, a bubble).
+        strokes = _stroke_widths(labels, sizes)
+        keep &= strokes <= WIDE_PIECE * max(width_px, float(strokes[main].max()))
         keep[main] = True
     keep[0] = False
     # Sizeable pieces left out that are at least a quarter of what is kept (SEVERAL_OBJECTS).
@@ -118,6 +123,23 @@ def keep_specimen(mask: np.ndarray, seed_rc: tuple[float, float], width_px: floa
         kept = fill_small_holes(kept, max_hole_px, clear_background)
     info["components_kept"] = int(np.count_nonzero(keep))
     return kept, info
+
+
+#: A piece apart from the deposit this many branch widths wide or more is not a broken-off arm.
+WIDE_PIECE = 3.0
+
+
+def _stroke_widths(labels: np.ndarray, sizes: np.ndarray) -> np.ndarray:
+    """Each component's stroke width, twice its area over its outline length, the outline
+    counted as pixel edges along rows and columns (4 / pi times its length, Cauchy-Crofton)."""
+    edges = np.zeros(sizes.size, dtype=np.int64)
+    for a, b in ((labels[:, 1:], labels[:, :-1]), (labels[1:], labels[:-1])):
+        differ = a != b
+        edges += np.bincount(a[differ], minlength=sizes.size) + np.bincount(b[differ], minlength=sizes.size)
+    for line in (labels[0], labels[-1], labels[:, 0], labels[:, -1]):  # the frame's edge is outline too
+        edges += np.bincount(line, minlength=sizes.size)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return 8.0 * sizes / (np.pi * edges)
 
 
 def _linked(labels: np.ndarray, idx: np.ndarray, lab: np.ndarray, n: int, main: list[int],
