@@ -261,3 +261,26 @@ def test_a_wide_piece_beside_the_deposit_is_not_taken_for_a_broken_arm():
     assert np.count_nonzero(seg.mask & cross) >= 0.9 * np.count_nonzero(cross)
     assert np.count_nonzero(seg.mask & arm) >= 0.9 * np.count_nonzero(arm)
     assert np.count_nonzero(seg.mask & band) <= 0.05 * np.count_nonzero(band)
+
+
+def test_field_masks_are_the_ellipse_tested_pixel_by_pixel():
+    """The field of view, cleared outside row by row from where the ellipse crosses each row,
+    against the ellipse's own inequality (u / a)^2 + (v / b)^2 <= 1 at every pixel centre of
+    full and reduced grids (a reduced pixel's centre lies at ``i * factor + (factor - 1) / 2``).
+    Pixels within rounding of the outline may go either way."""
+    from service.imaging.segmentation._common import Field, field_mask
+
+    rng = np.random.default_rng(4)
+    for _ in range(200):
+        h, w = (int(v) for v in rng.integers(5, 160, 2))
+        factor = int(rng.integers(1, 5))
+        fov = Field(cy=float(rng.uniform(-20, h * factor + 20)), cx=float(rng.uniform(-20, w * factor + 20)),
+                    a=float(rng.uniform(1.0, 200.0)), b=float(rng.uniform(1.0, 200.0)),
+                    theta=float(rng.uniform(-math.pi, math.pi)), source="test")
+        yy, xx = np.mgrid[:h, :w].astype(np.float64) * factor + (factor - 1) / 2.0
+        u = (xx - fov.cx) * math.cos(fov.theta) + (yy - fov.cy) * math.sin(fov.theta)
+        v = -(xx - fov.cx) * math.sin(fov.theta) + (yy - fov.cy) * math.cos(fov.theta)
+        rho = (u / fov.a) ** 2 + (v / fov.b) ** 2
+        got = field_mask((h, w), fov, factor)
+        differ = got != (rho <= 1.0)
+        assert not (differ & (np.abs(rho - 1.0) > 1e-9)).any()

@@ -92,9 +92,10 @@ def field_mask(shape: tuple[int, int], fov: Field, factor: int = 1) -> np.ndarra
 
 
 def clip_to_field(mask: np.ndarray, fov: Field, factor: int = 1) -> None:
-    """Clear ``mask`` outside the ellipse in place, one row at a time (no full-size temporaries).
+    """Clear ``mask`` outside the ellipse in place, in bands of rows (small temporaries only).
 
-    Row ``i`` of a grid reduced by ``factor`` sits at full-resolution row ``i * factor + (factor - 1) / 2``.
+    Row ``i`` of a grid reduced by ``factor`` sits at full-resolution row ``i * factor + (factor - 1) / 2``;
+    each row's inside is the run of columns between the ellipse's two crossings of it.
     """
     h, w = mask.shape
     c, s = math.cos(fov.theta), math.sin(fov.theta)
@@ -104,19 +105,18 @@ def clip_to_field(mask: np.ndarray, fov: Field, factor: int = 1) -> None:
     qb = 2.0 * c * s * (ia2 - ib2)
     qc = s * s * ia2 + c * c * ib2
     off = (factor - 1) / 2.0
-    for i in range(h):
-        y = i * factor + off - fov.cy
-        disc = (qb * y) ** 2 - 4.0 * qa * (qc * y * y - 1.0)
-        if disc <= 0.0:
-            mask[i] = False
-            continue
-        root = math.sqrt(disc)
-        x_lo = (-qb * y - root) / (2.0 * qa) + fov.cx
-        x_hi = (-qb * y + root) / (2.0 * qa) + fov.cx
-        j0 = math.ceil((x_lo - off) / factor)
-        j1 = math.floor((x_hi - off) / factor) + 1
-        mask[i, : max(0, min(w, j0))] = False
-        mask[i, max(0, min(w, j1)):] = False
+    y = np.arange(h) * float(factor) + (off - fov.cy)
+    disc = (qb * y) ** 2 - 4.0 * qa * (qc * y * y - 1.0)
+    root = np.sqrt(np.maximum(disc, 0.0))
+    x_lo = (-qb * y - root) / (2.0 * qa) + fov.cx
+    x_hi = (-qb * y + root) / (2.0 * qa) + fov.cx
+    j0 = np.clip(np.ceil((x_lo - off) / factor), 0, w).astype(np.int64)
+    j1 = np.clip(np.floor((x_hi - off) / factor) + 1, 0, w).astype(np.int64)
+    j1[disc <= 0.0] = 0  # rows the ellipse does not reach
+    cols = np.arange(w)
+    for r0 in range(0, h, 256):
+        r1 = min(h, r0 + 256)
+        mask[r0:r1] &= (cols >= j0[r0:r1, None]) & (cols < j1[r0:r1, None])
 
 
 def as_gray_rgb(image: LoadedImage | np.ndarray) -> tuple[np.ndarray, np.ndarray]:
