@@ -517,6 +517,8 @@ def _bare_graph(skeleton: np.ndarray, width: np.ndarray) -> tuple[_Graph, int, i
 
 def _direction(path: np.ndarray, from_px: float, to_px: float) -> np.ndarray:
     """Unit vector along ``path`` between two arc lengths from its start (clipped)."""
+    # Each step between 8-neighbours is at least 1 px long: no point past this one is needed.
+    path = path[: int(math.ceil(to_px)) + 2]
     steps = np.diff(path, axis=0).astype(float)
     arc = np.concatenate([[0.0], np.cumsum(np.hypot(steps[:, 0], steps[:, 1]))])
     to_px = min(to_px, arc[-1])
