@@ -143,7 +143,8 @@ def analyze(
 
         try:
             several = seg.settings.get("cleanup", {}).get("left_out_comparable", 0) >= SEVERAL_OBJECTS
-            matching = match_features(features, reference_set=reference_set, mask=seg.measured_mask, one_of_several=several)
+            matching = match_features(features, reference_set=reference_set, mask=seg.measured_mask,
+                                      one_of_several=several)
         except LibraryError as exc:
             # A missing or damaged reference set must not cost the user the measurements.
             warnings.append(Caveat("not_ranked", f"not ranked against the reference library: {exc}"))

@@ -30,8 +30,8 @@ from service.imaging.segmentation._common import (EIGHT, SMALL_SIDE_PX, Field, a
 from service.imaging.segmentation.cleanup import SEVERAL_OBJECTS, branch_width_px, keep_specimen
 from service.imaging.segmentation.field_of_view import find_field, parse_roi
 from service.imaging.segmentation.ridge import choose_mode, ridge_mask
-from service.imaging.segmentation.scene import (electrode_outline, exclusion_mask, find_electrode, glare_halo, glare_halo_pieces, glare_mask,
-                                                rim_structures, stroke_mask, wire_paths)
+from service.imaging.segmentation.scene import (electrode_outline, exclusion_mask, find_electrode, glare_halo,
+                                                glare_halo_pieces, glare_mask, rim_structures, stroke_mask, wire_paths)
 from service.imaging.segmentation.threshold import (EVENINGS, even_light, first_background, fit_background,
                                                     levels_picture, pick_threshold, threshold_mask)
 
