@@ -110,8 +110,10 @@ def keep_specimen(mask: np.ndarray, seed_rc: tuple[float, float], width_px: floa
         # An arm the threshold broke off is as thin as the deposit's branches; a piece nearby
         # several times wider than them and than the main piece's strokes is something else
         # (a shadow along the wall, a bubble).
-        strokes = _stroke_widths(labels, sizes)
-        keep &= strokes <= WIDE_PIECE * max(width_px, float(strokes[main].max()))
+        keep[main] = False
+        if keep.any():
+            strokes = _stroke_widths(labels, sizes)
+            keep &= strokes <= WIDE_PIECE * max(width_px, float(strokes[main].max()))
         keep[main] = True
     keep[0] = False
     # Sizeable pieces left out that are at least a quarter of what is kept (SEVERAL_OBJECTS).
