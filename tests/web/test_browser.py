@@ -40,6 +40,14 @@ def _loaded(page, selector: str) -> bool:
     return page.eval_on_selector(selector, "img => img.complete && img.naturalWidth > 0")
 
 
+def _wait_loaded(page, selector: str) -> None:
+    """Wait until the picture ``selector`` names has loaded (a new ``src`` loads after it is set);
+    times out, and fails, when it never does (a picture that does not decode never loads)."""
+    page.wait_for_function(
+        "s => { const i = document.querySelector(s); return i && i.complete && i.naturalWidth > 0; }",
+        arg=selector, timeout=60_000)
+
+
 def test_upload_through_the_page_and_read_the_report(server, browser, tmp_path):
     ARTIFACTS.mkdir(exist_ok=True)
     image = tmp_path / "dish-1.png"
@@ -240,6 +248,7 @@ def test_fix_the_reading_on_the_report_without_uploading_again(server, browser, 
     page.locator("#history tbody tr").nth(1).wait_for(timeout=180_000)
     assert page.url == server + body["report_url"]
     assert page.get_attribute("#specimen-overlay", "src") != overlay_before
+    _wait_loaded(page, "#specimen-overlay")
     assert _loaded(page, "#specimen-overlay")
     record = httpx.get(f"{server}/api/specimens/{body['id']}").json()
     asked = record["history"][-1]["requested"]
