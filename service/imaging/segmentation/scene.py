@@ -10,7 +10,7 @@ import numpy as np
 from scipy import ndimage
 
 from service.distance import distance_to_background
-from service.imaging.segmentation._common import Field, block_mean, field_mask
+from service.imaging.segmentation._common import Field, block_mean, field_mask, robust_sigma
 
 
 def exclusion_mask(exclude, shape: tuple[int, int]) -> np.ndarray | None:
@@ -305,7 +305,7 @@ def electrode_outline(levels: np.ndarray, mask: np.ndarray, electrode: dict[str,
     e = float(np.median(grey[core]))
     deposit = grey[interior]
     d = float(np.median(deposit))
-    spread = 1.4826 * float(np.median(np.abs(deposit - d)))
+    spread = robust_sigma(deposit)
     if abs(e - d) < max(2.5 * spread, 12.0):
         return None
     # A core further from the background than the branches may be deposit too, thicker than
