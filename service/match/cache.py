@@ -116,7 +116,7 @@ def build_feature_cache(
     """Compute the matcher's feature vector of every reference cluster and cache it.
 
     Each cluster is drawn in its styles of the nuisance grid
-    (:mod:`service.match.nuisance`: branch thickness 0.7 to 2 sites, blur, threshold level,
+    (:mod:`service.match.nuisance`: branch thickness 0.7 to 3 sites, blur, threshold level,
     JPEG), and each drawing normalised and measured exactly as a specimen is; one Dask task
     per cluster (``ReferenceSet.map_clusters``). The grid is stored beside the vectors.
 

@@ -1,8 +1,9 @@
 """What a camera adds to a growth pattern: the drawing-style nuisance the references are marginalised over.
 
 A photograph of a deposit shows its branches some number of lattice sites wide (a branch
-of a real deposit is as wide as the physics and the optics make it, 0.7 to 2 sites in the
-photographs we meet), softened by the optics, cut at some grey level by the segmentation and
+of a real deposit is as wide as the physics and the optics make it: 0.7 to 3 sites, where a
+renderer or a thick deposit draws each site as a disc wider than the lattice spacing and
+neighbouring branches merge), softened by the optics, cut at some grey level by the segmentation and
 compressed as JPEG. None of this is growth. Every reference cluster is therefore drawn in
 several styles (:data:`NUISANCE_GRID`), each drawing goes through the specimen path
 (normalisation, features), and the spread the styles cause enters each family's statistics
@@ -25,9 +26,15 @@ from PIL import Image
 from scipy import ndimage
 
 #: Branch widths, in lattice sites, each cluster is drawn at (one drawing per level).
-THICKNESS_SITES: tuple[float, ...] = (0.7, 1.0, 1.4, 2.0)
-#: How many of the thickness levels each cluster is drawn at, by its number of sites: every
-#: level for small clusters, fewer for large ones, whose drawings cost the most (each
+THICKNESS_SITES: tuple[float, ...] = (0.7, 1.0, 1.4, 2.0, 3.0)
+#: The first this many levels are drawn in rotation (``STYLES_BY_SIZE``); the widest level
+#: after them is drawn for every cluster. At three sites neighbouring branches merge and the
+#: smallest gaps close, so that drawing is where families come closest (a ballistic cluster
+#: drawn three sites wide measures like a compact DBM one): every cluster's must count, and
+#: the drawings of the rotated levels stay as they were.
+ROTATED_LEVELS = 4
+#: How many of the rotated thickness levels each cluster is drawn at, by its number of sites:
+#: every level for small clusters, fewer for large ones, whose drawings cost the most (each
 #: ensemble of 16 still covers every level, and its spread holds both kinds of variation).
 STYLES_BY_SIZE: tuple[tuple[int, int], ...] = ((3000, 4), (10000, 2), (10**9, 1))
 #: Pixels per lattice site of a drawing: a stroke about a one-pixel centreline is an odd
@@ -77,27 +84,35 @@ def nuisance_grid() -> dict:
         "electrode_share": ELECTRODE_SHARE,
         "electrode_sites": list(ELECTRODE_SITES),
         "grey_levels": [BACKGROUND_GREY, DEPOSIT_GREY, NOISE_GREY],
+        "rotated_levels": ROTATED_LEVELS,
         "rule": (
-            "every cluster is drawn at n_styles(sites) of the thickness levels (styles_by_size), evenly "
-            "spaced from level seed mod 4, each with a stroke of one of the odd pixel widths "
+            "every cluster is drawn at styles_by_size(sites) of the first rotated_levels thickness levels, "
+            "evenly spaced from level seed mod rotated_levels, and at every level after them, each with a stroke of one of the odd pixel widths "
             "whose pixels per site fall in px_per_site; the other settings are uniform in their ranges, drawn from numpy default_rng(CRC-32 of the cluster's int32 arrival-order bytes "
             "XOR the feature schema, style index)"
         ),
     }
 
 
-def n_styles(n_sites: int) -> int:
-    """How many drawings a cluster of ``n_sites`` gets (``STYLES_BY_SIZE``)."""
+def _rotated(n_sites: int) -> int:
     return next(count for limit, count in STYLES_BY_SIZE if n_sites <= limit)
 
 
+def n_styles(n_sites: int) -> int:
+    """How many drawings a cluster of ``n_sites`` gets (``STYLES_BY_SIZE`` of the rotated
+    levels, and every level after them)."""
+    return _rotated(n_sites) + len(THICKNESS_SITES) - ROTATED_LEVELS
+
+
 def style_indices(cluster_seed: int, n_sites: int) -> tuple[int, ...]:
-    """Which thickness levels a cluster is drawn at: ``n_styles`` of them, evenly spaced
-    through the levels from one picked by the seed (a thin one with a thick one, say)."""
-    count = n_styles(n_sites)
-    start = cluster_seed % len(THICKNESS_SITES)
-    step = len(THICKNESS_SITES) // count
-    return tuple(sorted((start + step * i) % len(THICKNESS_SITES) for i in range(count)))
+    """Which thickness levels a cluster is drawn at: ``STYLES_BY_SIZE`` of the rotated ones,
+    evenly spaced through them from one picked by the seed (a thin one with a thick one,
+    say), and every level after them."""
+    count = _rotated(n_sites)
+    start = cluster_seed % ROTATED_LEVELS
+    step = ROTATED_LEVELS // count
+    rotated = sorted((start + step * i) % ROTATED_LEVELS for i in range(count))
+    return (*rotated, *range(ROTATED_LEVELS, len(THICKNESS_SITES)))
 
 
 def drawing_styles(cluster_seed: int) -> tuple[DrawingStyle, ...]:

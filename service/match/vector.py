@@ -239,7 +239,7 @@ def reference_vectors(
     (the feature-cache task).
 
     The cluster is drawn in its styles among those of :func:`service.match.nuisance.drawing_styles`
-    (branch thickness 0.7 to 2 sites, blur, threshold level, JPEG), and each drawing is
+    (branch thickness 0.7 to 3 sites, blur, threshold level, JPEG), and each drawing is
     normalised and measured exactly as a specimen's mask is. The styles' seed is the CRC-32
     of the cluster's arrival-order lattice mixed with ``FEATURE_SCHEMA``, so the same
     cluster always gets the same drawings.

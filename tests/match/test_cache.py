@@ -44,7 +44,7 @@ def test_the_bundled_cache_covers_every_cluster_in_every_drawing_style(reference
         assert set(table.thickness_sites[rows].tolist()) == set(THICKNESS_SITES)
     assert np.isfinite(table.values).all()
     # Every reference drawing is normalised to at least 1.5 px per site (drawn at 3-5 px per
-    # site with branches 0.7 to 2 sites wide).
+    # site with branches 0.7 to 3 sites wide).
     assert table.scale_px.min() >= 1.5
     # The grid the drawings came from is stored beside the vectors.
     cached = reference_set.read_cache(CACHE_NAME)
