@@ -54,7 +54,10 @@ PARAMETER_GRID: dict[str, tuple[dict[str, Any], ...]] = {
         for sticking in (1.0, 0.3, 0.1)
     ) + ({"off_lattice": True, "sticking": 1.0},),
     "eden": ({},),
-    "ballistic": ({},),
+    # Particles that stop at the first site beside the aggregate, and particles that pass
+    # alongside branches and stop only where their line runs into one: both rules are in use
+    # for lattice ballistic aggregation, and the second packs the aggregate denser.
+    "ballistic": ({}, {"stop": "on_impact"}),
     # The outer electrode far away (moving out as the deposit grows), and near: fixed where
     # the deposit nearly reaches it, as a lab deposit grown up to the rim electrode.
     "dbm": tuple({"eta": eta} for eta in DBM_ETAS) + tuple({"eta": eta, "electrode": "near"} for eta in DBM_ETAS),
@@ -103,7 +106,7 @@ PRESETS: dict[str, tuple[EnsembleSpec, ...]] = {
 #: Largest cluster whose sites a build stores; larger ones are regrown from their seeds when
 #: their sites are needed (checked against the SHA-256 of the sites as grown). Stored sites
 #: compress to 2.7-2.9 bytes a site (measured on Eden, ballistic and DLA clusters of 100,000
-#: sites), so in ``default`` the 16 realisations of the nine DLA, Eden and ballistic families
+#: sites), so in ``default`` the 16 realisations of the ten DLA, Eden and ballistic families
 #: would take about 12 MB at 30,000 sites and 41 MB at 100,000, against about 12 MB for
 #: every ensemble up to 10,000 sites: only the latter fits the bundled set's 25 MB.
 STORED_SITES_MAX = 10_000

@@ -131,14 +131,17 @@ def test_default_preset_covers_the_grid_the_library_promises():
     # The grid of the reference-library specification (issue 2): DLA sticking 1, 0.3, 0.1 in
     # both neighbourhoods, Eden, ballistic, DBM eta 0.5-4, several realisations each; and
     # the off-lattice DLA of unit discs that real deposits resemble, and DBM with the outer
-    # electrode near, as a deposit grown up to the rim electrode (issue 10).
+    # electrode near, as a deposit grown up to the rim electrode (issue 10); ballistic
+    # aggregation under both stopping rules in use (issue 9: an outside simulator's
+    # ballistic clusters lie between them).
     specs = PRESETS["default"]
     grid = {(s.regime, tuple(sorted(s.parameters.items()))) for s in specs}
     dla = {("dla", (("neighborhood", nb), ("sticking", st))) for nb in ("von_neumann", "moore") for st in (1.0, 0.3, 0.1)}
     dla.add(("dla", (("off_lattice", True), ("sticking", 1.0))))
     dbm = {("dbm", (("eta", eta),)) for eta in (0.5, 1.0, 1.5, 2.0, 3.0, 4.0)}
     dbm |= {("dbm", (("electrode", "near"), ("eta", eta))) for eta in (0.5, 1.0, 1.5, 2.0, 3.0, 4.0)}
-    assert grid == dla | dbm | {("eden", ()), ("ballistic", ())}
+    ballistic = {("ballistic", ()), ("ballistic", (("stop", "on_impact"),))}
+    assert grid == dla | dbm | ballistic | {("eden", ())}
     assert min(s.n_realisations for s in specs) >= 8
     assert len({s.id for s in specs}) == len(specs)
     # Finite-size effects are large below 10^4 sites: every family reaches it, and DLA, Eden

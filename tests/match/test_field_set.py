@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 from PIL import Image
 
-from service.match import match, universality_class
+from service.match import match, universality_class, verdict_of
 
 _ROOT = Path(__file__).resolve().parents[2]
 _CANDIDATES = [os.environ.get("RAMIFORM_FIELD_SET", ""), _ROOT.parent / "shared" / "field-set",
@@ -39,16 +39,24 @@ def _agrees(case: dict, top: dict) -> bool:
 
 @pytest.mark.slow
 @pytest.mark.skipif(FIELD is None, reason="the field set (../shared/field-set) is not here")
-def test_no_true_mask_of_the_field_set_gets_a_wrong_regime_at_probability_0_9(reference_set):
+def test_no_true_mask_of_the_field_set_gets_a_wrong_regime_at_probability_0_9(reference_set, model):
+    # Counted for the top family, as the set's own checker does, and for the verdict
+    # (families summed into universality classes and regimes), whose probability is the one
+    # the report states: a wrong verdict must not reach 0.9 either.
     lines, confident_wrong = [], 0
     for case in json.loads((FIELD / "truth.json").read_text()):
         mask = np.asarray(Image.open(FIELD / case["true_mask"]).convert("L")) > 127
         result = match(None, reference_set=reference_set, mask=mask)
         top = result.matches[0]
         ok = _agrees(case, top)
-        confident_wrong += (not ok) and top["probability"] >= 0.9
+        right_verdicts = {verdict_of(f.regime, f.parameters) for f in model.families
+                          if _agrees(case, {"regime": f.regime, "parameters": f.parameters})}
+        verdict = result.explanation["verdict"]
+        verdict_wrong = verdict["best"] not in right_verdicts and verdict["probability"] >= 0.9
+        confident_wrong += ((not ok) and top["probability"] >= 0.9) + verdict_wrong
         lines.append(f"{case['image']} {case['regime']} {case['parameters']} -> {top['regime']} {top['parameters']} "
-                     f"p={top['probability']:.2f} verdict={result.explanation['verdict']['name']} "
-                     f"in_library={result.in_library} {'ok' if ok else 'WRONG'}")
+                     f"p={top['probability']:.2f} verdict={verdict['name']} ({verdict['best']} "
+                     f"p={verdict['probability']:.2f}) in_library={result.in_library} "
+                     f"{'ok' if ok and not verdict_wrong else 'WRONG'}")
     print("\n".join(lines))
     assert confident_wrong == 0, "\n".join(lines)
