@@ -160,6 +160,12 @@ PARAMETERS: dict[str, str] = {
     "off_lattice": "off the lattice",
 }
 
+#: Where ballistic particles stop (``service.simulate.ballistic.STOP_RULES``).
+STOP_WORDS: dict[str, str] = {
+    "on_contact": "stopping at first contact",
+    "on_impact": "stopping only on impact",
+}
+
 VALUES: dict[str, str] = {
     "von_neumann": "von Neumann (4 neighbours)",
     "moore": "Moore (8 neighbours)",
@@ -230,6 +236,9 @@ def family_label(match: dict | None, *, short: bool = False) -> str:
         if k == "off_lattice":
             if v:
                 parts.append("off the lattice")
+            continue
+        if k == "stop":
+            parts.append(STOP_WORDS.get(v, value_words(v)))
             continue
         if isinstance(v, float):
             v = f"{v:g}"

@@ -210,3 +210,16 @@ def test_scene_parts_follow_the_kind_of_specimen(analysis):
     assert "centre electrode radius" not in river
     copper = dict(build_report(a, kind="electrodeposit").settings)
     assert "centre electrode radius" in copper and "vessels" not in copper["how that was decided"]
+
+
+def test_every_family_of_the_bundled_set_is_named_in_words():
+    # Each family's name on the report is words, never a parameter key or a code value such
+    # as "on_impact" (the library's families are read from its manifest).
+    from service.library.load import load_reference_set
+
+    for e in load_reference_set().ensembles:
+        for short in (False, True):
+            name = labels.family_label({"regime": e.regime, "parameters": e.parameters}, short=short)
+            assert CODE_KEY.findall(name) == [] and "_" not in name, name
+    assert labels.family_label({"regime": "ballistic", "parameters": {"stop": "on_impact"}}) == \
+        "ballistic aggregation, stopping only on impact"
