@@ -87,7 +87,8 @@ def nuisance_grid() -> dict:
         "rotated_levels": ROTATED_LEVELS,
         "rule": (
             "every cluster is drawn at styles_by_size(sites) of the first rotated_levels thickness levels, "
-            "evenly spaced from level seed mod rotated_levels, and at every level after them, each with a stroke of one of the odd pixel widths "
+            "evenly spaced from level seed mod rotated_levels, and at every level after them, each with a "
+            "stroke of one of the odd pixel widths "
             "whose pixels per site fall in px_per_site; the other settings are uniform in their ranges, drawn from numpy default_rng(CRC-32 of the cluster's int32 arrival-order bytes "
             "XOR the feature schema, style index)"
         ),
