@@ -165,6 +165,45 @@ def test_a_red_lead_over_a_green_rim_is_left_out():
     assert np.count_nonzero(seg.mask & free_lead) <= 0.1 * np.count_nonzero(free_lead)
 
 
+def _dish_cut_by_the_frame_with_a_lead(lead_colour, seed=5):
+    """A dish whose left part the frame cuts, a dark deposit at its centre and a straight
+    lead, 5 px wide, from the left edge of the picture to the centre electrode."""
+    rng = np.random.default_rng(seed)
+    h, w = 600, 600
+    rho = _ellipse((h, w), 230, 300, 320, 320, 0)
+    photo = np.empty((h, w, 3))
+    photo[:] = (0.55, 0.45, 0.35)  # a wooden bench
+    photo[rho <= 1.08] = (0.85, 0.85, 0.88)  # the rim
+    photo[rho <= 1.0] = (0.70, 0.80, 0.90)  # the solution
+    deposit = _place((h, w), random_tree(112, seed=12), 300, 230, 3) & (rho < 0.55)
+    photo[deposit] = (0.30, 0.20, 0.12)
+    yy, xx = np.mgrid[:h, :w]
+    photo[np.hypot(yy - 300, xx - 230) <= 7] = (0.08, 0.08, 0.08)
+    lead = (np.abs(yy - 300 - 0.2 * (xx - 230)) <= 2.5) & (xx <= 230)
+    photo[lead] = lead_colour
+    photo += rng.normal(0.0, 0.01, photo.shape)
+    assert (rho[:, 0] <= 1.0).any()  # the frame cuts the dish
+    return segment(_to_uint8(photo)), deposit, lead, xx
+
+
+def test_a_coloured_lead_entering_from_the_frame_is_left_out():
+    """Where the frame cuts the dish nothing shows beyond it, so a lead from the frame's
+    edge is told from the deposit by its colour: a red one is left out of the mask."""
+    seg, deposit, lead, xx = _dish_cut_by_the_frame_with_a_lead((0.75, 0.10, 0.10))
+    free_lead = lead & (xx < 60)  # beyond the deposit's reach
+    assert np.count_nonzero(free_lead) > 100
+    assert np.count_nonzero(seg.mask & free_lead) <= 0.1 * np.count_nonzero(free_lead)
+    assert np.count_nonzero(seg.mask & deposit) >= 0.85 * np.count_nonzero(deposit)
+
+
+def test_a_straight_arm_of_the_deposits_colour_reaching_the_frame_is_kept():
+    """The same scene with the straight stroke in the deposit's own colour: nothing tells it
+    from a branch cut by the frame, so it stays in the mask."""
+    seg, deposit, lead, xx = _dish_cut_by_the_frame_with_a_lead((0.30, 0.20, 0.12))
+    arm = lead & (xx < 60)
+    assert np.count_nonzero(seg.mask & arm) >= 0.8 * np.count_nonzero(arm)
+
+
 def test_reduced_copies_are_scikit_images_block_means():
     """Every reading is scored on a reduced copy: its block means must be those of
     scikit-image's ``downscale_local_mean`` (the reference library) on the whole blocks, for

@@ -330,12 +330,16 @@ def wire_paths(mask: np.ndarray, rgb: np.ndarray, fov: Field, seed_rc: tuple[flo
 
     Returns a mask of the lead's pixels (full resolution) and a summary.
 
-    Strategy: where the mask meets the field's edge in a narrow arc, a lead may enter. Its
-    path to the seed is the cheapest route through the mask (on a copy reduced by
+    Strategy: where the mask meets the field's edge in a narrow arc, a lead may enter; in a
+    dish the frame cuts, also where the mask meets the frame in a narrow run inside the dish.
+    Its path to the seed is the cheapest route through the mask (on a copy reduced by
     ``factor``). It is a lead when the route is long (a third of the radius at least), smooth
     (a cubic in arc length follows it to within a third of its width, which no branch
     wandering round its side branches does), and the photograph shows it continuing beyond
     the field, on the rim and the bench, along the same line: a deposit stops at the rim.
+    Beyond the frame nothing shows, so a route from the frame must instead differ in colour
+    from the rest of the mask (:func:`_unlike_the_rest`): a lead of the deposit's own colour
+    entering from the frame is kept, as a deposit's straight arm cut by the frame would be.
     The lead's pixels are those of the mask within half its width (and a pixel) of the route.
     """
     from skimage.graph import route_through_array
@@ -350,15 +354,13 @@ def wire_paths(mask: np.ndarray, rgb: np.ndarray, fov: Field, seed_rc: tuple[flo
         return empty
     rho = fs.rho(rows.astype(np.float64), cols.astype(np.float64))
     edge = rho > 0.92
-    if not edge.any():
-        return empty
     n_bins = 360
     ang = np.arctan2(rows[edge] - fs.cy, cols[edge] - fs.cx)
     bins = ((ang + math.pi) / (2 * math.pi) * n_bins).astype(int) % n_bins
     hit = np.zeros(n_bins, dtype=bool)
     hit[bins] = True
     # Narrow arcs of contact: runs of hit bins at most 8 degrees wide.
-    entries = []
+    starts: list[tuple[tuple[int, int], bool]] = []  # (start, whether it entered across the rim)
     labels, n = ndimage.label(np.concatenate([hit, hit]))
     seen = set()
     for lab in range(1, n + 1):
@@ -366,8 +368,14 @@ def wire_paths(mask: np.ndarray, rgb: np.ndarray, fov: Field, seed_rc: tuple[flo
         if idx.size > 8 or idx[0] >= n_bins or (idx[0] % n_bins) in seen:
             continue
         seen.update(int(i) % n_bins for i in idx)
-        entries.append(float(np.mean(idx)) % n_bins)
-    if not entries:
+        in_bin = bins == int(float(np.mean(idx)) % n_bins)
+        if in_bin.any():
+            k = int(np.argmax(np.where(in_bin, rho[edge], -1.0)))
+            starts.append(((int(rows[edge][k]), int(cols[edge][k])), True))
+    if fov.source == "dish rim":
+        # The same narrowness, 8 degrees of the field's circumference, along the frame.
+        starts += [(start, False) for start in _frame_entries(small, fs, 8.0 / 360.0 * 2.0 * math.pi * fs.r)]
+    if not starts:
         return empty
     # Off the mask costs a thousand steps: a route may bridge a pixel or two where the lead
     # breaks at this resolution (it is thin, or crosses the rim's cut), no more.
@@ -385,12 +393,7 @@ def wire_paths(mask: np.ndarray, rgb: np.ndarray, fov: Field, seed_rc: tuple[flo
         seed_s = (int(rows[nearest]), int(cols[nearest]))
     out = np.zeros(mask.shape, dtype=bool)
     leads = 0
-    for b in entries:
-        in_bin = bins == int(b)
-        if not in_bin.any():
-            continue
-        k = int(np.argmax(np.where(in_bin, rho[edge], -1.0)))
-        start = (int(rows[edge][k]), int(cols[edge][k]))
+    for start, across_rim in starts:
         path, total = route_through_array(cost, start, seed_s, fully_connected=True, geometric=True)
         if total >= 3e3:
             continue  # not joined to the seed through the mask
@@ -407,7 +410,9 @@ def wire_paths(mask: np.ndarray, rgb: np.ndarray, fov: Field, seed_rc: tuple[flo
             resid = max(resid, float(np.sqrt(np.mean((coord - fit) ** 2))))
         if resid > max(0.34 * width, 1.0):
             continue
-        if not _continues_beyond(rgb, path, factor, fov, width * factor):
+        if across_rim and not _continues_beyond(rgb, path, factor, fov, width * factor):
+            continue
+        if not across_rim and not _unlike_the_rest(rgb, mask, path, factor, width * factor):
             continue
         # The lead's pixels: the mask within half its width and a pixel of the route.
         tube = np.zeros((sh, sw), dtype=bool)
@@ -421,31 +426,88 @@ def wire_paths(mask: np.ndarray, rgb: np.ndarray, fov: Field, seed_rc: tuple[flo
     return out, {"leads": leads}
 
 
+def _frame_entries(small: np.ndarray, fs: Field, longest: float) -> list[tuple[int, int]]:
+    """Middles of the runs where the (reduced) mask meets the frame well inside the field,
+    each at most ``longest`` pixels long."""
+    sh, sw = small.shape
+    out = []
+    for rr, cc in ((np.zeros(sw, int), np.arange(sw)), (np.full(sw, sh - 1), np.arange(sw)),
+                   (np.arange(sh), np.zeros(sh, int)), (np.arange(sh), np.full(sh, sw - 1))):
+        on = small[rr, cc] & (fs.rho(rr.astype(np.float64), cc.astype(np.float64)) <= 0.92)
+        runs, n = ndimage.label(on)
+        for lab in range(1, n + 1):
+            idx = np.flatnonzero(runs == lab)
+            if idx.size <= longest:
+                middle = idx[idx.size // 2]
+                out.append((int(rr[middle]), int(cc[middle])))
+    return out
+
+
+def _unlike_the_rest(rgb: np.ndarray, mask: np.ndarray, path: np.ndarray, factor: int, width_px: float) -> bool:
+    """Whether the route's pixels differ in colour from the rest of the mask: the medians
+    differ by 12 levels and by three robust spreads of the rest in some channel."""
+    full = np.rint(path * factor + (factor - 1) / 2.0).astype(np.intp)
+    full[:, 0] = np.clip(full[:, 0], 0, mask.shape[0] - 1)
+    full[:, 1] = np.clip(full[:, 1], 0, mask.shape[1] - 1)
+    on = full[mask[full[:, 0], full[:, 1]]]
+    tube = np.zeros(mask.shape, dtype=bool)
+    tube[full[:, 0], full[:, 1]] = True
+    rest = mask & ~(distance_to_background(~tube) <= 2.0 * width_px + 2.0)
+    if on.shape[0] < 8 or np.count_nonzero(rest) < 50:
+        return False
+    lead = np.median(rgb[on[:, 0], on[:, 1]].astype(np.float64), axis=0)
+    others = rgb[rest].astype(np.float64)
+    centre = np.median(others, axis=0)
+    spread = 1.4826 * np.median(np.abs(others - centre), axis=0)
+    gap = np.abs(lead - centre)
+    return bool(np.any((gap > 12.0) & (gap > 3.0 * spread)))
+
+
 def _continues_beyond(rgb: np.ndarray, path: np.ndarray, factor: int, fov: Field, width_px: float) -> bool:
     """Whether the photograph shows the route's line going on past the field's edge.
 
-    The line is extended from the route's outer quarter; along it, beyond the edge (rho 1.04
-    to 1.25), its colour must differ (by 12 levels in some channel) from the colour at the
-    same rho a few widths to either side, on most samples, as a lead lying on the rim and
-    the bench does (a red lead on a green rim differs in colour, hardly in grey).
+    The line is extended from the route's outer part, straight and, since a lead bends
+    under its own weight, along the parabola through that part (either will do); along it,
+    beyond the edge (rho 1.04 to 1.25), its colour must differ (by 12 levels in some
+    channel) from the colour at the same rho a few widths to either side, on most samples,
+    as a lead lying on the rim and the bench does (a red lead on a green rim differs in
+    colour, hardly in grey).
     """
-    h, w = rgb.shape[:2]
     full = path * factor + (factor - 1) / 2.0
-    n = max(4, len(full) // 4)
-    outer = full[:n]
+    outer = full[: max(4, len(full) // 4)]
     direction = outer[0] - outer[-1]
     norm = float(np.hypot(*direction))
     if norm < 1e-6:
         return False
     direction /= norm
-    normal = np.array([-direction[1], direction[0]])
-    # A lead curves: the straight extension drifts off a thin one, so the line is looked for
-    # within a few pixels (or a width) either side of it.
+    steps = np.linspace(0.0, 0.3 * fov.r, 40)
+    straight = outer[0][None, :] + steps[:, None] * direction[None, :]
+    if _shows_line(rgb, straight, np.broadcast_to(direction, straight.shape), fov, width_px):
+        return True
+    outer = full[: max(8, len(full) // 3)]
+    if len(outer) < 8:
+        return False
+    arc = np.concatenate([[0.0], np.cumsum(np.hypot(*np.diff(outer, axis=0).T))])
+    fits = [np.polyfit(arc, outer[:, axis], 2) for axis in (0, 1)]
+    points = np.stack([np.polyval(fit, -steps) for fit in fits], axis=1)
+    tangents = -np.stack([np.polyval(np.polyder(fit), -steps) for fit in fits], axis=1)
+    lengths = np.hypot(tangents[:, 0], tangents[:, 1])
+    if np.any(lengths < 1e-6):
+        return False
+    return _shows_line(rgb, points, tangents / lengths[:, None], fov, width_px)
+
+
+def _shows_line(rgb: np.ndarray, points: np.ndarray, directions: np.ndarray, fov: Field, width_px: float) -> bool:
+    """Whether a line of ``width_px`` lies along ``points`` (heading ``directions``) beyond
+    the field: see :func:`_continues_beyond`."""
+    h, w = rgb.shape[:2]
+    # The extension drifts off a thin lead, so the line is looked for within a few pixels
+    # (or a width) either side of it.
     reach = max(3, int(round(width_px)))
     offset = max(3.0 * width_px, 6.0) + reach
     differs = []
-    for step in np.linspace(0.0, 0.3 * fov.r, 40):
-        p = outer[0] + direction * step
+    for p, direction in zip(points, directions):
+        normal = np.array([-direction[1], direction[0]])
         rho = float(fov.rho(np.array([p[0]]), np.array([p[1]]))[0])
         if not 1.04 <= rho <= 1.25:
             continue
