@@ -165,6 +165,37 @@ def test_a_red_lead_over_a_green_rim_is_left_out():
     assert np.count_nonzero(seg.mask & free_lead) <= 0.1 * np.count_nonzero(free_lead)
 
 
+def test_a_lead_is_followed_to_its_electrode_and_no_further():
+    """The deposit grew off the dish's centre: its electrode sits 25 px left of it, with an
+    arm running from the electrode past the centre and the rest of the deposit below. A red
+    lead comes from the rim on the left, level with the arm, to the electrode. The arm
+    beyond the electrode is deposit, not lead, and is kept."""
+    rng = np.random.default_rng(4)
+    h, w = 700, 700
+    rho = _ellipse((h, w), 350, 350, 300, 300, 0)
+    photo = np.empty((h, w, 3))
+    photo[:] = (0.45, 0.45, 0.47)
+    photo[rho <= 1.08] = (0.10, 0.50, 0.42)
+    photo[rho <= 1.0] = (0.62, 0.78, 0.95)
+    yy, xx = np.mgrid[:h, :w]
+    below = _place((h, w), random_tree(128, seed=9), 480, 325, 2) & (rho < 0.65) & (yy >= 370)
+    trunk = (np.abs(xx - 325) <= 2) & (yy >= 350) & (yy <= 480)
+    arm = (np.abs(yy - 350) <= 2) & (xx >= 325) & (xx <= 375)
+    deposit = below | trunk | arm
+    photo[deposit] = (0.20, 0.18, 0.18)
+    photo[np.hypot(yy - 350, xx - 325) <= 8] = (0.05, 0.05, 0.05)
+    lead = (np.abs(yy - 350) <= 2) & (xx <= 325)
+    photo[lead] = (0.72, 0.12, 0.10)
+    photo += rng.normal(0.0, 0.01, photo.shape)
+    seg = segment(_to_uint8(photo))
+
+    assert seg.settings["scene"]["leads"] == 1
+    free_lead = lead & (rho < 0.97) & (xx < 250)
+    assert np.count_nonzero(seg.mask & free_lead) <= 0.1 * np.count_nonzero(free_lead)
+    arm_beyond = arm & (xx >= 340)  # clear of the electrode
+    assert np.count_nonzero(seg.mask & arm_beyond) >= 0.8 * np.count_nonzero(arm_beyond)
+
+
 def _dish_cut_by_the_frame_with_a_lead(lead_colour, seed=5):
     """A dish whose left part the frame cuts, a dark deposit at its centre and a straight
     lead, 5 px wide, from the left edge of the picture to the centre electrode."""

@@ -394,14 +394,25 @@ def wire_paths(mask: np.ndarray, rgb: np.ndarray, fov: Field, seed_rc: tuple[flo
     out = np.zeros(mask.shape, dtype=bool)
     leads = 0
     for start, across_rim in starts:
+        if out[min(start[0] * factor + factor // 2, h - 1), min(start[1] * factor + factor // 2, w - 1)]:
+            continue  # an entry on a lead already found
         path, total = route_through_array(cost, start, seed_s, fully_connected=True, geometric=True)
         if total >= 3e3:
             continue  # not joined to the seed through the mask
         path = np.asarray(path, dtype=np.float64)
+        widths = 2.0 * dist_small[path[:, 0].astype(int), path[:, 1].astype(int)]
+        # A lead ends on the electrode, the last place along the route wider than twice the
+        # lead (where it crosses branches earlier it widens too); past the electrode the
+        # route to the field's centre runs on through the deposit, which is not lead.
+        wide = widths > 2.0 * float(np.median(widths[: max(1, len(widths) // 2)]))
+        wide[: len(widths) // 3] = False
+        if wide.any():
+            last = int(np.flatnonzero(wide)[-1])
+            first = last - int(np.argmin(wide[last::-1])) + 1 if not wide[: last + 1].all() else 0
+            path, widths = path[: first + 1], widths[: first + 1]
         length = float(np.sum(np.hypot(*np.diff(path, axis=0).T)))
         if length < 0.33 * fs.r:
             continue
-        widths = 2.0 * dist_small[path[:, 0].astype(int), path[:, 1].astype(int)]
         width = float(np.median(widths))
         s = np.concatenate([[0.0], np.cumsum(np.hypot(*np.diff(path, axis=0).T))]) / max(length, 1e-9)
         resid = 0.0
