@@ -468,9 +468,8 @@ def _unlike_the_rest(rgb: np.ndarray, mask: np.ndarray, path: np.ndarray, factor
         return False
     lead = np.median(rgb[on[:, 0], on[:, 1]].astype(np.float64), axis=0)
     others = rgb[rest].astype(np.float64)
-    centre = np.median(others, axis=0)
-    spread = 1.4826 * np.median(np.abs(others - centre), axis=0)
-    gap = np.abs(lead - centre)
+    gap = np.abs(lead - np.median(others, axis=0))
+    spread = np.array([robust_sigma(others[:, channel]) for channel in range(others.shape[1])])
     return bool(np.any((gap > 12.0) & (gap > 3.0 * spread)))
 
 
