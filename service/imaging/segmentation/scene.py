@@ -408,7 +408,8 @@ def wire_paths(mask: np.ndarray, rgb: np.ndarray, fov: Field, seed_rc: tuple[flo
         wide[: len(widths) // 3] = False
         if wide.any():
             last = int(np.flatnonzero(wide)[-1])
-            first = last - int(np.argmin(wide[last::-1])) + 1 if not wide[: last + 1].all() else 0
+            narrow = np.flatnonzero(~wide[:last])
+            first = int(narrow[-1]) + 1 if narrow.size else 0  # where that last wide run begins
             path, widths = path[: first + 1], widths[: first + 1]
         length = float(np.sum(np.hypot(*np.diff(path, axis=0).T)))
         if length < 0.33 * fs.r:
