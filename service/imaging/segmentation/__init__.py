@@ -368,7 +368,12 @@ def segment(
         mask = mask & ~electrode_px
         electrode["outlined_px"] = int(np.count_nonzero(electrode_px))
     settings["electrode"] = electrode
-    outline = mask & ~ndimage.binary_erosion(mask, structure=EIGHT, border_value=0)
+    rows, cols = np.nonzero(mask)
+    # The outline is eroded on the mask's bounding box with a pixel of margin: the same
+    # pixels as on the whole image, at the cost of the specimen's box.
+    box = (slice(max(0, rows.min() - 1), rows.max() + 2), slice(max(0, cols.min() - 1), cols.max() + 2))
+    outline = np.zeros_like(mask)
+    outline[box] = mask[box] & ~ndimage.binary_erosion(mask[box], structure=EIGHT, border_value=0)
     if levels is not None:
         contrast = min(contrast, _deposit_contrast(levels, mask, electrode, settings, seed_rc,
                                                    fov.r if fov is not None else 0.5 * min(h, w)))
@@ -376,7 +381,6 @@ def segment(
     warnings: list[str] = []
     if contrast < 3.0:
         warnings.append(Caveat("low_contrast", f"low contrast: the specimen stands {contrast:.1f} noise levels from the background"))
-    rows, cols = np.nonzero(mask)
     if electrode is not None:
         center_rc = (float(electrode["center_rc"][0]), float(electrode["center_rc"][1]))
     else:

@@ -220,29 +220,31 @@ def pick_threshold(evened: Evened, fov: Field | None, threshold: float | None,
     dark = evened.polarity == "dark"
     if sample.size < 16 or float(sample.max() - sample.min()) <= 0.0:
         return (float(threshold) if threshold is not None else 0.5), "given" if threshold is not None else "none", 0.0
+    # Otsu's split of the sample: the automatic threshold starts from it, and the contrast
+    # is measured across it whatever threshold is used.
+    t_split = float(threshold_otsu(sample, nbins=512))
+    fg = sample < t_split if dark else sample > t_split
+    both = bool(fg.any() and (~fg).any())
+    background = float(np.median(sample[~fg])) if both else math.nan
     if threshold is not None:
         t, method = float(threshold), "given"
     else:
-        t_otsu = float(threshold_otsu(sample, nbins=512))
-        fg = sample < t_otsu if dark else sample > t_otsu
-        t, method = t_otsu, "otsu"
-        if fg.any() and (~fg).any():
+        t, method = t_split, "otsu"
+        if both:
             # Half way between the background (median of the other class) and the specimen's
             # full-contrast level (25th percentile of the foreground, 75th when bright): the
             # level where a blurred edge crosses half its contrast, i.e. the drawn outline.
             q = _FULL_CONTRAST_PERCENTILE
             full = float(np.percentile(sample[fg], q if dark else 100.0 - q))
-            t = 0.5 * (full + float(np.median(sample[~fg])))
+            t = 0.5 * (full + background)
             method = "otsu, moved to half contrast between background and specimen"
     # Contrast between Otsu's two classes: the specimen's median grey against the
     # background's, in noise levels, less the 1.35 that Otsu's split of pure Gaussian noise
     # gives by itself (the medians of a normal's two halves lie +-0.674 sigma from its
     # centre), so a specimen lost in the noise scores near zero.
-    t_split = float(threshold_otsu(sample, nbins=512))
-    fg = sample < t_split if dark else sample > t_split
     contrast = 0.0
-    if fg.any() and (~fg).any():
-        contrast = max(0.0, abs(float(np.median(sample[fg])) - float(np.median(sample[~fg]))) / noise - 1.35)
+    if both:
+        contrast = max(0.0, abs(float(np.median(sample[fg])) - background) / noise - 1.35)
     return t, method, contrast
 
 
