@@ -10,6 +10,7 @@ from scipy import stats
 
 from service.errors import SpecimenError
 from service.features import box_counting, mass_radius, sandbox
+from service.features.dimension import COMPACT_WIDTH_FRACTION, box_scaling_range, scaling_range
 from tests.features import shapes
 
 EXACT_FRACTALS = {
@@ -96,6 +97,43 @@ def test_box_sizes_are_finer_than_octaves():
     in_fit = (fit.sizes_px >= fit.fit_range_px[0]) & (fit.sizes_px <= fit.fit_range_px[1])
     predicted = np.exp(fit.intercept) * fit.sizes_px[in_fit] ** -fit.value
     assert np.allclose(predicted, fit.counts[in_fit], rtol=0.25)
+
+
+@pytest.mark.parametrize("name", ["sierpinski_carpet", "vicsek"])
+def test_a_speck_far_out_does_not_move_the_box_dimension(name):
+    # One 3 x 3 px speck 400 px beyond the set stretches its bounding box by half; it holds
+    # a thousandth of the pixels and must not stretch the scales fitted with it (taking the
+    # whole box moved the carpet by 0.03 and the Vicsek cross by 0.035).
+    draw, exact = EXACT_FRACTALS[name]
+    drawn = draw()
+    h, w = drawn.shape
+    canvas = np.zeros((h + 400, w + 400), dtype=bool)
+    canvas[:h, :w] = drawn
+    alone = box_counting(canvas)
+    canvas[-3:, -3:] = True
+    with_speck = box_counting(canvas)
+    assert with_speck.fit_range_px == alone.fit_range_px
+    assert abs(with_speck.value - alone.value) < 0.01, (alone.value, with_speck.value)
+    # Similarity dimension, exact (CHECK_VALUES.md); tolerance 0.04 from issue 3.
+    assert abs(with_speck.value - exact) < 0.04
+
+
+def test_the_box_fit_range_slides_into_the_compact_range_without_a_jump():
+    # The median width of a thick specimen moves with small changes of its outline: the
+    # range fitted must move continuously with it, from the ordinary range where the
+    # specimen becomes compact to the compact range (1 px up) where its width is its extent.
+    extent = 400.0
+    start = COMPACT_WIDTH_FRACTION * extent
+    below = box_scaling_range(start * (1 - 1e-9), extent)
+    above = box_scaling_range(start * (1 + 1e-9), extent)
+    assert not below[3] and above[3]
+    assert below[0] == pytest.approx(above[0], rel=1e-6) and below[1] == pytest.approx(above[1], rel=1e-6)
+    compact_lower, compact_upper, _ = scaling_range(extent, extent / 12.0, "box counting", compact=True)
+    at_extent = box_scaling_range(extent, extent)
+    assert at_extent[:2] == pytest.approx((compact_lower, compact_upper))
+    widths = np.geomspace(start, extent, 25)
+    lowers = [box_scaling_range(w, extent)[0] for w in widths]
+    assert np.all(np.diff(lowers) <= 0) and np.max(np.abs(np.diff(np.log(lowers)))) < 0.1
 
 
 def test_filled_disk_is_two_dimensional():
