@@ -8,6 +8,8 @@ junctions; the graph here is cleaned at the scale of the local branch width firs
 
 from __future__ import annotations
 
+import bisect
+import functools
 import math
 from dataclasses import dataclass, field
 
@@ -263,13 +265,19 @@ def _node_center(px: np.ndarray) -> np.ndarray:
 class _Graph:
     """Mutable node/branch graph used while cleaning the skeleton (private)."""
 
-    def __init__(self, branches: list[_Branch], node_pixels: dict[int, np.ndarray], width: np.ndarray):
+    def __init__(self, branches: list[_Branch], node_pixels: dict[int, np.ndarray], width: np.ndarray,
+                 node_width: dict[int, float] | None = None, node_center: dict[int, np.ndarray] | None = None):
         self.branches = dict(enumerate(branches))
         self.node_pixels = node_pixels
         # Width at a node: the widest point of its own pixels, fixed at creation (merged
         # nodes keep the larger), so merging cannot make a junction swallow its neighbours.
-        self.node_width = {n: _node_width(width, px) for n, px in node_pixels.items()}
-        self.node_center = {n: _node_center(px) for n, px in node_pixels.items()}
+        # Both may come precomputed for most nodes; the others are computed here.
+        self.node_width = dict(node_width or {})
+        self.node_center = dict(node_center or {})
+        for n, px in node_pixels.items():
+            if n not in self.node_width:
+                self.node_width[n] = _node_width(width, px)
+                self.node_center[n] = _node_center(px)
         self.incident: dict[int, list[int]] = {n: [] for n in node_pixels}
         for k, br in self.branches.items():
             self.incident[br.a].append(k)
@@ -486,23 +494,47 @@ class SkeletonGraph:
 
 
 def _bare_graph(skeleton: np.ndarray, width: np.ndarray) -> tuple[_Graph, int, int]:
-    """Nodes and branches of a skeleton as drawn; also its bare tip and junction counts."""
-    kernel = np.ones((3, 3), dtype=np.uint8)
-    kernel[1, 1] = 0
-    degree = ndimage.convolve(skeleton.view(np.uint8), kernel, mode="constant") * skeleton
-    junction_px = degree >= 3
-    junction_label, n_junctions = ndimage.label(junction_px, structure=np.ones((3, 3)))
+    """Nodes and branches of a skeleton as drawn; also its bare tip and junction counts.
+
+    ``skeleton`` is a bool array, False on its one-pixel border. Neighbours are counted
+    only at the skeleton's own pixels (a few percent of the crop); a junction's pixels,
+    width and centre come from one sort of its pixels by label.
+    """
+    h, w = skeleton.shape
+    flat = skeleton.ravel()
+    px = np.flatnonzero(flat)
+    degree = np.zeros(px.size, dtype=np.uint8)
+    for dr, dc in _NEIGHBOURS:
+        degree += flat[px + (dr * w + dc)]
+    junction_px = np.zeros(h * w, dtype=bool)
+    junction_px[px[degree >= 3]] = True
+    junction_label, n_junctions = ndimage.label(junction_px.reshape(h, w), structure=np.ones((3, 3)))
     node_label = junction_label.astype(np.int32)
-    tip_r, tip_c = np.nonzero(skeleton & (degree == 1))
+    tip_px = px[degree == 1]
+    tip_r, tip_c = np.divmod(tip_px, w)
     node_label[tip_r, tip_c] = n_junctions + 1 + np.arange(tip_r.size, dtype=np.int32)
     indptr, rows, cols, start, end = _trace_branches(skeleton.view(np.uint8), node_label, _NEIGHBOURS)
+    # Junction pixels by label, each label's in raster order.
+    junction_flat = px[degree >= 3]
+    of = junction_label.ravel()[junction_flat]
+    junction_flat = junction_flat[np.argsort(of, kind="stable")]
+    junction_rc = np.column_stack(np.divmod(junction_flat, w))
+    counts = np.bincount(of, minlength=n_junctions + 1)[1:]
+    firsts = np.cumsum(counts) - counts
     node_pixels: dict[int, np.ndarray] = {}
-    objects = ndimage.find_objects(junction_label)
-    for i, box in enumerate(objects, start=1):
-        rr, cc = np.nonzero(junction_label[box] == i)
-        node_pixels[i] = np.column_stack([rr + box[0].start, cc + box[1].start])
-    for i, (r, c) in enumerate(zip(tip_r, tip_c), start=n_junctions + 1):
-        node_pixels[i] = np.array([[r, c]])
+    node_width: dict[int, float] = {}
+    node_center: dict[int, np.ndarray] = {}
+    if n_junctions:
+        node_pixels.update(enumerate(np.split(junction_rc, firsts[1:]), start=1))
+        node_width.update(enumerate(np.maximum.reduceat(width.ravel()[junction_flat], firsts).tolist(), start=1))
+        # Sums of integer coordinates are exact: these are the means of each node's pixels.
+        centers = np.add.reduceat(junction_rc.astype(np.float64), firsts, axis=0) / counts[:, None]
+        node_center.update(enumerate(centers, start=1))
+    tip_ids = range(n_junctions + 1, n_junctions + 1 + tip_r.size)
+    tip_rc = np.column_stack([tip_r, tip_c])
+    node_pixels.update(zip(tip_ids, tip_rc[:, None, :]))
+    node_width.update(zip(tip_ids, width.ravel()[tip_px].tolist()))
+    node_center.update(zip(tip_ids, tip_rc.astype(np.float64)))
     path_rc = np.column_stack([rows, cols]).astype(np.int64)
     lengths = _smoothed_lengths(path_rc, indptr)
     branches = [
@@ -512,20 +544,29 @@ def _bare_graph(skeleton: np.ndarray, width: np.ndarray) -> tuple[_Graph, int, i
     ]
     for br in branches:  # nodes the tracer placed on cycles
         node_pixels.setdefault(br.a, br.path[:1])
-    return _Graph(branches, node_pixels, width), int(tip_r.size), int(n_junctions)
+    return _Graph(branches, node_pixels, width, node_width, node_center), int(tip_r.size), int(n_junctions)
+
+
+@functools.lru_cache(maxsize=None)
+def _step_px(dr: int, dc: int) -> float:
+    return float(np.hypot(dr, dc))
 
 
 def _direction(path: np.ndarray, from_px: float, to_px: float) -> np.ndarray:
     """Unit vector along ``path`` between two arc lengths from its start (clipped)."""
     # Each step between 8-neighbours is at least 1 px long: no point past this one is needed.
-    path = path[: int(math.ceil(to_px)) + 2]
-    steps = np.diff(path, axis=0).astype(float)
-    arc = np.concatenate([[0.0], np.cumsum(np.hypot(steps[:, 0], steps[:, 1]))])
+    # The path is that short, so its arc length is summed in plain Python (numpy's calls
+    # cost more than the sum), step by step as numpy's cumulative sum would.
+    points = path[: int(math.ceil(to_px)) + 2].tolist()
+    arc = [0.0]
+    for (r0, c0), (r1, c1) in zip(points, points[1:]):
+        arc.append(arc[-1] + _step_px(r1 - r0, c1 - c0))
     to_px = min(to_px, arc[-1])
     from_px = min(from_px, 0.5 * to_px)
-    i0 = int(np.searchsorted(arc, from_px))
-    i1 = int(np.searchsorted(arc, to_px))
-    v = (path[min(i1, len(path) - 1)] - path[min(i0, len(path) - 1)]).astype(float)
+    last = len(points) - 1
+    i0 = min(bisect.bisect_left(arc, from_px), last)
+    i1 = min(bisect.bisect_left(arc, to_px), last)
+    v = np.array([points[i1][0] - points[i0][0], points[i1][1] - points[i0][1]], dtype=float)
     norm = np.hypot(v[0], v[1])
     return v / norm if norm > 0 else v
 
