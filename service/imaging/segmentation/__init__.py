@@ -26,7 +26,7 @@ from service.caveats import Caveat
 from service.errors import SpecimenError
 from service.imaging.load import LoadedImage
 from service.imaging.segmentation._common import (EIGHT, SMALL_SIDE_PX, Field, as_gray_rgb, block_mean,
-                                                  field_mask, robust_sigma)
+                                                  field_mask, median_uint8, robust_sigma, robust_sigma_uint8_steps)
 from service.imaging.segmentation.cleanup import SEVERAL_OBJECTS, branch_width_px, keep_specimen
 from service.imaging.segmentation.field_of_view import find_field, parse_roi
 from service.imaging.segmentation.ridge import choose_mode, ridge_mask
@@ -277,9 +277,9 @@ def segment(
     plans = _plans(fov, fov_kind, polarity, lighting)
     found = (field_mask(score_small.shape, fov, factor * score_factor)
              if fov is not None and fov_kind != "roi" else None)
-    planes: dict = {}  # each field's first lighting estimate, shared by both polarities
+    shared: dict = {}  # what the plans of one field (or all plans) compute alike
     scored = [_score_plan(plan, score_small, factor * score_factor, score_excluded, found,
-                          score_halo if plan.polarity == "bright" else None, planes) for plan in plans]
+                          score_halo if plan.polarity == "bright" else None, shared) for plan in plans]
     scored = _penalise_partial(plans, scored)
     scored = _penalise_interstitial(plans, scored, score_small, factor * score_factor)
     if chosen_mode == "ridge":
@@ -431,7 +431,7 @@ def _plans(fov: Field | None, fov_kind: str, polarity: str, lighting: str) -> li
 
 
 def _score_plan(plan: _Plan, small: np.ndarray, factor: int, small_excluded: np.ndarray | None,
-                found: np.ndarray | None, glare: np.ndarray | None, planes: dict) -> tuple[float, np.ndarray, dict[str, float]]:
+                found: np.ndarray | None, glare: np.ndarray | None, shared: dict) -> tuple[float, np.ndarray, dict[str, float]]:
     """Segment at reduced resolution under ``plan`` and score how plausible a specimen it gives.
 
     The score adds penalties a person would apply: the mask fills the field (the solution
@@ -440,15 +440,26 @@ def _score_plan(plan: _Plan, small: np.ndarray, factor: int, small_excluded: np.
     specimen grows from, is many
     pieces, stands barely above the noise, or has an outline on smooth grey (a lighting
     boundary). A field that was found is favoured a little over the whole image. ``glare``
-    (spots and their halo) is left out of the threshold and of the mask. ``planes`` keeps the
-    first lighting estimate of each field and evening for the next plan that needs it.
+    (spots and their halo) is left out of the threshold and of the mask. ``shared`` keeps what
+    does not depend on the polarity for the next plan that needs it: the first lighting
+    estimate of each field and evening, each field's noise and range of greys, and the
+    gradient of ``small``.
     """
     fov = plan.fov.reduced(factor) if plan.fov is not None else None
-    fov_mask = field_mask(small.shape, fov) if fov is not None else np.ones(small.shape, dtype=bool)
-    key = (id(plan.fov), plan.evening)
-    if key not in planes:
-        planes[key] = first_background(small, fov_mask, fov, 1, plan.evening)
-    evened = even_light(small, small, fov_mask, fov, 1, plan.polarity, plan.evening, planes[key])
+    if ("field", id(plan.fov)) not in shared:
+        fov_mask = field_mask(small.shape, fov) if fov is not None else np.ones(small.shape, dtype=bool)
+        noise = robust_sigma((small[:, 1:] - small[:, :-1])[fov_mask[:, 1:] & fov_mask[:, :-1]]) / math.sqrt(2.0)
+        lo, hi = np.percentile(small[fov_mask], (1.0, 99.0))
+        shared["field", id(plan.fov)] = fov_mask, noise, float(hi - lo)
+    fov_mask, noise, grey_range = shared["field", id(plan.fov)]
+    if "grad" not in shared:
+        smooth = ndimage.gaussian_filter(small, 1.0)
+        shared["grad"] = np.hypot(ndimage.sobel(smooth, axis=0), ndimage.sobel(smooth, axis=1))
+    grad = shared["grad"]
+    key = ("plane", id(plan.fov), plan.evening)
+    if key not in shared:
+        shared[key] = first_background(small, fov_mask, fov, 1, plan.evening)
+    evened = even_light(small, small, fov_mask, fov, 1, plan.polarity, plan.evening, shared[key])
     t, _, contrast = pick_threshold(evened, fov, None, glare)
     raw = threshold_mask(evened, fov, t)
     if small_excluded is not None:
@@ -482,8 +493,6 @@ def _score_plan(plan: _Plan, small: np.ndarray, factor: int, small_excluded: np.
     filled = ndimage.binary_fill_holes(mask)
     # The outer outline should follow edges one can see (a lighting boundary taken for a
     # specimen has its outline on smooth grey); stretches along the field's edge say nothing.
-    smooth = ndimage.gaussian_filter(small, 1.0)
-    grad = np.hypot(ndimage.sobel(smooth, axis=0), ndimage.sobel(smooth, axis=1))
     outline = filled & ~ndimage.binary_erosion(filled, structure=EIGHT, border_value=0)
     if fov is not None:
         outline &= field_mask(small.shape, fov.scaled(0.93))
@@ -492,7 +501,6 @@ def _score_plan(plan: _Plan, small: np.ndarray, factor: int, small_excluded: np.
     around = fov_mask & ~ndimage.binary_dilation(mask, iterations=2)
     quiet = float(np.median(grad[around])) if around.any() else float(np.median(grad[fov_mask]))
     edge_support = float(np.median(grad[outline])) / (quiet + 1e-6) if outline.any() else 0.0
-    noise = robust_sigma((small[:, 1:] - small[:, :-1])[fov_mask[:, 1:] & fov_mask[:, :-1]]) / math.sqrt(2.0)
     sign = 1.0 if plan.polarity == "dark" else -1.0
     stands_out = (sign * (float(np.median(small[around])) - float(np.median(small[mask]))) / max(noise, 0.5 / 255.0)
                   if around.any() else 0.0)
@@ -501,8 +509,7 @@ def _score_plan(plan: _Plan, small: np.ndarray, factor: int, small_excluded: np.
     # nearly the same solution on both sides of its outline (the reduced copy is so smooth
     # that such a step is still many noise levels).
     ring = fov_mask & ndimage.binary_dilation(filled, iterations=3) & ~ndimage.binary_dilation(filled)
-    lo, hi = np.percentile(small[fov_mask], (1.0, 99.0))
-    step_here = (sign * (float(np.median(small[ring])) - float(np.median(small[mask]))) / max(float(hi - lo), 1.0 / 255.0)
+    step_here = (sign * (float(np.median(small[ring])) - float(np.median(small[mask]))) / max(grey_range, 1.0 / 255.0)
                  if ring.any() else 0.0)
     kept_share = area / max(1.0, float(np.count_nonzero(raw)))
     terms = {
@@ -665,10 +672,10 @@ def _deposit_contrast(levels: np.ndarray, mask: np.ndarray, electrode: dict[str,
     keep &= (yy * step - cy) ** 2 + (xx * step - cx) ** 2 > r * r
     if np.count_nonzero(keep) < 4:
         return 0.0
-    lv = levels[::step, ::step].astype(np.float32)
-    noise = max(robust_sigma(lv[:, 1:] - lv[:, :-1]) / math.sqrt(2.0), 0.5)
+    lv = levels[::step, ::step]
+    noise = max(robust_sigma_uint8_steps(lv) / math.sqrt(2.0), 0.5)
     bg = float(settings["background"]["median_grey"]) * 255.0
-    return max(0.0, abs(float(np.median(lv[keep])) - bg) / noise - 1.35)
+    return max(0.0, abs(median_uint8(lv[keep]) - bg) / noise - 1.35)
 
 
 def _clear_background(levels: np.ndarray, settings: dict[str, Any]) -> np.ndarray:
