@@ -256,6 +256,24 @@ def test_reduced_copies_are_scikit_images_block_means():
         np.testing.assert_allclose(got, want, rtol=1e-5, atol=1e-4)
 
 
+def test_medians_of_uint8_greys_from_histograms_are_numpys():
+    """The deposit's contrast takes its medians of 8-bit greys (and the noise from their
+    neighbour differences) from histograms: they must be numpy's ``median`` of the same values
+    as float32 exactly, for odd and even counts, narrow and wide spreads."""
+    from service.imaging.segmentation._common import median_uint8, robust_sigma, robust_sigma_uint8_steps
+
+    rng = np.random.default_rng(11)
+    for trial in range(400):
+        h, w = int(rng.integers(1, 30)), int(rng.integers(2, 30))
+        if trial % 2:
+            levels = rng.normal(128.0, rng.uniform(0.2, 40.0), (h, w)).clip(0, 255).astype(np.uint8)
+        else:
+            levels = rng.integers(int(rng.integers(0, 250)), 256, (h, w)).astype(np.uint8)
+        grey = levels.astype(np.float32)
+        assert median_uint8(levels) == float(np.median(grey))
+        assert robust_sigma_uint8_steps(levels) == robust_sigma(grey[:, 1:] - grey[:, :-1])
+
+
 def _electrode_in_a_dense_core(electrode_grey: float, seed: int):
     """A dark deposit on a pale solution: a tree with a dense core 22 px across round a centre
     electrode of 9 px radius, so the thick disc by the mask's shape alone is the core's.
