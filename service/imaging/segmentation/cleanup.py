@@ -77,8 +77,11 @@ def keep_specimen(mask: np.ndarray, seed_rc: tuple[float, float], width_px: floa
     if n == 0:
         info["components_kept"] = info["left_out_comparable"] = 0
         return mask, info
-    sizes = np.bincount(labels.ravel())
-    sizes[0] = 0
+    # Counted over the mask's own pixels: the background is most of a photograph.
+    flat = labels.ravel()
+    idx = np.flatnonzero(flat)
+    lab = flat[idx]
+    sizes = np.bincount(lab, minlength=n + 1)
     big = sizes >= min_object_px
     if not big.any():
         info["components_kept"] = info["left_out_comparable"] = 0
@@ -86,9 +89,6 @@ def keep_specimen(mask: np.ndarray, seed_rc: tuple[float, float], width_px: floa
     if keep_all:
         keep = big
     else:
-        flat = labels.ravel()
-        idx = np.flatnonzero(flat)
-        lab = flat[idx]
         rows_sum = np.bincount(lab, weights=idx // w, minlength=n + 1)
         cols_sum = np.bincount(lab, weights=idx % w, minlength=n + 1)
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -119,7 +119,8 @@ def keep_specimen(mask: np.ndarray, seed_rc: tuple[float, float], width_px: floa
     # Sizeable pieces left out that are at least a quarter of what is kept (SEVERAL_OBJECTS).
     left_out = sizes[big & ~keep]
     info["left_out_comparable"] = int(np.count_nonzero(left_out >= 0.25 * sizes[keep].sum()))
-    kept = keep[labels]
+    kept = np.zeros(mask.shape, dtype=bool)
+    kept.ravel()[idx[keep[lab]]] = True
     del labels
     if max_hole_px > 0:
         kept = fill_small_holes(kept, max_hole_px, clear_background)
@@ -186,8 +187,7 @@ def fill_small_holes(mask: np.ndarray, max_hole_px: int, clear_background: np.nd
     fill[0] = False
     fill[border] = False
     if clear_background is not None and fill.any():
-        real = np.unique(holes[clear_background[r0:r1, c0:c1] & (holes > 0)])
-        fill[real] = False
+        fill[holes[clear_background[r0:r1, c0:c1]]] = False  # label 0, the mask, is never filled anyway
     if fill.any():
         crop |= fill[holes]
     return mask
