@@ -141,6 +141,8 @@ def summed_area_table(mask: np.ndarray) -> np.ndarray:
     """
     dtype = np.int32 if mask.size < 2**31 - 1 else np.int64
     table = np.zeros((mask.shape[0] + 1, mask.shape[1] + 1), dtype=dtype)
-    np.cumsum(mask, axis=0, dtype=dtype, out=table[1:, 1:])
+    # Copied in first: numpy's cumulative sum casting a bool mask as it goes is 3-4 times slower.
+    table[1:, 1:] = mask
+    np.cumsum(table[1:, 1:], axis=0, out=table[1:, 1:])
     np.cumsum(table[1:, 1:], axis=1, out=table[1:, 1:])
     return table

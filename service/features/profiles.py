@@ -89,7 +89,8 @@ def radial_profile(
     mask = as_specimen_mask(mask)
     if n_annuli < 1:
         raise ValueError(f"n_annuli must be at least 1, got {n_annuli}")
-    points = np.argwhere(mask).astype(float)
+    crop, origin = crop_to_specimen(mask, pad_px=1)
+    points = (np.argwhere(crop) + np.asarray(origin)).astype(float)
     centroid = points.mean(axis=0)
     center = specimen_center(points, center_rc)
     r_gyr = float(np.sqrt(((points - centroid) ** 2).sum(axis=1).mean()))
@@ -118,7 +119,7 @@ def radial_profile(
         radius_of_gyration_px=r_gyr,
         bounding_radius_px=r_max,
         area_fraction=float(points.shape[0] / max(np.pi * r_max**2, 1.0)),
-        perimeter_px=float(perimeter_crofton(crop_to_specimen(mask, pad_px=1)[0], directions=4)),
+        perimeter_px=float(perimeter_crofton(crop, directions=4)),
         radii_px=edges[1:],
         density=density,
     )
