@@ -82,10 +82,18 @@ def _cell_fractions(mask: np.ndarray, scale: float) -> np.ndarray:
 def skeleton_length_px(skeleton: np.ndarray) -> float:
     """Length of a one-pixel skeleton: half the sum over its pixels of 1 per side neighbour
     and sqrt(2) per diagonal neighbour (each link is seen from both of its ends)."""
-    pixels = skeleton.astype(np.uint8)
-    side = ndimage.convolve(pixels, np.array([[0, 1, 0], [1, 0, 1], [0, 1, 0]], np.uint8), mode="constant")
-    diagonal = ndimage.convolve(pixels, np.array([[1, 0, 1], [0, 0, 0], [1, 0, 1]], np.uint8), mode="constant")
-    return float((side[skeleton] + np.sqrt(2.0) * diagonal[skeleton]).sum() / 2.0)
+    # Neighbours are counted at the skeleton's own pixels only (a few percent of the crop).
+    padded = np.pad(np.asarray(skeleton, dtype=bool), 1)
+    w = padded.shape[1]
+    flat = padded.ravel()
+    px = np.flatnonzero(flat)
+    side = np.zeros(px.size, dtype=np.uint8)
+    diagonal = np.zeros(px.size, dtype=np.uint8)
+    for offset in (-w, -1, 1, w):
+        side += flat[px + offset]
+    for offset in (-w - 1, -w + 1, w - 1, w + 1):
+        diagonal += flat[px + offset]
+    return float((side + np.sqrt(2.0) * diagonal).sum() / 2.0)
 
 
 def normalise(mask: np.ndarray) -> NormalisedMask:

@@ -274,6 +274,21 @@ def test_medians_of_uint8_greys_from_histograms_are_numpys():
         assert robust_sigma_uint8_steps(levels) == robust_sigma(grey[:, 1:] - grey[:, :-1])
 
 
+def test_square_closing_is_scipys_iterated_closing():
+    """Reading envelopes are closed by separable running extrema: the same pixels as scipy's
+    ``binary_closing`` with the 3 x 3 square iterated (the reference library), masks touching
+    the frame included."""
+    from service.imaging.segmentation._common import EIGHT, square_closing
+
+    rng = np.random.default_rng(3)
+    for _ in range(100):
+        shape = (int(rng.integers(3, 70)), int(rng.integers(3, 70)))
+        mask = ndimage.binary_dilation(rng.random(shape) < rng.uniform(0.002, 0.2), iterations=int(rng.integers(0, 3)))
+        radius = int(rng.integers(1, 6))
+        assert np.array_equal(square_closing(mask, radius),
+                              ndimage.binary_closing(mask, structure=EIGHT, iterations=radius))
+
+
 def _electrode_in_a_dense_core(electrode_grey: float, seed: int):
     """A dark deposit on a pale solution: a tree with a dense core 22 px across round a centre
     electrode of 9 px radius, so the thick disc by the mask's shape alone is the core's.

@@ -76,3 +76,22 @@ def test_too_small_a_specimen_is_refused_clearly():
         lattice_features(normalise(tiny).lattice)
     with pytest.raises(SpecimenError):
         normalise(np.zeros((10, 10), dtype=bool))
+
+
+def test_skeleton_length_counts_side_steps_as_1_and_diagonal_steps_as_root_2():
+    """Exact objects: a straight run of n pixels along a row is n - 1 long, along a diagonal
+    (n - 1) sqrt 2; the 8-pixel ring round one pixel has 8 side links and 4 diagonal ones
+    (edge midpoint to edge midpoint), and lies on the frame's edge so that pixels beyond the
+    frame must count as empty."""
+    from service.match.normalise import skeleton_length_px
+
+    row = np.zeros((5, 40), dtype=bool)
+    row[2, 3:33] = True
+    assert skeleton_length_px(row) == pytest.approx(29.0)
+    diagonal = np.eye(25, dtype=bool)
+    assert skeleton_length_px(diagonal) == pytest.approx(24 * np.sqrt(2.0))
+    ring = np.ones((3, 3), dtype=bool)
+    ring[1, 1] = False
+    # Corners see 2 side neighbours; edge midpoints 2 side and 2 diagonal ones; each link is seen twice.
+    side_links, diagonal_links = (4 * 2 + 4 * 2) / 2, (4 * 2) / 2
+    assert skeleton_length_px(ring) == pytest.approx(side_links + np.sqrt(2.0) * diagonal_links)

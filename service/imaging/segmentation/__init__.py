@@ -26,7 +26,8 @@ from service.caveats import Caveat
 from service.errors import SpecimenError
 from service.imaging.load import LoadedImage
 from service.imaging.segmentation._common import (EIGHT, SMALL_SIDE_PX, Field, as_gray_rgb, block_mean,
-                                                  field_mask, median_uint8, robust_sigma, robust_sigma_uint8_steps)
+                                                  field_mask, median_uint8, robust_sigma, robust_sigma_uint8_steps,
+                                                  square_closing)
 from service.imaging.segmentation.cleanup import SEVERAL_OBJECTS, branch_width_px, keep_specimen
 from service.imaging.segmentation.field_of_view import find_field, parse_roi
 from service.imaging.segmentation.ridge import choose_mode, ridge_mask
@@ -578,7 +579,7 @@ def _penalise_interstitial(plans: list[_Plan], scored: list, small: np.ndarray, 
     branches (or a halo round them), not a specimen: it loses four points. The background
     is the field beyond both envelopes."""
     out = list(scored)
-    envelopes = [ndimage.binary_fill_holes(ndimage.binary_closing(m, structure=EIGHT, iterations=4)) if m.any() else m
+    envelopes = [ndimage.binary_fill_holes(square_closing(m, 4)) if m.any() else m
                  for _, m, _ in scored]
     around = [ndimage.binary_dilation(e, iterations=3) for e in envelopes]
     for i, (pi, (si, mi, ti)) in enumerate(zip(plans, scored)):

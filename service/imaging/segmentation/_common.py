@@ -8,6 +8,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+from scipy import ndimage
 
 from service.imaging.load import LoadedImage, _luma
 
@@ -164,6 +165,19 @@ def block_mean(a: np.ndarray, factor: int) -> np.ndarray:
         out += cols[k::factor]
     out *= np.float32(1.0 / (factor * factor))
     return out
+
+
+def square_closing(mask: np.ndarray, radius: int) -> np.ndarray:
+    """``ndimage.binary_closing(mask, structure=EIGHT, iterations=radius)`` (outside the frame
+    is background), as one dilation and one erosion by the (2 radius + 1) square, each two
+    running extrema along rows and columns: the same pixels, at a third of the cost."""
+    size = 2 * radius + 1
+    grown = mask.astype(np.uint8)
+    for axis in (0, 1):
+        grown = ndimage.maximum_filter1d(grown, size, axis=axis, mode="constant", cval=0)
+    for axis in (0, 1):
+        grown = ndimage.minimum_filter1d(grown, size, axis=axis, mode="constant", cval=0)
+    return grown.astype(bool)
 
 
 def robust_sigma(values: np.ndarray) -> float:
