@@ -289,6 +289,25 @@ def test_square_closing_is_scipys_iterated_closing():
                               ndimage.binary_closing(mask, structure=EIGHT, iterations=radius))
 
 
+def test_window_median_is_scipys_median_filter():
+    """The local lighting's windowed median must equal scipy's ``median_filter`` with edges
+    continued (the reference library), on noise, on a picture with many equal greys, and on
+    pictures narrower than the window or taken in several bands of rows."""
+    from service.imaging.segmentation.threshold import window_median
+
+    rng = np.random.default_rng(8)
+    pictures = [rng.random((61, 47), dtype=np.float32),
+                (rng.integers(0, 4, (40, 90)) / 3.0).astype(np.float32),
+                rng.random((3, 30), dtype=np.float32),
+                rng.random((200, 400), dtype=np.float32)]  # several bands of rows
+    for picture in pictures:
+        for size in (5, 11, 23):
+            assert np.array_equal(window_median(picture, size),
+                                  ndimage.median_filter(picture, size=size, mode="nearest"))
+    with pytest.raises(ValueError, match="odd"):
+        window_median(pictures[0], 6)
+
+
 def _electrode_in_a_dense_core(electrode_grey: float, seed: int):
     """A dark deposit on a pale solution: a tree with a dense core 22 px across round a centre
     electrode of 9 px radius, so the thick disc by the mask's shape alone is the core's.

@@ -7,6 +7,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+from numpy.lib.stride_tricks import sliding_window_view
 from scipy import ndimage
 
 from service.imaging.segmentation._common import Field, block_mean, clip_to_field, field_mask, robust_sigma
@@ -115,6 +116,24 @@ def _normalised_average(clean: np.ndarray, values: np.ndarray, scale_px: float) 
 EVENINGS = ("surface", "local")
 
 
+def window_median(a: np.ndarray, size: int) -> np.ndarray:
+    """``ndimage.median_filter(a, size, mode="nearest")`` for an odd ``size``: the same values,
+    three to four times faster. Each window's middle value is selected (``np.partition``) from
+    a strided view of the edge-padded array, a band of rows at a time so that memory stays
+    near 16 MB."""
+    if size % 2 != 1:
+        raise ValueError(f"the window's side must be odd, got {size}")
+    half = size // 2
+    windows = sliding_window_view(np.pad(a, half, mode="edge"), (size, size))
+    middle = size * size // 2
+    out = np.empty_like(a)
+    rows = max(1, (1 << 22) // (a.shape[1] * size * size))
+    for r0 in range(0, a.shape[0], rows):
+        band = windows[r0: r0 + rows].reshape(-1, size * size)
+        out[r0: r0 + rows] = np.partition(band, middle, axis=1)[:, middle].reshape(-1, a.shape[1])
+    return out
+
+
 def local_background(small: np.ndarray, inside: np.ndarray, fov: Field | None, factor: int) -> np.ndarray:
     """A background that follows shadows and vignetting: a median over windows of a tenth of the
     field's radius, on a copy halved again, then smoothed. Thin branches are a minority of any
@@ -122,7 +141,7 @@ def local_background(small: np.ndarray, inside: np.ndarray, fov: Field | None, f
     half = block_mean(np.where(inside, small, np.float32(np.median(small[inside]))), 2)
     radius_px = (fov.r / factor if fov is not None else 0.5 * min(small.shape)) / 2.0
     size = max(5, int(0.2 * radius_px) | 1)
-    med = ndimage.median_filter(half, size=size, mode="nearest")
+    med = window_median(half, size)
     med = ndimage.gaussian_filter(med, size / 4.0)
     return _upsample(med, small.shape)
 
