@@ -13,7 +13,8 @@ Goals (issue 11):
   same batch with two workers, what sizing the pool by ``os.cpu_count()`` gave here.
 
 The photograph is a rendering (``service.imaging.render``) of a simulated DLA cluster of
-20,000 particles. Shell figures are wall times of fresh interpreters (``python -m
+20,000 particles; the batch's images are renderings of different clusters (seeds 7, 8, ...),
+so that no worker meets a mask it has seen. Shell figures are wall times of fresh interpreters (``python -m
 service.cli``) with the CPU time (user + system) beside them, alternating A and B; the
 machine is shared, so medians of several runs are printed and compared within one run.
 Run: ``.venv/bin/python benchmarks/bench_cli.py [--repeats 5] [--batch 4]``.
@@ -141,9 +142,6 @@ from skimage.filters import threshold_otsu
 from skimage.morphology import skeletonize
 from service.imaging import load_image
 
-data = open(sys.argv[1], "rb").read()
-gray = load_image(data).gray
-
 def primitives(gray):
     mask = gray < threshold_otsu(gray)  # the specimen is the dark side
     labels, _ = ndimage.label(mask)
@@ -153,48 +151,51 @@ def primitives(gray):
     skeletonize(deposit)
     ndimage.distance_transform_edt(deposit)
 
-primitives(gray)
-bare, decoded, decoded_cpu = [], [], []
-for _ in range(int(sys.argv[2])):
-    started = time.perf_counter()
+repeats = int(sys.argv[1])
+for path in sys.argv[2:]:
+    data = open(path, "rb").read()
+    gray = load_image(data).gray
     primitives(gray)
-    bare.append(time.perf_counter() - started)
-    started, cpu = time.perf_counter(), time.process_time()
-    primitives(load_image(data).gray)
-    decoded.append(time.perf_counter() - started)
-    decoded_cpu.append(time.process_time() - cpu)
-print(" ".join(map(str, bare)))
-print(" ".join(map(str, decoded)))
-print(" ".join(map(str, decoded_cpu)))
+    bare, decoded, decoded_cpu = [], [], []
+    for _ in range(repeats):
+        started = time.perf_counter()
+        primitives(gray)
+        bare.append(time.perf_counter() - started)
+        started, cpu = time.perf_counter(), time.process_time()
+        primitives(load_image(data).gray)
+        decoded.append(time.perf_counter() - started)
+        decoded_cpu.append(time.process_time() - cpu)
+    print(sorted(bare)[repeats // 2], sorted(decoded)[repeats // 2], sorted(decoded_cpu)[repeats // 2])
 """
 
 
-def one_cpu_batch(photo: Path, work: Path, batch: int, repeats: int) -> None:
+def one_cpu_batch(photos: list[Path], repeats: int) -> None:
+    """Per-image cost of a batch of different photographs on one CPU against their primitives.
+
+    The batch's images differ (a batch of copies of one photograph would let a worker reuse
+    what it computed for the first, such as the skeleton of an identical mask); the
+    reference is the mean of the primitives' medians over the images after the first.
+    """
     cpu = _one_cpu()
-    copies = []
-    for i in range(batch):
-        copies.append(work / f"batch_{i}.png")
-        shutil.copyfile(photo, copies[-1])
+    batch = len(photos)
     cli = [sys.executable, "-m", "service.cli", "analyze", "--json"]
-    # Per-image cost: the batch of `batch` images minus the batch of one (start-up cancels).
+    # Per-image cost: the batch minus its first image alone (start-up cancels).
     per_image: dict[str, list[float]] = {"default": [], "two workers": []}
     per_image_cpu: dict[str, list[float]] = {"default": [], "two workers": []}
     for _ in range(repeats):
         for name, extra in (("default", []), ("two workers", ["--workers", "2"])):
-            one, one_cpu = run_timed([*cli, *extra, str(copies[0])], pin=cpu)
-            many, many_cpu = run_timed([*cli, *extra, *map(str, copies)], pin=cpu)
+            one, one_cpu = run_timed([*cli, *extra, str(photos[0])], pin=cpu)
+            many, many_cpu = run_timed([*cli, *extra, *map(str, photos)], pin=cpu)
             per_image[name].append((many - one) / (batch - 1))
             per_image_cpu[name].append((many_cpu - one_cpu) / (batch - 1))
-    out = subprocess.run([sys.executable, "-c", _PRIMITIVES, str(photo), str(max(3, repeats))], cwd=ROOT,
+    out = subprocess.run([sys.executable, "-c", _PRIMITIVES, str(max(3, repeats)), *map(str, photos[1:])], cwd=ROOT,
                          capture_output=True, text=True, check=True,
                          preexec_fn=lambda: os.sched_setaffinity(0, {cpu}))
-    bare_line, decoded_line, cpu_line = out.stdout.strip().splitlines()[-3:]
-    bare = _median([float(t) for t in bare_line.split()])
-    primitives = _median([float(t) for t in decoded_line.split()])
-    primitives_cpu = _median([float(t) for t in cpu_line.split()])
+    rows = [[float(v) for v in line.split()] for line in out.stdout.strip().splitlines()[-(batch - 1):]]
+    bare, primitives, primitives_cpu = (statistics.mean(column) for column in zip(*rows))
     default, two = _median(per_image["default"]), _median(per_image["two workers"])
-    print(f"Batch of {batch} photos on one CPU (affinity {{{cpu}}}), per image = (T({batch}) - T(1)) / {batch - 1}, "
-          f"medians of {repeats}:")
+    print(f"Batch of {batch} different photos on one CPU (affinity {{{cpu}}}), per image = (T({batch}) - T(1)) / "
+          f"{batch - 1}, medians of {repeats}; primitives: mean over the same {batch - 1} images:")
     print(f"  bare primitives (Otsu, label, skeletonize, EDT)   {bare:5.2f} s on the decoded image")
     print(f"  the same with decoding the PNG, as every image    {primitives:5.2f} s (the reference below); "
           f"cpu {primitives_cpu:.2f} s")
@@ -219,7 +220,8 @@ def main() -> None:
         photo = write_photo(work / "one.png")
         shell_analyze(photo, work, args.repeats)
         model_load(args.repeats)
-        one_cpu_batch(photo, work, args.batch, max(2, args.repeats // 2))
+        batch = [photo] + [write_photo(work / f"batch_{i}.png", seed=7 + i) for i in range(1, args.batch)]
+        one_cpu_batch(batch, max(2, args.repeats // 2))
     print("load average at end: " + " ".join(f"{x:.1f}" for x in os.getloadavg()))
 
 
