@@ -93,7 +93,7 @@ def field_mask(shape: tuple[int, int], fov: Field, factor: int = 1) -> np.ndarra
 
 
 def clip_to_field(mask: np.ndarray, fov: Field, factor: int = 1) -> None:
-    """Clear ``mask`` outside the ellipse in place, in bands of rows (small temporaries only).
+    """Clear ``mask`` outside the ellipse in place, row by row (no temporaries).
 
     Row ``i`` of a grid reduced by ``factor`` sits at full-resolution row ``i * factor + (factor - 1) / 2``;
     each row's inside is the run of columns between the ellipse's two crossings of it.
@@ -114,10 +114,9 @@ def clip_to_field(mask: np.ndarray, fov: Field, factor: int = 1) -> None:
     j0 = np.clip(np.ceil((x_lo - off) / factor), 0, w).astype(np.int64)
     j1 = np.clip(np.floor((x_hi - off) / factor) + 1, 0, w).astype(np.int64)
     j1[disc <= 0.0] = 0  # rows the ellipse does not reach
-    cols = np.arange(w)
-    for r0 in range(0, h, 256):
-        r1 = min(h, r0 + 256)
-        mask[r0:r1] &= (cols >= j0[r0:r1, None]) & (cols < j1[r0:r1, None])
+    for row, start, stop in zip(mask, j0.tolist(), j1.tolist()):
+        row[:start] = False
+        row[max(start, stop):] = False
 
 
 def as_gray_rgb(image: LoadedImage | np.ndarray) -> tuple[np.ndarray, np.ndarray]:
