@@ -373,8 +373,8 @@ def segment(
     # The outline is eroded on the mask's bounding box with a pixel of margin: the same
     # pixels as on the whole image, at the cost of the specimen's box.
     box = (slice(max(0, rows.min() - 1), rows.max() + 2), slice(max(0, cols.min() - 1), cols.max() + 2))
-    outline = np.zeros_like(mask)
-    outline[box] = mask[box] & ~ndimage.binary_erosion(mask[box], structure=EIGHT, border_value=0)
+    outline_r, outline_c = np.nonzero(mask[box] & ~ndimage.binary_erosion(mask[box], structure=EIGHT, border_value=0))
+    outline = (outline_r + box[0].start, outline_c + box[1].start)
     if levels is not None:
         contrast = min(contrast, _deposit_contrast(levels, mask, electrode, settings, seed_rc,
                                                    fov.r if fov is not None else 0.5 * min(h, w)))
@@ -556,12 +556,15 @@ def _keep_near(mask: np.ndarray, scored_mask: np.ndarray, step: int) -> bool:
     the scored copy stay: they lie within two of its pixels of what it saw, or run on from
     what is kept as small pieces (tips the scored copy lost), each under 2% of the mask."""
     near = ndimage.binary_dilation(scored_mask, iterations=2)
-    rows = np.minimum(np.arange(mask.shape[0]) // step, near.shape[0] - 1)
-    cols = np.minimum(np.arange(mask.shape[1]) // step, near.shape[1] - 1)
-    far = mask & ~near[np.ix_(rows, cols)]
-    total = np.count_nonzero(mask)
-    if np.count_nonzero(far) <= 0.5 * total:
+    # Most often little is far: counted over the mask's own pixels first.
+    h, w = mask.shape
+    idx = np.flatnonzero(mask)
+    total = idx.size
+    far_px = ~near[np.minimum(idx // w // step, near.shape[0] - 1), np.minimum(idx % w // step, near.shape[1] - 1)]
+    if np.count_nonzero(far_px) <= 0.5 * total:
         return False
+    far = np.zeros_like(mask)
+    far.ravel()[idx[far_px]] = True
     pieces, n = ndimage.label(far, structure=EIGHT)
     touching = np.zeros(n + 1, dtype=bool)
     touching[pieces[ndimage.binary_dilation(mask & ~far, structure=EIGHT) & far]] = True
@@ -759,9 +762,12 @@ def _warnings(mask: np.ndarray, rows: np.ndarray, cols: np.ndarray, center_rc: t
     return out
 
 
-def _overlay(rgb: np.ndarray, outline: np.ndarray, fov: Field | None, center_rc: tuple[float, float]) -> np.ndarray:
+def _overlay(rgb: np.ndarray, outline: tuple[np.ndarray, np.ndarray], fov: Field | None,
+             center_rc: tuple[float, float]) -> np.ndarray:
+    """The photograph with the field's boundary, the mask's outline (its pixels' rows and
+    columns) and a cross at the centre drawn on it."""
     over = rgb.copy()
-    h, w = outline.shape
+    h, w = rgb.shape[:2]
     if fov is not None:
         by, bx = fov.boundary(max(360, int(2 * np.pi * max(fov.a, fov.b))))
         ys, xs = np.rint(by).astype(int), np.rint(bx).astype(int)
