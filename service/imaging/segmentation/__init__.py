@@ -557,7 +557,7 @@ def _keep_near(mask: np.ndarray, scored_mask: np.ndarray, step: int) -> bool:
     what is kept as small pieces (tips the scored copy lost), each under 2% of the mask."""
     near = ndimage.binary_dilation(scored_mask, iterations=2)
     # Most often little is far: counted over the mask's own pixels first.
-    h, w = mask.shape
+    w = mask.shape[1]
     idx = np.flatnonzero(mask)
     total = idx.size
     far_px = ~near[np.minimum(idx // w // step, near.shape[0] - 1), np.minimum(idx % w // step, near.shape[1] - 1)]
