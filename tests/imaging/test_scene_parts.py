@@ -308,6 +308,27 @@ def test_window_median_is_scipys_median_filter():
         window_median(pictures[0], 6)
 
 
+def test_cleanup_branch_width_is_twice_the_median_ridge_distance_less_one():
+    """The width that sizes the cleanup, by its definition written with scipy alone (the
+    reference library): ``2 * median - 1`` of the Euclidean distance transform where it is a
+    3 x 3 local maximum inside the mask. Exact objects first: a straight stroke 7 px wide is
+    7 px wide; then random strokes, and a mask over 1024 px that is measured in tiles."""
+    from service.imaging.segmentation.cleanup import branch_width_px
+
+    def by_definition(mask: np.ndarray) -> float:
+        dist = ndimage.distance_transform_edt(np.pad(mask, 1))[1:-1, 1:-1].astype(np.float32)
+        ridge = mask & (dist >= ndimage.maximum_filter(dist, size=3))
+        return max(1.0, 2.0 * float(np.median(dist[ridge])) - 1.0)
+
+    stroke = np.zeros((40, 200), dtype=bool)
+    stroke[10:17, 20:180] = True
+    assert branch_width_px(stroke) == 7.0
+    rng = np.random.default_rng(6)
+    for shape in ((120, 90), (300, 260), (1300, 1100)):
+        mask = ndimage.binary_dilation(rng.random(shape) < 0.004, iterations=int(rng.integers(1, 4)))
+        assert branch_width_px(mask) == by_definition(mask)
+
+
 def _electrode_in_a_dense_core(electrode_grey: float, seed: int):
     """A dark deposit on a pale solution: a tree with a dense core 22 px across round a centre
     electrode of 9 px radius, so the thick disc by the mask's shape alone is the core's.

@@ -33,11 +33,21 @@ def branch_width_px(mask: np.ndarray) -> float:
             piece = crop[a0: r0 + tile + margin, b0: c0 + tile + margin]
             if not piece.any():
                 continue
-            dist = distance_to_background(np.pad(piece, 1))[1:-1, 1:-1].astype(np.float32)
-            ridge = piece & (dist >= ndimage.maximum_filter(dist, size=3))
-            core = np.zeros_like(ridge)
-            core[r0 - a0: r0 - a0 + tile, c0 - b0: c0 - b0 + tile] = True
-            values.append(dist[ridge & core])
+            # Distances with the edge continued (as a 3 x 3 maximum filter reads past the edge),
+            # compared with their 8 neighbours at the core's mask pixels only.
+            dist = np.pad(distance_to_background(np.pad(piece, 1))[1:-1, 1:-1].astype(np.float32), 1, mode="edge")
+            core = np.zeros(dist.shape, dtype=bool)
+            core[1 + r0 - a0: 1 + r0 - a0 + tile, 1 + c0 - b0: 1 + c0 - b0 + tile] = True
+            core[1:-1, 1:-1] &= piece
+            core[0], core[-1], core[:, 0], core[:, -1] = False, False, False, False
+            flat = dist.ravel()
+            px = np.flatnonzero(core)
+            here = flat[px]
+            ridge = np.ones(px.size, dtype=bool)
+            stride = dist.shape[1]
+            for offset in (-stride - 1, -stride, -stride + 1, -1, 1, stride - 1, stride, stride + 1):
+                ridge &= here >= flat[px + offset]
+            values.append(here[ridge])
     found = np.concatenate(values) if values else np.zeros(0, dtype=np.float32)
     return float(max(1.0, 2.0 * float(np.median(found)) - 1.0)) if found.size else 1.0
 
