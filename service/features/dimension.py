@@ -320,19 +320,24 @@ def _honest_fit(
     return slope, (slope - half, slope + half), intercept, n
 
 
-def _occupied_boxes(table: np.ndarray, size: int, offset_r: int, offset_c: int) -> int:
-    """Occupied boxes of side ``size`` on a grid shifted up-left by the given offsets.
+def _occupied_boxes(table: np.ndarray, size: int, offsets: list[tuple[int, int]]) -> dict[tuple[int, int], int]:
+    """Occupied boxes of side ``size`` on each grid shifted up-left by ``(offset_r, offset_c)``.
 
     Strategy: box edges along each axis are ``-offset + k * size`` clipped to the image;
     the summed-area table read at all edge crossings gives every box's mass from four
-    corners at once, so the count costs one pass over the boxes, not over the pixels.
+    corners at once, so a count costs one pass over the boxes, not over the pixels. The
+    differences between box rows are taken once for each row offset and serve every
+    column offset; a grid asked for twice is counted once.
     """
     h, w = table.shape[0] - 1, table.shape[1] - 1
-    rows = np.clip(np.arange(-offset_r, h + size, size), 0, h)
-    cols = np.clip(np.arange(-offset_c, w + size, size), 0, w)
-    corners = table[np.ix_(rows, cols)]
-    mass = corners[1:, 1:] - corners[:-1, 1:] - corners[1:, :-1] + corners[:-1, :-1]
-    return int(np.count_nonzero(mass))
+    out: dict[tuple[int, int], int] = {}
+    for offset_r in dict.fromkeys(r for r, _ in offsets):
+        rows = np.clip(np.arange(-offset_r, h + size, size), 0, h)
+        strips = table[rows[1:]] - table[rows[:-1]]  # each row of boxes, summed down to it
+        for offset_c in dict.fromkeys(c for r, c in offsets if r == offset_r):
+            cols = np.clip(np.arange(-offset_c, w + size, size), 0, w)
+            out[offset_r, offset_c] = int(np.count_nonzero(strips[:, cols[1:]] - strips[:, cols[:-1]]))
+    return out
 
 
 def box_counting(
@@ -457,19 +462,16 @@ def box_counting(
         s = int(size)
         if not in_fit[i]:
             # Sizes outside the fit only draw the log-log plot: one grid is enough.
-            counts[i] = _occupied_boxes(table, s, 0, 0)
+            counts[i] = _occupied_boxes(table, s, [(0, 0)])[0, 0]
             continue
         shifts = [(k * s) // n_offsets for k in range(n_offsets)]
-        per_offset[j] = [_occupied_boxes(table, s, sr, sc) for sr in shifts for sc in shifts]
+        grids = [(sr, sc) for sr in shifts for sc in shifts]
         # Grids flush with the bottom or right edge of the bounding box as well: a
         # specimen that ends there (an anti-diagonal stroke) fits them best.
-        flush = [
-            _occupied_boxes(table, s, sr, sc)
-            for sr in (0, (-h) % s)
-            for sc in (0, (-w) % s)
-            if (sr, sc) != (0, 0)
-        ]
-        counts[i] = min([per_offset[j].min(), *flush])
+        flush = [(sr, sc) for sr in (0, (-h) % s) for sc in (0, (-w) % s) if (sr, sc) != (0, 0)]
+        occupied = _occupied_boxes(table, s, grids + flush)
+        per_offset[j] = [occupied[grid] for grid in grids]
+        counts[i] = min([per_offset[j].min(), *(occupied[grid] for grid in flush)])
         j += 1
 
     log_s = np.log(sizes[in_fit].astype(float))
