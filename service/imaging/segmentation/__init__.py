@@ -674,7 +674,9 @@ def _deposit_contrast(levels: np.ndarray, mask: np.ndarray, electrode: dict[str,
         r, (cy, cx) = 0.1 * field_radius, seed_rc
     yy, xx = np.ogrid[: keep.shape[0], : keep.shape[1]]
     keep &= (yy * step - cy) ** 2 + (xx * step - cx) ** 2 > r * r
-    if np.count_nonzero(keep) < 4:
+    # Less than the smallest piece the cleanup keeps cannot vouch for a deposit: the rim of an
+    # electrode a little off the seed, say, with nothing grown on it that the threshold saw.
+    if np.count_nonzero(keep) * step * step < max(4, settings["cleanup"]["min_object_px"]):
         return 0.0
     lv = levels[::step, ::step]
     noise = max(robust_sigma_uint8_steps(lv) / math.sqrt(2.0), 0.5)
