@@ -134,12 +134,14 @@ def median_branch_width_px(
     return float(max(1.0, np.median(local_width_px(on_skeleton))))
 
 
-def summed_area_table(mask: np.ndarray) -> np.ndarray:
+def summed_area_table(mask: np.ndarray, dtype=None) -> np.ndarray:
     """Summed-area table with a zero first row and column: ``T[r, c] = mask[:r, :c].sum()``.
 
-    int32 while the total fits (faster to build and read), int64 beyond.
+    By default int32 while the total fits (faster to build and read), int64 beyond; a
+    float ``dtype`` serves interpolation between its entries.
     """
-    dtype = np.int32 if mask.size < 2**31 - 1 else np.int64
+    if dtype is None:
+        dtype = np.int32 if mask.size < 2**31 - 1 else np.int64
     table = np.zeros((mask.shape[0] + 1, mask.shape[1] + 1), dtype=dtype)
     # Copied in first: numpy's cumulative sum casting a bool mask as it goes is 3-4 times slower.
     table[1:, 1:] = mask

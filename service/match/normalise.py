@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage
 
-from service.features._common import as_specimen_mask, crop_to_specimen, skeleton_of
+from service.features._common import as_specimen_mask, crop_to_specimen, skeleton_of, summed_area_table
 
 #: The branch width is taken no larger than the bounding radius over this many sites, so a
 #: compact blob (Eden, a filled disk), whose "width" is its own size, keeps a lattice of at
@@ -65,10 +65,7 @@ def _cell_fractions(mask: np.ndarray, scale: float) -> np.ndarray:
     occupied area of every cell (partial pixels included) in one vectorised pass.
     """
     h, w = mask.shape
-    table = np.zeros((h + 1, w + 1), dtype=np.float64)
-    table[1:, 1:] = mask  # copied in first: a cumulative sum casting as it goes is several times slower
-    np.cumsum(table[1:, 1:], axis=0, out=table[1:, 1:])
-    np.cumsum(table[1:, 1:], axis=1, out=table[1:, 1:])
+    table = summed_area_table(mask, np.float64)
     n_r, n_c = int(np.ceil(h / scale)), int(np.ceil(w / scale))
     edges_r = np.minimum(np.arange(n_r + 1) * scale, h)
     edges_c = np.minimum(np.arange(n_c + 1) * scale, w)
