@@ -506,8 +506,9 @@ def _bare_graph(skeleton: np.ndarray, width: np.ndarray) -> tuple[_Graph, int, i
     degree = np.zeros(px.size, dtype=np.uint8)
     for dr, dc in _NEIGHBOURS:
         degree += flat[px + (dr * w + dc)]
+    junction_flat = px[degree >= 3]
     junction_px = np.zeros(h * w, dtype=bool)
-    junction_px[px[degree >= 3]] = True
+    junction_px[junction_flat] = True
     junction_label, n_junctions = ndimage.label(junction_px.reshape(h, w), structure=np.ones((3, 3)))
     node_label = junction_label.astype(np.int32)
     tip_px = px[degree == 1]
@@ -515,7 +516,6 @@ def _bare_graph(skeleton: np.ndarray, width: np.ndarray) -> tuple[_Graph, int, i
     node_label[tip_r, tip_c] = n_junctions + 1 + np.arange(tip_r.size, dtype=np.int32)
     indptr, rows, cols, start, end = _trace_branches(skeleton.view(np.uint8), node_label, _NEIGHBOURS)
     # Junction pixels by label, each label's in raster order.
-    junction_flat = px[degree >= 3]
     of = junction_label.ravel()[junction_flat]
     junction_flat = junction_flat[np.argsort(of, kind="stable")]
     junction_rc = np.column_stack(np.divmod(junction_flat, w))
